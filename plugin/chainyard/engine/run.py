@@ -1,0 +1,422 @@
+"""The run loop: create, resume or extend a store, and commit steps as they come.
+
+``sample`` is the only entry point. It validates everything that can be checked before a
+byte is written (model, data, initial state), takes the store's single-writer lock, compares
+an existing store's identity with the requested run, and then advances the sampler,
+committing by step count and by wall time (whichever first). SIGTERM and SIGINT commit the
+finished steps before the process exits, so a wall-time limit loses nothing; SIGKILL loses
+at most the steps since the last commit.
+"""
+
+from __future__ import annotations
+
+import shutil
+import signal
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any, TextIO
+
+import numpy as np
+from numpy.typing import NDArray
+
+from chainyard.config import RunConfig, config_hash
+from chainyard.engine.ensemble import EnsembleDriver
+from chainyard.engine.identity import describe_differences, run_identity
+from chainyard.engine.initial import initial_state
+from chainyard.errors import StoreConflictError, StoreError
+from chainyard.model import LoadedModel, load_model
+from chainyard.progress import Progress
+from chainyard.provenance import git_state, host_record, software_versions, utc_now
+from chainyard.store import Store, chunk_checksum, writer_lock
+from chainyard.store.layout import ACCEPTED, ATTRS_KEY, BLOB, COMMIT_FILE, LOG_PROB, POSITION
+from chainyard.streams import random_state_to_json, sampler_random_state, spawn_key
+
+__all__ = ["Interrupted", "sample"]
+
+#: pending rows are committed at the latest when they reach this many bytes
+MAX_PENDING_BYTES = 128 * 2**20
+
+
+class Interrupted(Exception):
+    """Raised inside the run loop by SIGTERM/SIGINT; the loop commits, then re-raises."""
+
+    def __init__(self, signum: int) -> None:
+        super().__init__(signal.Signals(signum).name)
+        self.signum = signum
+
+
+@contextmanager
+def _signals_commit() -> Iterator[None]:
+    def handler(signum: int, frame: Any) -> None:
+        raise Interrupted(signum)
+
+    try:
+        old = {s: signal.signal(s, handler) for s in (signal.SIGTERM, signal.SIGINT)}
+    except ValueError:  # not the main thread: leave signals alone
+        yield
+        return
+    try:
+        yield
+    finally:
+        for s, h in old.items():
+            signal.signal(s, h)
+
+
+def _is_partial_creation(path: Path) -> bool:
+    """True for a store folder a killed process left before its first commit."""
+    if not path.is_dir():
+        return False
+    if (path / COMMIT_FILE).exists():
+        return False
+    meta = path / "zarr.json"
+    if not any(path.iterdir()):
+        return True
+    try:
+        import json
+
+        attrs = json.loads(meta.read_text()).get("attributes", {})
+    except (OSError, ValueError):
+        return False
+    return isinstance(attrs.get(ATTRS_KEY), dict)
+
+
+class _Buffer:
+    """Rows since the start of the current chunk, plus pending (uncommitted) rows.
+
+    ``origin`` (a chunk boundary) is the step index of row 0; rows ``[origin, committed)``
+    are already stored and kept only to checksum the chunk they belong to.
+    """
+
+    def __init__(
+        self, walkers: int, n_params: int, n_blobs: int, chunk: int, pending_cap: int
+    ) -> None:
+        size = chunk + pending_cap
+        self.chunk, self.pending_cap = chunk, pending_cap
+        self.position = np.empty((size, walkers, n_params))
+        self.log_prob = np.empty((size, walkers))
+        self.accepted = np.empty((size, walkers), dtype=bool)
+        self.blobs = np.empty((n_blobs, size, walkers))
+        self.origin = 0
+        self.fill = 0
+
+    def load_tail(self, store: Store, committed: int) -> None:
+        """Reload the stored rows of the chunk that ``committed`` falls in."""
+        self.origin = (committed // self.chunk) * self.chunk
+        n = committed - self.origin
+        self.fill = n
+        if n:
+            self.position[:n] = store.read_rows(POSITION, self.origin, committed)
+            self.log_prob[:n] = store.read_rows(LOG_PROB, self.origin, committed)
+            self.accepted[:n] = store.read_rows(ACCEPTED, self.origin, committed)
+            for k, b in enumerate(store.blob_names):
+                self.blobs[k, :n] = store.read_rows(f"{BLOB}/{b}", self.origin, committed)
+
+    def rows(self, a: int, b: int, blob_names: tuple[str, ...]) -> dict[str, NDArray[Any]]:
+        """Rows for steps ``[a, b)`` (absolute step indices)."""
+        i, j = a - self.origin, b - self.origin
+        out: dict[str, NDArray[Any]] = {
+            POSITION: self.position[i:j],
+            LOG_PROB: self.log_prob[i:j],
+            ACCEPTED: self.accepted[i:j],
+        }
+        for k, name in enumerate(blob_names):
+            out[f"{BLOB}/{name}"] = self.blobs[k, i:j]
+        return out
+
+    def drop_before(self, committed: int) -> None:
+        """Forget full chunks before ``committed``; keep its chunk's rows."""
+        new_origin = (committed // self.chunk) * self.chunk
+        shift = new_origin - self.origin
+        if shift <= 0:
+            return
+        keep = self.fill - shift
+        for arr in (self.position, self.log_prob, self.accepted):
+            arr[:keep] = arr[shift : self.fill]
+        self.blobs[:, :keep] = self.blobs[:, shift : self.fill]
+        self.origin, self.fill = new_origin, keep
+
+
+def _checksums(
+    record: dict[str, list[str]], buf: _Buffer, a: int, b: int, names: tuple[str, ...]
+) -> dict[str, list[str]]:
+    """Update per-chunk checksums for the chunks touched by steps ``[a, b)``."""
+    out = {k: list(v) for k, v in record.items()}
+    size = buf.chunk
+    for ci in range(a // size, (b - 1) // size + 1):
+        lo, hi = ci * size, min((ci + 1) * size, b)
+        rows = buf.rows(lo, hi, names)
+        for name, values in rows.items():
+            sums = out.setdefault(name, [])
+            while len(sums) <= ci:
+                sums.append("")
+            sums[ci] = chunk_checksum(values)
+    return out
+
+
+def _store_attrs(config: RunConfig, replica: int, identity: dict[str, Any]) -> dict[str, Any]:
+    norm = config.normalised()
+    return {
+        "param_names": list(config.param_names),
+        "blob_names": list(config.sampler.blobs),
+        "walkers": config.sampler.walkers,
+        "replica": replica,
+        "seed": config.seed,
+        "spawn_key": list(spawn_key(replica, 1)),
+        "config": norm,
+        "config_hash": config_hash(norm),
+        "config_dir": str(config.base_dir),
+        "config_source": config.source,
+        "identity": identity,
+        "provenance": {
+            "created_utc": utc_now(),
+            "software": software_versions(),
+            "host": host_record(),
+            "git": git_state(config.base_dir),
+        },
+    }
+
+
+def sample(
+    config: RunConfig,
+    store_path: str | Path,
+    replica: int = 0,
+    *,
+    restart: bool = False,
+    progress: str = "auto",
+    progress_interval: float = 10.0,
+    stream: TextIO | None = None,
+) -> Store:
+    """Create, resume or extend the store of one replica until it holds ``sampler.steps``.
+
+    Parameters
+    ----------
+    config : RunConfig
+        The validated run configuration.
+    store_path : str or Path
+        The store directory (created if missing).
+    replica : int
+        Replica index; selects the independent random stream.
+    restart : bool
+        Discard an existing store at ``store_path`` and start over.
+    progress : {"auto", "bar", "log", "off"}
+        Progress display (``auto``: bar on a terminal, log lines otherwise).
+    progress_interval : float
+        Seconds between progress log lines.
+    stream : file, optional
+        Where progress goes (default standard error).
+
+    Returns
+    -------
+    Store
+        The store, opened for reading.
+
+    Raises
+    ------
+    ConfigError, ModelError, StoreError, StoreConflictError, StoreLockedError
+        On bad input; an existing store is never altered in that case.
+    """
+    path = Path(store_path)
+    model = load_model(config)
+    identity = run_identity(config, replica, EnsembleDriver.kind)
+    label = f"{path.name}"
+    with writer_lock(path):
+        if restart and path.exists():
+            if not (path / COMMIT_FILE).exists() and not _is_partial_creation(path):
+                raise StoreError(f"{path}: exists and is not a chainyard store; not removing it")
+            shutil.rmtree(path)
+        if _is_partial_creation(path):
+            shutil.rmtree(path)
+        if path.exists():
+            store = Store.open(path, writable=True)
+            _check_identity(store, identity, path)
+            if store.steps_done >= config.sampler.steps:
+                reporter = Progress(
+                    config.sampler.steps,
+                    store.steps_done,
+                    mode=progress,
+                    stream=stream,
+                    label=label,
+                )
+                reporter.message(
+                    f"already complete ({store.steps_done:,} steps committed, "
+                    f"{config.sampler.steps:,} requested); nothing to do"
+                )
+                return Store.open(path)
+            kind = "extend" if store.steps_done >= _stored_steps(store) else "resume"
+            _refresh_config(store, config)
+        else:
+            if path.is_file():
+                raise StoreError(f"{path}: exists and is a file, not a store directory")
+            store = _create(config, model, replica, identity, path)
+            kind = "start"
+        with _signals_commit():
+            _advance(store, config, model, kind, progress, progress_interval, stream, label)
+    return Store.open(path)
+
+
+def _stored_steps(store: Store) -> int:
+    return int(store.attrs["config"]["sampler"]["steps"])
+
+
+def _check_identity(store: Store, identity: dict[str, Any], path: Path) -> None:
+    diffs = describe_differences(store.attrs.get("identity", {}), identity)
+    if diffs:
+        raise StoreConflictError(
+            f"{path}: store was made with different settings: {'; '.join(diffs)}. "
+            "Use --restart (restart=True) to discard it and start over"
+        )
+
+
+def _refresh_config(store: Store, config: RunConfig) -> None:
+    norm = config.normalised()
+    if store.attrs["config"] != norm:
+        store.update_attrs(config=norm, config_hash=config_hash(norm))
+
+
+def _create(
+    config: RunConfig, model: LoadedModel, replica: int, identity: dict[str, Any], path: Path
+) -> Store:
+    pos, lp, blobs, _ = initial_state(config, model, replica)
+    start = {POSITION: pos, LOG_PROB: lp}
+    for k, b in enumerate(config.sampler.blobs):
+        start[f"{BLOB}/{b}"] = blobs[:, k]
+    st = config.storage
+    record = {
+        "format_version": 1,
+        "steps_done": 0,
+        "random_state": random_state_to_json(
+            sampler_random_state(config.seed, replica).get_state()
+        ),
+        "checksums": {},
+        "segments": [],
+        "updated_utc": utc_now(),
+    }
+    path.parent.mkdir(parents=True, exist_ok=True)
+    return Store.create(
+        path,
+        attrs=_store_attrs(config, replica, identity),
+        walkers=config.sampler.walkers,
+        n_params=len(config.parameters),
+        blob_names=config.sampler.blobs,
+        capacity=config.sampler.steps,
+        chunk_steps=st.chunk_steps,
+        codec=st.codec,
+        level=st.level,
+        start=start,
+        commit=record,
+        fsync=st.fsync,
+    )
+
+
+def _advance(
+    store: Store,
+    config: RunConfig,
+    model: LoadedModel,
+    kind: str,
+    progress: str,
+    progress_interval: float,
+    stream: TextIO | None,
+    label: str,
+) -> None:
+    target = config.sampler.steps
+    done = store.steps_done
+    st = config.storage
+    fsync = st.fsync
+    store.ensure_capacity(target)
+    last = store.last_state()
+    record = store.commit_record
+    blob_names = store.blob_names
+    walkers, n_params = last[POSITION].shape
+    n_blobs = len(blob_names)
+    blobs0 = (
+        np.column_stack([last[f"{BLOB}/{b}"] for b in blob_names])
+        if n_blobs
+        else np.empty((walkers, 0))
+    )
+    driver = EnsembleDriver(
+        model,
+        config.sampler.moves,
+        last[POSITION],
+        last[LOG_PROB],
+        blobs0,
+        record["random_state"],
+        check_start=(done == 0),
+    )
+    bytes_per_step = walkers * (n_params + 2 + n_blobs) * 8
+    pending_cap = max(1, min(st.commit_every_steps, MAX_PENDING_BYTES // bytes_per_step))
+    buf = _Buffer(walkers, n_params, n_blobs, store.chunk_steps, pending_cap)
+    buf.load_tail(store, done)
+    segment = {
+        "kind": kind,
+        "from_step": done,
+        "to_step": done,
+        "started_utc": utc_now(),
+        "ended_utc": None,
+        "host": host_record()["host"],
+        "pid": host_record()["pid"],
+        "config_hash": config_hash(config.normalised()),
+        "software": software_versions(),
+    }
+    record["segments"] = [*record.get("segments", []), segment]
+    committed = done
+    reporter = Progress(
+        target, done, mode=progress, interval=progress_interval, stream=stream, label=label
+    )
+    reporter.message(
+        {"start": "starting", "resume": "resuming", "extend": "extending"}[kind]
+        + f" replica {store.replica} at step {done:,} of {target:,}"
+    )
+    accepted_sum = 0
+    steps_here = 0
+
+    def commit(upto: int) -> None:
+        nonlocal committed, record
+        if upto <= committed:
+            return
+        store.write_rows(committed, buf.rows(committed, upto, blob_names), fsync=fsync)
+        new = dict(record)
+        new["checksums"] = _checksums(record.get("checksums", {}), buf, committed, upto, blob_names)
+        new["steps_done"] = upto
+        new["random_state"] = driver.random_state()
+        new["updated_utc"] = utc_now()
+        seg = dict(new["segments"][-1], to_step=upto, ended_utc=new["updated_utc"])
+        new["segments"] = [*new["segments"][:-1], seg]
+        store.commit(new, fsync=fsync)
+        record = new
+        committed = upto
+        buf.drop_before(committed)
+
+    last_commit_time = time.monotonic()
+    last_report = 0.0
+    step = done
+    try:
+        for rows in driver.steps(target - done):
+            i = step - buf.origin
+            buf.position[i] = rows.position
+            buf.log_prob[i] = rows.log_prob
+            buf.accepted[i] = rows.accepted
+            if n_blobs:
+                buf.blobs[:, i] = rows.blobs.T
+            buf.fill = i + 1
+            step += 1
+            steps_here += 1
+            accepted_sum += int(rows.accepted.sum())
+            now = time.monotonic()
+            if step - committed >= pending_cap or now - last_commit_time >= st.commit_every_seconds:
+                commit(step)
+                last_commit_time = now
+            if now - last_report >= 0.2:
+                last_report = now
+                reporter.update(step, accepted_sum / (steps_here * walkers))
+        commit(step)
+    except Interrupted as exc:
+        commit(step)
+        reporter.message(f"stopped by {exc} at step {committed:,} of {target:,}; rerun to continue")
+        raise
+    finally:
+        acc = accepted_sum / (steps_here * walkers) if steps_here else float("nan")
+        reporter.update(step, acc)
+        reporter.close(acc)
+    reporter.message(f"done: {committed:,} steps committed")

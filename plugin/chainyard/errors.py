@@ -1,0 +1,69 @@
+"""One error hierarchy for everything a user can get wrong.
+
+Every error a user can cause derives from :class:`ChainyardError`. The command line prints
+``str(error)`` (one line per problem, no traceback) and exits with ``error.exit_code``.
+Anything else that escapes is a bug in chainyard and keeps its traceback.
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "ChainyardError",
+    "ConfigError",
+    "ModelError",
+    "StoreConflictError",
+    "StoreError",
+    "StoreLockedError",
+]
+
+
+class ChainyardError(Exception):
+    """Base class of all user-facing errors.
+
+    Attributes
+    ----------
+    exit_code : int
+        Process exit status the command line uses for this error.
+    """
+
+    exit_code: int = 1
+
+
+class ConfigError(ChainyardError):
+    """The run configuration (or a file it names) is invalid.
+
+    Parameters
+    ----------
+    problems : list of str
+        One human-readable line per problem, each naming the field or file.
+    """
+
+    exit_code = 2
+
+    def __init__(self, problems: list[str] | str) -> None:
+        self.problems = [problems] if isinstance(problems, str) else list(problems)
+        super().__init__("\n".join(self.problems))
+
+
+class ModelError(ChainyardError):
+    """The user's log-probability function misbehaved (raised, returned NaN or a bad shape)."""
+
+    exit_code = 3
+
+
+class StoreError(ChainyardError):
+    """A store is missing, unreadable or not a chainyard store."""
+
+    exit_code = 4
+
+
+class StoreConflictError(StoreError):
+    """An existing store was made with settings that differ from the requested run."""
+
+    exit_code = 5
+
+
+class StoreLockedError(StoreError):
+    """Another process holds the store's write lock."""
+
+    exit_code = 6

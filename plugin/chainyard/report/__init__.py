@@ -1,0 +1,1 @@
+"""Reports: plots and tables of a run."""

@@ -1,0 +1,352 @@
+"""The zarr v3 run store: creation, row writes, the commit protocol and the reading API.
+
+Commit protocol (crash safe at every instant):
+
+1. rows ``[steps_done, new)`` of every array are written (each chunk file is written to a
+   temporary name and renamed over the old one, so a chunk is either old or new);
+2. with ``fsync`` on, those chunk files and their folders are flushed to disk;
+3. ``commit.json`` (new ``steps_done``, sampler RNG state, chunk checksums, segment history)
+   is written to a temporary file, flushed and renamed over the old one. This rename is the
+   commit point.
+
+A crash before step 3 leaves the old record in force; rows past it are ignored and
+overwritten on resume. Reading never executes code: zarr metadata and JSON only.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import warnings
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import zarr
+from numpy.typing import NDArray
+
+from chainyard.errors import StoreError
+from chainyard.store.layout import (
+    ACCEPTED,
+    ATTRS_KEY,
+    BLOB,
+    COMMIT_FILE,
+    DRAWS,
+    FORMAT_NAME,
+    FORMAT_VERSION,
+    LOG_PROB,
+    POSITION,
+    START,
+    codec_kwargs,
+)
+
+__all__ = ["Store", "atomic_write_json", "chunk_checksum"]
+
+
+# zarr warns on every use of a numcodecs codec (pcodec) that other zarr implementations may
+# not read it; the store format documents its codecs, so this notice is silenced here only.
+warnings.filterwarnings("ignore", message="Numcodecs codecs are not in the Zarr")
+
+
+def atomic_write_json(path: Path, data: Any, *, fsync: bool) -> None:
+    """Replace ``path`` by JSON ``data`` atomically (temporary file + rename)."""
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
+    text = json.dumps(data, sort_keys=True, indent=1, allow_nan=False)
+    with open(tmp, "w") as f:
+        f.write(text)
+        if fsync:
+            f.flush()
+            os.fsync(f.fileno())
+    os.replace(tmp, path)
+    if fsync:
+        _fsync_dir(path.parent)
+
+
+def _fsync_dir(path: Path) -> None:
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def chunk_checksum(rows: NDArray[Any]) -> str:
+    """BLAKE2b-128 (hex) of an array's C-order bytes, prefixed by its shape and dtype."""
+    h = hashlib.blake2b(digest_size=16)
+    h.update(f"{rows.dtype.str}{rows.shape}".encode())
+    h.update(np.ascontiguousarray(rows).tobytes())
+    return h.hexdigest()
+
+
+class Store:
+    """A chainyard run store on local disk.
+
+    Use :func:`chainyard.open_store` to read one; :func:`chainyard.sample` creates and
+    extends them. Array accessors return only committed rows.
+
+    Attributes
+    ----------
+    path : Path
+        The store directory.
+    """
+
+    def __init__(self, path: Path, group: zarr.Group, commit: dict[str, Any]) -> None:
+        self.path = path
+        self._group = group
+        self._commit = commit
+        attrs = dict(group.attrs).get(ATTRS_KEY)
+        if not isinstance(attrs, dict) or attrs.get("format") != FORMAT_NAME:
+            raise StoreError(f"{path}: not a chainyard store (no '{ATTRS_KEY}' attributes)")
+        if attrs.get("format_version") != FORMAT_VERSION:
+            raise StoreError(
+                f"{path}: store format version {attrs.get('format_version')} is not supported "
+                f"(this chainyard reads version {FORMAT_VERSION})"
+            )
+        self._attrs: dict[str, Any] = attrs
+
+    # ------------------------------------------------------------------ opening
+    @classmethod
+    def open(cls, path: str | Path, *, writable: bool = False) -> Store:
+        """Open an existing store (read-only unless ``writable``).
+
+        Raises
+        ------
+        StoreError
+            If the path is missing or is not a readable chainyard store.
+        """
+        path = Path(path)
+        if not path.exists():
+            raise StoreError(f"{path}: store not found")
+        commit_path = path / COMMIT_FILE
+        try:
+            commit = json.loads(commit_path.read_text())
+        except FileNotFoundError:
+            raise StoreError(f"{path}: not a chainyard store (no {COMMIT_FILE})") from None
+        except (OSError, ValueError) as exc:
+            raise StoreError(f"{path}/{COMMIT_FILE}: unreadable commit record ({exc})") from None
+        try:
+            group = zarr.open_group(path, mode="r+" if writable else "r")
+        except Exception as exc:
+            raise StoreError(f"{path}: cannot open as a zarr group ({exc})") from None
+        return cls(path, group, commit)
+
+    @classmethod
+    def create(
+        cls,
+        path: str | Path,
+        *,
+        attrs: dict[str, Any],
+        walkers: int,
+        n_params: int,
+        blob_names: tuple[str, ...],
+        capacity: int,
+        chunk_steps: int,
+        codec: str,
+        level: int | None,
+        start: dict[str, NDArray[np.float64]],
+        commit: dict[str, Any],
+        fsync: bool,
+    ) -> Store:
+        """Create a new store with empty draws and the start state; write the first commit."""
+        path = Path(path)
+        full = {"format": FORMAT_NAME, "format_version": FORMAT_VERSION, **attrs}
+        group = zarr.open_group(path, mode="w", attributes={ATTRS_KEY: full})
+        shapes = {
+            POSITION: ((capacity, walkers, n_params), "float64"),
+            LOG_PROB: ((capacity, walkers), "float64"),
+            ACCEPTED: ((capacity, walkers), "bool"),
+            **{f"{BLOB}/{b}": ((capacity, walkers), "float64") for b in blob_names},
+        }
+        for name, (shape, dtype) in shapes.items():
+            group.create_array(
+                f"{DRAWS}/{name}",
+                shape=shape,
+                chunks=(chunk_steps, *shape[1:]),
+                dtype=dtype,
+                fill_value=False if dtype == "bool" else np.nan,
+                **codec_kwargs(codec, level, dtype),
+            )
+        for name, value in start.items():
+            arr = group.create_array(
+                f"{START}/{name}",
+                shape=value.shape,
+                dtype="float64",
+                fill_value=np.nan,
+                compressors=None,
+            )
+            arr[...] = value
+        atomic_write_json(path / COMMIT_FILE, commit, fsync=fsync)
+        return cls.open(path, writable=True)
+
+    # ------------------------------------------------------------------ metadata
+    @property
+    def attrs(self) -> dict[str, Any]:
+        """The store's chainyard attributes (a copy)."""
+        return json.loads(json.dumps(self._attrs))
+
+    @property
+    def commit_record(self) -> dict[str, Any]:
+        """The current commit record (a copy)."""
+        return json.loads(json.dumps(self._commit))
+
+    @property
+    def steps_done(self) -> int:
+        """Number of committed steps."""
+        return int(self._commit["steps_done"])
+
+    @property
+    def param_names(self) -> tuple[str, ...]:
+        """Parameter names in draw order."""
+        return tuple(self._attrs["param_names"])
+
+    @property
+    def blob_names(self) -> tuple[str, ...]:
+        """Names of the stored blobs."""
+        return tuple(self._attrs.get("blob_names", ()))
+
+    @property
+    def walkers(self) -> int:
+        """Number of walkers."""
+        return int(self._attrs["walkers"])
+
+    @property
+    def replica(self) -> int:
+        """Replica index of this store's stream."""
+        return int(self._attrs["replica"])
+
+    @property
+    def capacity(self) -> int:
+        """Rows allocated in the draws arrays (>= steps_done)."""
+        return int(self._array(POSITION).shape[0])
+
+    @property
+    def chunk_steps(self) -> int:
+        """Steps per stored chunk."""
+        return int(self._array(POSITION).chunks[0])
+
+    @property
+    def config(self) -> Any:
+        """The run configuration the store was made with, as a :class:`RunConfig`."""
+        from chainyard.config import parse_config
+
+        base = Path(self._attrs.get("config_dir", "."))
+        return parse_config(self._attrs["config"], base_dir=base, source=f"{self.path} (stored)")
+
+    # ------------------------------------------------------------------ reading
+    def _array(self, name: str) -> zarr.Array:
+        node = self._group[f"{DRAWS}/{name}"]
+        assert isinstance(node, zarr.Array)
+        return node
+
+    def _rows(self, name: str, start: int, stop: int | None) -> NDArray[Any]:
+        start, stop, _ = slice(start, stop).indices(self.steps_done)
+        return np.asarray(self._array(name)[start : max(start, stop)])
+
+    def draws(self, start: int = 0, stop: int | None = None) -> NDArray[np.float64]:
+        """Committed positions, shape (steps, walkers, params)."""
+        return self._rows(POSITION, start, stop)
+
+    def log_prob(self, start: int = 0, stop: int | None = None) -> NDArray[np.float64]:
+        """Committed log-probabilities, shape (steps, walkers)."""
+        return self._rows(LOG_PROB, start, stop)
+
+    def accepted(self, start: int = 0, stop: int | None = None) -> NDArray[np.bool_]:
+        """Whether each walker's proposal was accepted at each step, shape (steps, walkers)."""
+        return self._rows(ACCEPTED, start, stop)
+
+    def blob(self, name: str, start: int = 0, stop: int | None = None) -> NDArray[np.float64]:
+        """One blob's committed values, shape (steps, walkers)."""
+        if name not in self.blob_names:
+            raise StoreError(f"{self.path}: no blob {name!r}; stored: {list(self.blob_names)}")
+        return self._rows(f"{BLOB}/{name}", start, stop)
+
+    def column(
+        self, param: int | str, start: int = 0, stop: int | None = None
+    ) -> NDArray[np.float64]:
+        """One parameter's committed draws, shape (steps, walkers); reads only that column."""
+        j = self.param_names.index(param) if isinstance(param, str) else int(param)
+        start, stop, _ = slice(start, stop).indices(self.steps_done)
+        return np.asarray(self._array(POSITION)[start : max(start, stop), :, j])
+
+    def iter_chunks(self, start: int = 0, stop: int | None = None) -> Iterator[tuple[int, int]]:
+        """Step ranges ``(a, b)`` aligned to stored chunks covering ``[start, stop)``."""
+        start, stop, _ = slice(start, stop).indices(self.steps_done)
+        size = self.chunk_steps
+        a = start
+        while a < stop:
+            b = min(stop, (a // size + 1) * size)
+            yield a, b
+            a = b
+
+    def start_state(self) -> dict[str, NDArray[np.float64]]:
+        """Positions, log-prob and blobs before the first step."""
+        out = {
+            POSITION: np.asarray(self._group[f"{START}/{POSITION}"][...]),
+            LOG_PROB: np.asarray(self._group[f"{START}/{LOG_PROB}"][...]),
+        }
+        for b in self.blob_names:
+            out[f"{BLOB}/{b}"] = np.asarray(self._group[f"{START}/{BLOB}/{b}"][...])
+        return out
+
+    def last_state(self) -> dict[str, NDArray[np.float64]]:
+        """Positions, log-prob and blobs after the last committed step (start state if none)."""
+        n = self.steps_done
+        if n == 0:
+            return self.start_state()
+        out = {POSITION: self.draws(n - 1, n)[0], LOG_PROB: self.log_prob(n - 1, n)[0]}
+        for b in self.blob_names:
+            out[f"{BLOB}/{b}"] = self.blob(b, n - 1, n)[0]
+        return out
+
+    def array_names(self) -> tuple[str, ...]:
+        """Names (under ``draws/``) of every per-step array."""
+        return (POSITION, LOG_PROB, ACCEPTED, *(f"{BLOB}/{b}" for b in self.blob_names))
+
+    def read_rows(self, name: str, start: int, stop: int) -> NDArray[Any]:
+        """Rows of any per-step array, committed or not (for checksums and verification)."""
+        return np.asarray(self._array(name)[start:stop])
+
+    # ------------------------------------------------------------------ writing
+    def ensure_capacity(self, steps: int) -> None:
+        """Grow every per-step array to hold at least ``steps`` rows."""
+        if steps <= self.capacity:
+            return
+        for name in self.array_names():
+            arr = self._array(name)
+            arr.resize((steps, *arr.shape[1:]))
+
+    def write_rows(self, start: int, rows: dict[str, NDArray[Any]], *, fsync: bool) -> None:
+        """Write rows ``[start, start + n)`` of every array (not yet committed)."""
+        n = len(rows[POSITION])
+        for name, values in rows.items():
+            self._array(name)[start : start + n] = values
+        if fsync:
+            self._fsync_rows(start, start + n, list(rows))
+
+    def _fsync_rows(self, start: int, stop: int, names: list[str]) -> None:
+        size = self.chunk_steps
+        for name in names:
+            arr = self._array(name)
+            trailing = "/".join("0" for _ in arr.shape[1:])
+            base = self.path / DRAWS / name / "c"
+            for i in range(start // size, (stop - 1) // size + 1):
+                chunk = base / str(i) / trailing if trailing else base / str(i)
+                if chunk.exists():
+                    fd = os.open(chunk, os.O_RDONLY)
+                    try:
+                        os.fsync(fd)
+                    finally:
+                        os.close(fd)
+                    _fsync_dir(chunk.parent)
+
+    def commit(self, record: dict[str, Any], *, fsync: bool) -> None:
+        """Make ``record`` (with its ``steps_done``) the store's commit record: the commit point."""
+        atomic_write_json(self.path / COMMIT_FILE, record, fsync=fsync)
+        self._commit = json.loads(json.dumps(record))
+
+    def update_attrs(self, **changes: Any) -> None:
+        """Change chainyard attributes (used only when a run is extended)."""
+        self._attrs.update(changes)
+        self._group.attrs.update({ATTRS_KEY: self._attrs})
