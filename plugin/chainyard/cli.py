@@ -52,8 +52,10 @@ def _cmd_check(args: argparse.Namespace) -> int:
 
     config = load_config(args.config)
     load_model(config)
-    print(f"{args.config}: valid ({len(config.parameters)} parameters, "
-          f"{config.sampler.walkers} walkers, {config.sampler.steps:,} steps)")
+    print(
+        f"{args.config}: valid ({len(config.parameters)} parameters, "
+        f"{config.sampler.walkers} walkers, {config.sampler.steps:,} steps)"
+    )
     return 0
 
 
@@ -71,14 +73,28 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("config", help="run configuration (YAML)")
     p.add_argument("--out", required=True, help="store directory to create or continue")
     p.add_argument("--replica", type=int, default=0, help="replica index (default 0)")
-    p.add_argument("--steps", type=int, default=None,
-                   help="override sampler.steps (e.g. to extend a finished run)")
-    p.add_argument("--restart", action="store_true",
-                   help="discard an existing store at --out and start over")
-    p.add_argument("--progress", choices=["auto", "bar", "log", "off"], default="auto",
-                   help="progress display (auto: bar on a terminal, log lines otherwise)")
-    p.add_argument("--progress-interval", type=float, default=10.0, metavar="SECONDS",
-                   help="seconds between progress log lines (default 10)")
+    p.add_argument(
+        "--steps",
+        type=int,
+        default=None,
+        help="override sampler.steps (e.g. to extend a finished run)",
+    )
+    p.add_argument(
+        "--restart", action="store_true", help="discard an existing store at --out and start over"
+    )
+    p.add_argument(
+        "--progress",
+        choices=["auto", "bar", "log", "off"],
+        default="auto",
+        help="progress display (auto: bar on a terminal, log lines otherwise)",
+    )
+    p.add_argument(
+        "--progress-interval",
+        type=float,
+        default=10.0,
+        metavar="SECONDS",
+        help="seconds between progress log lines (default 10)",
+    )
     p.set_defaults(func=_cmd_sample)
 
     p = sub.add_parser("check", help="validate a run configuration and load its model")

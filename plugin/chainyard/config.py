@@ -180,13 +180,16 @@ class Parameter(_Strict):
     unit: str | None = Field(default=None, description="Unit for labels in plots and tables.")
     label: str | None = Field(default=None, description="Longer human label for plots.")
 
-    @model_validator(mode="after")
-    def _bounds_ordered(self) -> Parameter:
-        if self.bounds is not None:
-            low, high = self.bounds
+    @field_validator("bounds")
+    @classmethod
+    def _bounds_ordered(
+        cls, value: tuple[float | None, float | None] | None
+    ) -> tuple[float | None, float | None] | None:
+        if value is not None:
+            low, high = value
             if low is not None and high is not None and not high > low:
-                raise ValueError(f"bounds: high ({high}) must be greater than low ({low})")
-        return self
+                raise ValueError(f"high ({high}) must be greater than low ({low})")
+        return value
 
 
 # --------------------------------------------------------------------------- sampler

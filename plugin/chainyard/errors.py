@@ -44,6 +44,12 @@ class ConfigError(ChainyardError):
         self.problems = [problems] if isinstance(problems, str) else list(problems)
         super().__init__("\n".join(self.problems))
 
+    def located(self, source: str) -> ConfigError:
+        """The same problems, each prefixed by ``source`` (the config file) if not already."""
+        return ConfigError(
+            [p if p.startswith(f"{source}: ") else f"{source}: {p}" for p in self.problems]
+        )
+
 
 class ModelError(ChainyardError):
     """The user's log-probability function misbehaved (raised, returned NaN or a bad shape)."""

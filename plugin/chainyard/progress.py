@@ -94,9 +94,7 @@ class Progress:
         self.stream.flush()
 
     def message(self, text: str) -> None:
-        """Write a line of text without disturbing the bar."""
-        if self.mode == "off":
-            return
+        """Write a status line (shown in every mode, without disturbing the bar)."""
         if self._bar is not None:
             self._bar.write(f"{self.label}: {text}", file=self.stream)
         else:

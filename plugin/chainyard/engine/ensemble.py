@@ -25,7 +25,7 @@ from chainyard.config import (
     WalkMove,
 )
 from chainyard.engine.protocol import StepRows
-from chainyard.errors import ConfigError
+from chainyard.errors import ConfigError, ModelError
 from chainyard.model import LoadedModel
 from chainyard.streams import random_state_from_json, random_state_to_json, states_equal
 
@@ -52,6 +52,30 @@ def build_moves(moves: tuple[MoveSpec, ...], n_params: int) -> list[tuple[Any, f
             raise TypeError(f"unknown move {m!r}")
         out.append((move, float(m.weight)))
     return out
+
+
+class _DeferErrors:
+    """Hands emcee -inf instead of raising, and keeps the error for the run loop.
+
+    emcee prints a traceback for any exception raised by the log-probability function; a
+    user's model error must reach the user as one line, so it is raised after the step.
+    """
+
+    def __init__(self, model: LoadedModel) -> None:
+        self.model = model
+        self.error: ModelError | None = None
+
+    def __call__(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
+        try:
+            return self.model(thetas)
+        except ModelError as exc:
+            self.error = self.error or exc
+            n = thetas.shape[0]
+            if self.model.n_blobs:
+                out = np.full((n, 1 + self.model.n_blobs), np.nan)
+                out[:, 0] = -np.inf
+                return out
+            return np.full(n, -np.inf)
 
 
 class _StepRecorder(emcee.backends.Backend):  # type: ignore[misc]
@@ -101,10 +125,11 @@ class EnsembleDriver:
         walkers, n_params = position.shape
         self._n_blobs = model.n_blobs
         self._recorder = _StepRecorder()
+        self._model = _DeferErrors(model)
         self._sampler = emcee.EnsembleSampler(
             walkers,
             n_params,
-            model,
+            self._model,
             moves=build_moves(moves, n_params),
             vectorize=True,
             backend=self._recorder,
@@ -145,6 +170,8 @@ class EnsembleDriver:
             )
             first = True
             for state in gen:
+                if self._model.error is not None:
+                    raise self._model.error
                 if first:
                     first = False
                     self._check_start = False

@@ -25,7 +25,7 @@ from chainyard.config import RunConfig, config_hash
 from chainyard.engine.ensemble import EnsembleDriver
 from chainyard.engine.identity import describe_differences, run_identity
 from chainyard.engine.initial import initial_state
-from chainyard.errors import StoreConflictError, StoreError
+from chainyard.errors import ChainyardError, ConfigError, StoreConflictError, StoreError
 from chainyard.model import LoadedModel, load_model
 from chainyard.progress import Progress
 from chainyard.provenance import git_state, host_record, software_versions, utc_now
@@ -39,26 +39,43 @@ __all__ = ["Interrupted", "sample"]
 MAX_PENDING_BYTES = 128 * 2**20
 
 
-class Interrupted(Exception):
-    """Raised inside the run loop by SIGTERM/SIGINT; the loop commits, then re-raises."""
+class Interrupted(BaseException):
+    """The run stopped on SIGTERM/SIGINT after committing its finished steps.
+
+    A BaseException (like KeyboardInterrupt) so that a model's ``except Exception`` cannot
+    swallow it.
+    """
 
     def __init__(self, signum: int) -> None:
         super().__init__(signal.Signals(signum).name)
         self.signum = signum
 
 
-@contextmanager
-def _signals_commit() -> Iterator[None]:
-    def handler(signum: int, frame: Any) -> None:
-        raise Interrupted(signum)
+class _StopFlag:
+    """Set by SIGTERM/SIGINT; the loop stops at the next step boundary and commits.
 
+    A second signal while the flag is set stops at once (without a commit).
+    """
+
+    def __init__(self) -> None:
+        self.signum: int | None = None
+
+    def handler(self, signum: int, frame: Any) -> None:
+        if self.signum is not None:
+            raise Interrupted(signum)
+        self.signum = signum
+
+
+@contextmanager
+def _stop_on_signals() -> Iterator[_StopFlag]:
+    flag = _StopFlag()
     try:
-        old = {s: signal.signal(s, handler) for s in (signal.SIGTERM, signal.SIGINT)}
+        old = {s: signal.signal(s, flag.handler) for s in (signal.SIGTERM, signal.SIGINT)}
     except ValueError:  # not the main thread: leave signals alone
-        yield
+        yield flag
         return
     try:
-        yield
+        yield flag
     finally:
         for s, h in old.items():
             signal.signal(s, h)
@@ -218,7 +235,10 @@ def sample(
         On bad input; an existing store is never altered in that case.
     """
     path = Path(store_path)
-    model = load_model(config)
+    try:
+        model = load_model(config)
+    except ConfigError as exc:
+        raise exc.located(config.source) from None
     identity = run_identity(config, replica, EnsembleDriver.kind)
     label = f"{path.name}"
     with writer_lock(path):
@@ -249,10 +269,20 @@ def sample(
         else:
             if path.is_file():
                 raise StoreError(f"{path}: exists and is a file, not a store directory")
-            store = _create(config, model, replica, identity, path)
+            try:
+                store = _create(config, model, replica, identity, path)
+            except ConfigError as exc:
+                raise exc.located(config.source) from None
             kind = "start"
-        with _signals_commit():
-            _advance(store, config, model, kind, progress, progress_interval, stream, label)
+        with _stop_on_signals() as stop:
+            try:
+                _advance(
+                    store, config, model, kind, stop, progress, progress_interval, stream, label
+                )
+            except ChainyardError:
+                if kind == "start" and Store.open(path).steps_done == 0:
+                    shutil.rmtree(path)  # nothing of value was made by this failed start
+                raise
     return Store.open(path)
 
 
@@ -315,6 +345,7 @@ def _advance(
     config: RunConfig,
     model: LoadedModel,
     kind: str,
+    stop: _StopFlag,
     progress: str,
     progress_interval: float,
     stream: TextIO | None,
@@ -410,11 +441,15 @@ def _advance(
             if now - last_report >= 0.2:
                 last_report = now
                 reporter.update(step, accepted_sum / (steps_here * walkers))
+            if stop.signum is not None:
+                # at a step boundary: the RNG state matches the last buffered step
+                commit(step)
+                name = signal.Signals(stop.signum).name
+                reporter.message(
+                    f"stopped by {name} at step {committed:,} of {target:,}; rerun to continue"
+                )
+                raise Interrupted(stop.signum)
         commit(step)
-    except Interrupted as exc:
-        commit(step)
-        reporter.message(f"stopped by {exc} at step {committed:,} of {target:,}; rerun to continue")
-        raise
     finally:
         acc = accepted_sum / (steps_here * walkers) if steps_here else float("nan")
         reporter.update(step, acc)

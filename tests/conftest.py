@@ -1,0 +1,119 @@
+"""Shared helpers: write run folders (config + model + data) and run the real command line."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+import yaml
+
+import chainyard
+
+GAUSS_MODEL = """
+import numpy as np
+
+def log_prob(theta, data):
+    return -0.5 * float(np.dot(theta, theta))
+"""
+
+#: the minimal config from the core-engine issue, verbatim
+MINIMAL_CONFIG = """\
+model:
+  log_prob: model.py:log_prob
+parameters:
+  - name: x
+    init: {normal: {loc: 0.0, scale: 1.0}}
+  - name: y
+    init: {uniform: {low: -1.0, high: 1.0}}
+sampler:
+  walkers: 16
+  steps: 2000
+seed: 7
+"""
+
+
+def write_run(
+    folder: Path,
+    config: dict[str, Any] | str = MINIMAL_CONFIG,
+    model: str = GAUSS_MODEL,
+    files: dict[str, str] | None = None,
+    name: str = "run.yaml",
+) -> Path:
+    """Write a config, its model file and extra files into ``folder``; return the config path."""
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "model.py").write_text(textwrap.dedent(model))
+    for fname, text in (files or {}).items():
+        (folder / fname).write_text(text)
+    text = config if isinstance(config, str) else yaml.safe_dump(config, sort_keys=False)
+    path = folder / name
+    path.write_text(text)
+    return path
+
+
+def base_config(**changes: Any) -> dict[str, Any]:
+    """The minimal config as a dict, with top-level sections updated by ``changes``."""
+    cfg = yaml.safe_load(MINIMAL_CONFIG)
+    for key, value in changes.items():
+        if isinstance(value, dict) and isinstance(cfg.get(key), dict):
+            cfg[key] = {**cfg[key], **value}
+        else:
+            cfg[key] = value
+    return cfg
+
+
+def cli(
+    *args: str, cwd: Path | None = None, timeout: float = 300, env: dict[str, str] | None = None
+) -> subprocess.CompletedProcess[str]:
+    """Run ``chainyard ARGS`` in a fresh Python process."""
+    return subprocess.run(
+        [sys.executable, "-m", "chainyard.cli", *args],
+        cwd=cwd,
+        capture_output=True,
+        text=True,
+        timeout=timeout,
+        env={**os.environ, **(env or {})},
+    )
+
+
+def popen_cli(*args: str, cwd: Path | None = None) -> subprocess.Popen[str]:
+    """Start ``chainyard ARGS`` in the background (stdout/stderr captured)."""
+    return subprocess.Popen(
+        [sys.executable, "-m", "chainyard.cli", *args],
+        cwd=cwd,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+
+
+def assert_same_store(a: Path, b: Path) -> None:
+    """Draws, log-prob, acceptance and blobs of two stores are bitwise identical."""
+    sa, sb = chainyard.open_store(a), chainyard.open_store(b)
+    assert sa.steps_done == sb.steps_done
+    assert np.array_equal(sa.draws(), sb.draws())
+    assert np.array_equal(sa.log_prob(), sb.log_prob())
+    assert np.array_equal(sa.accepted(), sb.accepted())
+    for name in sa.blob_names:
+        assert np.array_equal(sa.blob(name), sb.blob(name), equal_nan=True)
+    assert sa.commit_record["random_state"] == sb.commit_record["random_state"]
+    assert sa.commit_record["checksums"] == sb.commit_record["checksums"]
+
+
+def tree_snapshot(path: Path) -> dict[str, bytes]:
+    """Every file under ``path`` with its bytes (to prove a store was left untouched)."""
+    return {
+        str(p.relative_to(path)): p.read_bytes() for p in sorted(path.rglob("*")) if p.is_file()
+    }
+
+
+@pytest.fixture
+def run_dir(tmp_path: Path) -> Path:
+    """A folder holding the minimal config and a standard-normal model."""
+    write_run(tmp_path)
+    return tmp_path
