@@ -11,6 +11,7 @@ import json
 import sys
 from collections.abc import Sequence
 from pathlib import Path
+from typing import Any
 
 from chainyard.errors import ChainyardError
 
@@ -59,6 +60,68 @@ def _cmd_check(args: argparse.Namespace) -> int:
     return 0
 
 
+def _run_config(args: argparse.Namespace, first_store: str) -> Any:
+    """The run config from --config, else the one stored with the first store."""
+    from chainyard.config import load_config
+    from chainyard.store import Store
+
+    if args.config:
+        return load_config(args.config)
+    return Store.open(first_store).config
+
+
+def _cmd_decide(args: argparse.Namespace) -> int:
+    from chainyard.analysis import decide_burn_in, decide_thinning, write_record
+    from chainyard.analysis.replicas import open_replicas
+
+    stores = open_replicas(args.stores)
+    config = _run_config(args, args.stores[0])
+    if args.what == "burn-in":
+        decision = decide_burn_in(stores, config.burn_in)
+        kind = "chainyard.burn_in_decision"
+    else:
+        decision = decide_thinning(stores, config.thinning)
+        kind = "chainyard.thinning_decision"
+    write_record(args.out, kind, {"decision": decision.to_dict()}, stores)
+    print(decision.reason)
+    return 0
+
+
+def _cmd_derive(args: argparse.Namespace) -> int:
+    from chainyard.analysis import derive_store, read_record
+    from chainyard.store import Store
+
+    discard, factor, records = 0, 1, []
+    if args.burn_in_record:
+        rec = read_record(args.burn_in_record, "chainyard.burn_in_decision")
+        discard = int(rec["decision"]["steps_discarded"])
+        records.append(Path(args.burn_in_record))
+    if args.thinning_record:
+        rec = read_record(args.thinning_record, "chainyard.thinning_decision")
+        factor = int(rec["decision"]["factor"])
+        records.append(Path(args.thinning_record))
+    store = derive_store(
+        Store.open(args.source), args.out, discard=discard, factor=factor, records=records
+    )
+    print(f"{args.out}: {store.steps_done:,} steps (discarded {discard:,}, kept every {factor})")
+    return 0
+
+
+def _cmd_diagnose(args: argparse.Namespace) -> int:
+    from chainyard.analysis import diagnose, format_table, write_record
+    from chainyard.analysis.replicas import open_replicas
+
+    stores = open_replicas(args.stores)
+    config = _run_config(args, args.stores[0])
+    result = diagnose(stores, config.targets)
+    if args.json:
+        write_record(args.json, "chainyard.diagnostics", result, stores)
+    print(format_table(result, title=args.title or ""))
+    if args.strict and not result["verdict"]["ok"]:
+        return 1
+    return 0
+
+
 def _parser() -> argparse.ArgumentParser:
     from chainyard import __version__
 
@@ -96,6 +159,34 @@ def _parser() -> argparse.ArgumentParser:
         help="seconds between progress log lines (default 10)",
     )
     p.set_defaults(func=_cmd_sample)
+
+    p = sub.add_parser("decide", help="record a burn-in or thinning decision for a run")
+    p.add_argument("what", choices=["burn-in", "thinning"])
+    p.add_argument("stores", nargs="+", help="the run's replica stores")
+    p.add_argument("--out", required=True, help="decision record (JSON) to write")
+    p.add_argument(
+        "--config", default=None, help="run config with the policy (default: the one stored)"
+    )
+    p.set_defaults(func=_cmd_decide)
+
+    p = sub.add_parser("derive", help="write a store with burn-in discarded and/or thinned")
+    p.add_argument("source", help="store to derive from")
+    p.add_argument("--out", required=True, help="derived store to write (replaced)")
+    p.add_argument("--burn-in-record", default=None, help="burn-in decision record")
+    p.add_argument("--thinning-record", default=None, help="thinning decision record")
+    p.set_defaults(func=_cmd_derive)
+
+    p = sub.add_parser("diagnose", help="convergence diagnostics and verdict for a run")
+    p.add_argument("stores", nargs="+", help="the run's replica stores (after burn-in)")
+    p.add_argument(
+        "--config", default=None, help="run config with the targets (default: the one stored)"
+    )
+    p.add_argument("--json", default=None, help="also write the diagnostics record here")
+    p.add_argument("--title", default=None, help="heading for the table")
+    p.add_argument(
+        "--strict", action="store_true", help="exit with status 1 when the targets are not met"
+    )
+    p.set_defaults(func=_cmd_diagnose)
 
     p = sub.add_parser("check", help="validate a run configuration and load its model")
     p.add_argument("config")

@@ -333,6 +333,112 @@ class TargetsSpec(_Strict):
     )
 
 
+# --------------------------------------------------------------------------- decisions
+
+
+class DefaultBurnIn(_Strict):
+    """Larger of the MSER-5 cut on the log-prob trace and ``multiple`` x max tau (capped)."""
+
+    policy: Literal["default"]
+    multiple: float = Field(default=2.0, gt=0, description="Multiple of the largest tau.")
+    max_fraction: float = Field(
+        default=0.5, gt=0, lt=1, description="Largest fraction of the run to discard."
+    )
+
+
+class FixedBurnIn(_Strict):
+    """Discard a fixed number of steps."""
+
+    policy: Literal["fixed"]
+    steps: int = Field(ge=0, description="Steps to discard.")
+
+
+class FractionBurnIn(_Strict):
+    """Discard a fraction of the run."""
+
+    policy: Literal["fraction"]
+    fraction: float = Field(ge=0, lt=1, description="Fraction of the steps to discard.")
+
+
+class TauBurnIn(_Strict):
+    """Discard a multiple of the largest autocorrelation time."""
+
+    policy: Literal["tau_multiple"]
+    multiple: float = Field(default=5.0, gt=0, description="Multiple of the largest tau.")
+
+
+class MserBurnIn(_Strict):
+    """MSER truncation (White 1997) on the walker-mean log-prob trace."""
+
+    policy: Literal["mser"]
+    batch_size: int = Field(default=5, ge=1, description="MSER batch length (5: MSER-5).")
+    max_fraction: float = Field(default=0.5, gt=0, lt=1, description="Largest cut fraction.")
+
+
+class GewekeBurnIn(_Strict):
+    """First candidate cut whose Geweke (1992) z-score is within ``z_crit``."""
+
+    policy: Literal["geweke"]
+    z_crit: float = Field(default=1.96, gt=0, description="Critical |z|.")
+    max_fraction: float = Field(default=0.5, gt=0, lt=1, description="Largest cut fraction.")
+
+
+BurnInSpec = Annotated[
+    DefaultBurnIn | FixedBurnIn | FractionBurnIn | TauBurnIn | MserBurnIn | GewekeBurnIn,
+    Field(discriminator="policy"),
+]
+
+
+class NoThinning(_Strict):
+    """Keep every step (default; Link and Eaton 2012)."""
+
+    policy: Literal["none"]
+
+
+class FixedThinning(_Strict):
+    """Keep every ``factor``-th step."""
+
+    policy: Literal["fixed"]
+    factor: int = Field(ge=1, description="Keep every factor-th step.")
+
+
+class TauThinning(_Strict):
+    """Keep about every ``fraction`` x tau-th step."""
+
+    policy: Literal["tau"]
+    fraction: float = Field(default=0.5, gt=0, description="Factor = fraction x max tau.")
+
+
+class TargetThinning(_Strict):
+    """Thin to about ``draws`` stored draws per replica."""
+
+    policy: Literal["target_draws"]
+    draws: int = Field(ge=1, description="Draws (steps x walkers) to keep per replica.")
+
+
+class CostAwareThinning(_Strict):
+    """Owen (2017): the factor maximising efficiency when using a draw costs ``cost_ratio``."""
+
+    policy: Literal["cost_aware"]
+    cost_ratio: float = Field(gt=0, description="Cost of using a draw / cost of making one.")
+
+
+ThinningSpec = Annotated[
+    NoThinning | FixedThinning | TauThinning | TargetThinning | CostAwareThinning,
+    Field(discriminator="policy"),
+]
+
+
+class ExtendSpec(_Strict):
+    """Run until targets: extend chunk by chunk until the per-replica targets hold."""
+
+    check_every: int = Field(default=2000, ge=1, description="Steps between checks.")
+    max_steps: int = Field(ge=1, description="Never run past this many steps.")
+    max_seconds: float | None = Field(
+        default=None, gt=0, description="Stop extending after this much wall time."
+    )
+
+
 # --------------------------------------------------------------------------- run
 
 
@@ -346,6 +452,21 @@ class RunConfig(_Strict):
     seed: int = Field(ge=0, description="Root seed; replicas get independent spawned streams.")
     replicas: int = Field(default=1, ge=1, description="Independent replicas (for workflows).")
     targets: TargetsSpec = Field(default_factory=TargetsSpec)
+    burn_in: BurnInSpec = Field(
+        default_factory=lambda: DefaultBurnIn(policy="default"),
+        description="How many initial steps to discard (default: MSER-5 and 2 x tau).",
+    )
+    thinning: ThinningSpec = Field(
+        default_factory=lambda: NoThinning(policy="none"),
+        description="Whether to keep only every k-th step (default: keep all).",
+    )
+    extend_until_targets: ExtendSpec | None = Field(
+        default=None,
+        description=(
+            "If set, `sample --until-targets` extends the run until the per-replica targets "
+            "(ESS, steps per tau) hold or the budget is spent."
+        ),
+    )
     description: str | None = Field(default=None, description="Free text for reports.")
 
     _base_dir: Path = PrivateAttr(default_factory=Path.cwd)
@@ -410,6 +531,17 @@ class RunConfig(_Strict):
     def normalised(self) -> dict[str, Any]:
         """All settings with defaults filled in, as plain JSON-compatible values."""
         return json.loads(json.dumps(self.model_dump(mode="json"), sort_keys=True))
+
+    def sampling_settings(self) -> dict[str, Any]:
+        """The normalised settings the draws depend on (for workflow rerun triggers).
+
+        Everything except decisions, targets and free text: changing burn-in or thinning must
+        not resample.
+        """
+        norm = self.normalised()
+        for key in ("burn_in", "thinning", "targets", "description", "extend_until_targets"):
+            norm.pop(key, None)
+        return norm
 
     def with_steps(self, steps: int) -> RunConfig:
         """A copy with a different total step count (same base directory)."""

@@ -250,6 +250,11 @@ def sample(
             shutil.rmtree(path)
         if path.exists():
             store = Store.open(path, writable=True)
+            if store.attrs.get("derived") is not None:
+                raise StoreError(
+                    f"{path}: is a derived (trimmed or thinned) store and cannot be sampled "
+                    "into; give the original store or a new path"
+                )
             _check_identity(store, identity, path)
             if store.steps_done >= config.sampler.steps:
                 reporter = Progress(

@@ -304,9 +304,9 @@ class Store:
         """Names (under ``draws/``) of every per-step array."""
         return (POSITION, LOG_PROB, ACCEPTED, *(f"{BLOB}/{b}" for b in self.blob_names))
 
-    def read_rows(self, name: str, start: int, stop: int) -> NDArray[Any]:
-        """Rows of any per-step array, committed or not (for checksums and verification)."""
-        return np.asarray(self._array(name)[start:stop])
+    def read_rows(self, name: str, start: int, stop: int, step: int = 1) -> NDArray[Any]:
+        """Rows ``start:stop:step`` of any per-step array, committed or not."""
+        return np.asarray(self._array(name)[start:stop:step])
 
     # ------------------------------------------------------------------ writing
     def ensure_capacity(self, steps: int) -> None:

@@ -1,0 +1,26 @@
+"""Store-level steps: decide burn-in and thinning, derive stores, diagnose, summarise.
+
+These functions read stores one parameter column at a time (bounded memory), call the pure
+functions of :mod:`chainyard.diagnostics` and :mod:`chainyard.decisions`, and write
+JSON records that carry a provenance stamp. The workflow rules and the command line are thin
+wrappers over them.
+"""
+
+from chainyard.analysis.decide import decide_burn_in, decide_thinning
+from chainyard.analysis.derive import derive_store
+from chainyard.analysis.diagnose import diagnose, format_table
+from chainyard.analysis.records import read_record, store_digest, write_record
+from chainyard.analysis.summary import summarise, write_summary_csv
+
+__all__ = [
+    "decide_burn_in",
+    "decide_thinning",
+    "derive_store",
+    "diagnose",
+    "format_table",
+    "read_record",
+    "store_digest",
+    "summarise",
+    "write_record",
+    "write_summary_csv",
+]

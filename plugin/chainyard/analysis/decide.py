@@ -1,0 +1,137 @@
+"""Burn-in and thinning decisions for a run's replicas, from the run config's policy."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+from numpy.typing import NDArray
+
+from chainyard.config import (
+    BurnInSpec,
+    CostAwareThinning,
+    DefaultBurnIn,
+    FixedBurnIn,
+    FixedThinning,
+    FractionBurnIn,
+    GewekeBurnIn,
+    MserBurnIn,
+    NoThinning,
+    TargetThinning,
+    TauBurnIn,
+    TauThinning,
+    ThinningSpec,
+)
+from chainyard.decisions import (
+    BurnInDecision,
+    ThinningDecision,
+    burn_in_fixed,
+    burn_in_fraction,
+    burn_in_from_tau,
+    burn_in_geweke,
+    burn_in_mser,
+    default_burn_in,
+    thin_cost_aware,
+    thin_fixed,
+    thin_from_tau,
+    thin_none,
+    thin_to_target,
+)
+from chainyard.diagnostics import autocorrelation, integrated_time
+from chainyard.store import Store
+
+__all__ = ["decide_burn_in", "decide_thinning", "tau_per_param"]
+
+
+def tau_per_param(stores: Sequence[Store], steps: int) -> dict[str, float]:
+    """Largest integrated autocorrelation time over replicas, per parameter (in steps).
+
+    One parameter column is read at a time; walkers are averaged as in Foreman-Mackey et al.
+    (2013) (see :func:`chainyard.diagnostics.integrated_time`).
+    """
+    out: dict[str, float] = {}
+    for j, name in enumerate(stores[0].param_names):
+        out[name] = max(float(integrated_time(s.column(j, 0, steps).T)) for s in stores)
+    return out
+
+
+def _walker_mean_log_prob(store: Store, steps: int) -> NDArray[np.float64]:
+    return np.asarray(store.log_prob(0, steps).mean(axis=1))
+
+
+def _combine(decisions: list[BurnInDecision], steps: int) -> BurnInDecision:
+    """The largest cut over replicas, keeping the deciding replica's reason."""
+    if len(decisions) == 1:
+        return decisions[0]
+    worst = max(range(len(decisions)), key=lambda i: decisions[i].steps_discarded)
+    d = decisions[worst]
+    reason = d.reason.rstrip(".") + f" (largest cut of {len(decisions)} replicas: replica "
+    reason += f"{worst})."
+    return BurnInDecision(
+        d.policy,
+        {
+            "per_replica": [x.to_dict() for x in decisions],
+            "deciding_replica": worst,
+            "steps": steps,
+        },
+        d.steps_discarded,
+        reason,
+    )
+
+
+def decide_burn_in(stores: Sequence[Store], spec: BurnInSpec) -> BurnInDecision:
+    """The burn-in cut (steps to discard from every replica) under ``spec``.
+
+    Data-driven policies are applied to each replica's walker-mean log-prob trace; the largest
+    cut over replicas is taken so that every replica keeps the same steps.
+    """
+    steps = min(s.steps_done for s in stores)
+    if isinstance(spec, FixedBurnIn):
+        return burn_in_fixed(spec.steps, steps)
+    if isinstance(spec, FractionBurnIn):
+        return burn_in_fraction(spec.fraction, steps)
+    if isinstance(spec, TauBurnIn):
+        return burn_in_from_tau(tau_per_param(stores, steps), spec.multiple, steps)
+    traces = [_walker_mean_log_prob(s, steps) for s in stores]
+    if isinstance(spec, DefaultBurnIn):
+        taus = tau_per_param(stores, steps)
+        parts = [
+            default_burn_in(t, taus, multiple=spec.multiple, max_fraction=spec.max_fraction)
+            for t in traces
+        ]
+    elif isinstance(spec, MserBurnIn):
+        parts = [
+            burn_in_mser(t, batch_size=spec.batch_size, max_fraction=spec.max_fraction)
+            for t in traces
+        ]
+    elif isinstance(spec, GewekeBurnIn):
+        parts = [
+            burn_in_geweke(t, z_crit=spec.z_crit, max_fraction=spec.max_fraction) for t in traces
+        ]
+    else:  # pragma: no cover - the config union is closed
+        raise TypeError(f"unknown burn-in policy {spec!r}")
+    return _combine(parts, steps)
+
+
+def decide_thinning(stores: Sequence[Store], spec: ThinningSpec) -> ThinningDecision:
+    """The thinning factor under ``spec`` for (already trimmed) replica stores."""
+    steps = min(s.steps_done for s in stores)
+    if isinstance(spec, NoThinning):
+        return thin_none()
+    if isinstance(spec, FixedThinning):
+        return thin_fixed(spec.factor)
+    if isinstance(spec, TargetThinning):
+        return thin_to_target(steps, stores[0].walkers, spec.draws)
+    taus = tau_per_param(stores, steps)
+    if isinstance(spec, TauThinning):
+        return thin_from_tau(taus, spec.fraction)
+    if isinstance(spec, CostAwareThinning):
+        slowest = max(taus, key=lambda k: taus[k])
+        j = stores[0].param_names.index(slowest)
+        acf = np.mean(
+            [np.nanmean(autocorrelation(s.column(j, 0, steps).T), axis=0) for s in stores],
+            axis=0,
+        )
+        lags = min(acf.size, max(2, int(20 * taus[slowest])))
+        return thin_cost_aware(acf[:lags], spec.cost_ratio)
+    raise TypeError(f"unknown thinning policy {spec!r}")  # pragma: no cover

@@ -1,0 +1,112 @@
+"""Derived stores: a source store with burn-in discarded and/or thinned, never resumable."""
+
+from __future__ import annotations
+
+import shutil
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from chainyard.analysis.records import input_identity
+from chainyard.errors import StoreError
+from chainyard.provenance import utc_now
+from chainyard.store import Store, chunk_checksum
+
+__all__ = ["derive_store"]
+
+
+def derive_store(
+    source: Store,
+    out: str | Path,
+    *,
+    discard: int = 0,
+    factor: int = 1,
+    records: Sequence[Path] = (),
+) -> Store:
+    """Write ``source`` steps ``discard, discard + factor, ...`` to a new store at ``out``.
+
+    Parameters
+    ----------
+    source : Store
+        The store to derive from (read one chunk at a time).
+    out : str or Path
+        The new store's directory; an existing one there is replaced.
+    discard : int
+        Burn-in steps dropped from the start.
+    factor : int
+        Thinning factor (1 keeps every step).
+    records : sequence of Path
+        Decision records that justified ``discard`` and ``factor`` (identified by content
+        hash in the derived store's attributes).
+
+    Returns
+    -------
+    Store
+        The derived store; its ``attrs["derived"]`` names the source (path and digest), the
+        step mapping and the records.
+    """
+    if not 0 <= discard < source.steps_done:
+        raise StoreError(
+            f"{source.path}: cannot discard {discard} of {source.steps_done} committed steps"
+        )
+    if factor < 1:
+        raise StoreError(f"thinning factor must be >= 1, got {factor}")
+    out = Path(out)
+    if out.exists():
+        shutil.rmtree(out)
+    kept = np.arange(discard, source.steps_done, factor)
+    n = int(kept.size)
+    attrs = source.attrs
+    attrs.pop("format", None)
+    attrs.pop("format_version", None)
+    parent = attrs.get("derived")
+    attrs["derived"] = {
+        "source": input_identity(source),
+        "discard": int(discard),
+        "factor": int(factor),
+        "source_steps": [int(discard), int(source.steps_done), int(factor)],
+        "records": [input_identity(Path(r)) for r in records],
+        "parent": parent,
+        "created_utc": utc_now(),
+    }
+    storage = attrs["config"]["storage"]
+    chunk = int(storage["chunk_steps"])
+    start = source.start_state()
+    commit: dict[str, Any] = {
+        "format_version": 1,
+        "steps_done": 0,
+        "random_state": None,
+        "checksums": {},
+        "segments": [],
+        "updated_utc": utc_now(),
+    }
+    derived = Store.create(
+        out,
+        attrs=attrs,
+        walkers=source.walkers,
+        n_params=len(source.param_names),
+        blob_names=source.blob_names,
+        capacity=max(n, 1),
+        chunk_steps=chunk,
+        codec=storage["codec"],
+        level=storage["level"],
+        start=start,
+        commit=commit,
+        fsync=False,
+    )
+    checksums: dict[str, list[str]] = {}
+    for a in range(0, n, chunk):
+        b = min(n, a + chunk)
+        lo, hi = int(kept[a]), int(kept[b - 1]) + 1
+        rows: dict[str, NDArray[Any]] = {}
+        for name in source.array_names():
+            block = source.read_rows(name, lo, hi, factor)
+            rows[name] = block
+            checksums.setdefault(name, []).append(chunk_checksum(block))
+        derived.write_rows(a, rows, fsync=False)
+    commit.update(steps_done=n, checksums=checksums, updated_utc=utc_now())
+    derived.commit(commit, fsync=True)
+    return Store.open(out)
