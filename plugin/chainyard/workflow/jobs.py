@@ -1,0 +1,62 @@
+"""Runs one Snakemake job of the rule library: log redirection, dispatch, clean errors."""
+
+from __future__ import annotations
+
+import contextlib
+import sys
+from typing import Any
+
+from chainyard.engine import Interrupted
+from chainyard.errors import ChainyardError
+from chainyard.workflow import steps
+
+__all__ = ["run_job"]
+
+
+def _dispatch(sm: Any) -> None:
+    p = sm.params
+    step = p.step
+    if step == "sample":
+        steps.sample_step(p.settings, p.base_dir, int(p.replica), p.resumable, sm.output[0])
+    elif step == "decide":
+        steps.decide_step(p.what, p.policy, list(sm.input), sm.output[0])
+    elif step == "derive":
+        steps.derive_step(sm.input.store, sm.input.record, p.what, sm.output[0])
+    elif step == "diagnose":
+        steps.diagnose_step(list(sm.input), p.targets, p.run, sm.output.record, sm.output.table)
+    elif step == "summary":
+        steps.summary_step(list(sm.input.stores), sm.input.diagnostics, sm.output[0])
+    elif step == "plot":
+        steps.plot_step(list(sm.input.raw), list(sm.input.final), sm.input.burn_in,
+                        sm.input.diagnostics, dict(sm.output.items()))
+    else:  # pragma: no cover - the shipped rules set known steps
+        raise ValueError(f"unknown chainyard step {step!r}")
+
+
+def run_job(sm: Any) -> None:
+    """Run the job described by Snakemake's ``snakemake`` object.
+
+    Output and errors go to the job's log file (Snakemake does not redirect scripts).
+    A user mistake ends the job with its one-line message and exit status, no traceback.
+    """
+    log = sm.log[0] if len(sm.log) else None
+    with contextlib.ExitStack() as stack:
+        if log:
+            f = stack.enter_context(open(log, "w", buffering=1))
+            stack.enter_context(contextlib.redirect_stdout(f))
+            stack.enter_context(contextlib.redirect_stderr(f))
+        try:
+            _dispatch(sm)
+        except Interrupted as exc:
+            code = 128 + exc.signum
+        except ChainyardError as exc:
+            for line in str(exc).splitlines():
+                print(f"chainyard: error: {line}", file=sys.stderr)
+            sys.stderr.flush()
+            code = exc.exit_code
+        else:
+            code = 0
+    if code:
+        if log:
+            print(f"chainyard: job failed; see {log}", file=sys.__stderr__)
+        sys.exit(code)

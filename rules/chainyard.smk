@@ -1,0 +1,21 @@
+# chainyard rule library: sampling, burn-in, thinning, diagnostics, plots and report items
+# for every run in config["chainyard"]["runs"]. Use it as a module:
+#
+#   import chainyard.workflow
+#   module chainyard_rules:
+#       snakefile: chainyard.workflow.rules_path()
+#       config: config
+#   use rule * from chainyard_rules as chainyard_*
+
+
+include: "common.smk"
+include: "sample.smk"
+include: "decide.smk"
+include: "diagnose.smk"
+include: "plot.smk"
+
+
+rule all:
+    default_target: True
+    input:
+        all_outputs(),

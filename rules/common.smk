@@ -1,0 +1,104 @@
+# Helpers and config validation shared by the chainyard rules.
+import json
+
+import chainyard
+import chainyard.workflow as cy_workflow
+from chainyard.errors import ConfigError
+from snakemake.exceptions import WorkflowError
+from snakemake.utils import validate
+
+
+# 1. JSON Schema (generated from the pydantic models) through snakemake's validator,
+# 2. pydantic itself for precise one-line messages and the checks a schema cannot express.
+validate(config, cy_workflow.schema_path(), set_default=False)
+try:
+    CY_RUNS = cy_workflow.load_workflow_config(config, source="config")
+except ConfigError as exc:
+    raise WorkflowError("chainyard: invalid config:\n" + str(exc)) from None
+
+CY = config["chainyard"]
+CY_RESULTS = CY.get("results", "results")
+CY_VERSION = chainyard.__version__
+CY_SAMPLE_RUNTIME = int(CY.get("sample_runtime_minutes", 60))
+CY_SAMPLE_MEM = int(CY.get("sample_mem_mb", 2000))
+CY_SAMPLE_RETRIES = int(CY.get("sample_retries", 2))
+
+
+wildcard_constraints:
+    run="|".join(sorted(CY_RUNS)),
+    replica=r"\d+",
+
+
+def run_path(run, *parts):
+    """Path under the run's results folder."""
+    return "/".join([CY_RESULTS, run, *parts])
+
+
+def replica_stores(run, stage):
+    """The replica stores of one run at one stage (draws, trimmed, final)."""
+    n = CY_RUNS[run].config.replicas
+    return [run_path(run, stage, f"replica-{r}.zarr") for r in range(n)]
+
+
+def sample_inputs(wildcards):
+    return CY_RUNS[wildcards.run].input_files()
+
+
+def sampling_settings(wildcards):
+    return CY_RUNS[wildcards.run].param("sampling")
+
+
+def run_base_dir(wildcards):
+    return CY_RUNS[wildcards.run].base_dir
+
+
+def replica_index(wildcards):
+    return int(wildcards.replica)
+
+
+def resumable_store(wildcards):
+    return run_path(wildcards.run, ".resumable", f"replica-{wildcards.replica}.zarr")
+
+
+def sample_runtime(wildcards, attempt):
+    return CY_SAMPLE_RUNTIME * attempt
+
+
+def burn_in_policy(wildcards):
+    return CY_RUNS[wildcards.run].param("burn_in")
+
+
+def thinning_policy(wildcards):
+    return CY_RUNS[wildcards.run].param("thinning")
+
+
+def run_targets(wildcards):
+    return CY_RUNS[wildcards.run].param("targets")
+
+
+def run_name(wildcards):
+    return wildcards.run
+
+
+def raw_stores(wildcards):
+    return replica_stores(wildcards.run, "draws")
+
+
+def trimmed_stores(wildcards):
+    return replica_stores(wildcards.run, "trimmed")
+
+
+def final_stores(wildcards):
+    return replica_stores(wildcards.run, "final")
+
+
+PLOTS = ("traces", "tau", "pairs", "acceptance")
+
+
+def all_outputs():
+    out = []
+    for run in sorted(CY_RUNS):
+        out.append(run_path(run, "summary.csv"))
+        out.append(run_path(run, "diagnostics.txt"))
+        out += [run_path(run, "plots", f"{p}.png") for p in PLOTS]
+    return out
