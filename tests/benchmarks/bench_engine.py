@@ -1,0 +1,937 @@
+"""Storage and speed benchmark of chainyard's sampling engine (run on demand, not by pytest).
+
+    .venv/bin/python tests/benchmarks/bench_engine.py            # full run, about 8 minutes
+    .venv/bin/python tests/benchmarks/bench_engine.py --quick    # smoke run, about 1 minute
+
+Everything is measured in one process and reported as ratios of runs made back to back:
+the machine is shared and noisy, so every configuration is run once per round, the rounds
+are repeated (order rotated each round) and medians with their min-max spread are reported.
+
+1. chainyard.sample vs bare emcee (in-memory backend): 10-D standard Gaussian, 32 walkers,
+   stretch move, same start and RNG stream; vectorised and non-vectorised model. Storage
+   overhead = chainyard time / emcee time - 1 (target <= 5%), also with fsync off and zstd,
+   plus intermediate configurations that split the overhead into its parts.
+2. vs emcee's HDF5 backend (run for fewer steps; steps/s rates compared; target >= 8x).
+3. Stored bytes per draw of draws/position (target <= 31 B, lossless) and the store's size.
+4. Time to resume a store and do one more step, for stores of growing length (target ~1x).
+
+Full mode writes tests/benchmarks/RESULTS.md; --quick writes tests/benchmarks/.work/.
+"""
+
+from __future__ import annotations
+
+import argparse
+import cProfile
+import datetime as dt
+import io
+import os
+import platform
+import pstats
+import shutil
+import statistics
+import sys
+import tempfile
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from importlib import metadata
+from pathlib import Path
+from typing import Any
+
+import emcee
+import numpy as np
+import zarr
+
+import chainyard
+from chainyard.engine.ensemble import EnsembleDriver, _DeferErrors
+from chainyard.engine.initial import initial_state
+from chainyard.model import load_model
+from chainyard.store.layout import codec_kwargs
+from chainyard.streams import random_state_to_json, sampler_random_state, states_equal
+
+HERE = Path(__file__).resolve().parent
+SEED = 20240601
+WALKERS = 32
+NDIM = 10
+RAW_DRAW_BYTES = NDIM * 8
+
+TARGET_OVERHEAD = 0.05
+TARGET_HDF5_SPEEDUP = 8.0
+TARGET_BYTES_PER_DRAW = 31.0
+TARGET_RESUME_RATIO = 1.25  # "~1": longest/shortest store within 25% (noise allowance)
+
+MODEL_FILES = {
+    "vec": (
+        "import numpy as np\n\n\n"
+        "def log_prob(theta, data):\n"
+        "    return -0.5 * np.sum(theta * theta, axis=1)\n"
+    ),
+    "scalar": (
+        "import numpy as np\n\n\n"
+        "def log_prob(theta, data):\n"
+        "    return -0.5 * float(np.dot(theta, theta))\n"
+    ),
+}
+MODE_LABEL = {"vec": "vectorised", "scalar": "not vectorised"}
+
+# part-1 configurations: key -> (label, storage settings or None for non-chainyard runs)
+CONFIGS: dict[str, tuple[str, dict[str, Any] | None]] = {
+    "emcee": ("bare emcee, in-memory backend (baseline)", None),
+    "guard": ("emcee + chainyard model guard (no store)", None),
+    "driver": ("chainyard EnsembleDriver only (no store)", None),
+    "cy_none": ("chainyard.sample, codec none, fsync off", {"codec": "none", "fsync": False}),
+    "cy_nofsync": ("chainyard.sample, pcodec, fsync off", {"fsync": False}),
+    "cy_zstd": ("chainyard.sample, zstd, fsync on", {"codec": "zstd"}),
+    "cy_default": ("chainyard.sample, default (pcodec, fsync on)", {}),
+}
+P1_HEADER = [
+    "model",
+    "configuration",
+    "runs",
+    "median s",
+    "steps/s",
+    "overhead (wall)",
+    "spread (wall)",
+    "overhead (CPU)",
+]
+
+
+@dataclass(frozen=True)
+class Settings:
+    steps: int
+    rounds: int
+    h5_steps: int
+    h5_rounds: int
+    resume_lengths: tuple[int, ...]
+    resume_reps: int
+
+
+FULL = Settings(20_000, 4, 2_000, 3, (2_000, 20_000, 100_000), 5)
+QUICK = Settings(2_000, 2, 200, 2, (500, 2_000, 10_000), 3)
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+class Clock:
+    """Wall time and process CPU time (all threads) of a ``with`` block."""
+
+    def __enter__(self) -> Clock:
+        self._w, self._c = time.perf_counter(), time.process_time()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.wall = time.perf_counter() - self._w
+        self.cpu = time.process_time() - self._c
+
+
+def median(xs: list[float]) -> float:
+    return statistics.median(xs)
+
+
+def spread(xs: list[float], fmt: str) -> str:
+    return f"{format(min(xs), fmt)} .. {format(max(xs), fmt)}"
+
+
+def pct(x: float) -> str:
+    return f"{100 * x:+.1f}%"
+
+
+def dir_bytes(path: Path) -> int:
+    return sum(p.stat().st_size for p in path.rglob("*") if p.is_file())
+
+
+def md_table(header: list[str], rows: list[list[str]]) -> str:
+    lines = ["| " + " | ".join(header) + " |", "|" + "|".join("---" for _ in header) + "|"]
+    lines += ["| " + " | ".join(r) + " |" for r in rows]
+    return "\n".join(lines)
+
+
+def config_dict(
+    mode: str, steps: int, storage: dict[str, Any] | None = None, ndim: int = NDIM
+) -> dict[str, Any]:
+    return {
+        "model": {"log_prob": f"model_{mode}.py:log_prob", "vectorized": mode == "vec"},
+        "parameters": [
+            {"name": f"x{i}", "init": {"normal": {"loc": 0.0, "scale": 1.0}}} for i in range(ndim)
+        ],
+        "sampler": {"walkers": WALKERS, "steps": steps},
+        "storage": dict(storage or {}),
+        "seed": SEED,
+    }
+
+
+class Bench:
+    """Holds the work folder, the models and the configurations of one benchmark run."""
+
+    def __init__(self, work: Path, settings: Settings) -> None:
+        self.work = work
+        self.s = settings
+        self.models = work / "models"
+        self.models.mkdir(parents=True)
+        self.stores = work / "stores"
+        self.stores.mkdir()
+        funcs = {}
+        for mode, text in MODEL_FILES.items():
+            (self.models / f"model_{mode}.py").write_text(text)
+            namespace: dict[str, Any] = {}
+            exec(compile(text, f"model_{mode}.py", "exec"), namespace)
+            funcs[mode] = namespace["log_prob"]
+        self.funcs = funcs
+        self.quiet = io.StringIO()
+        self.chains: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+
+    # ------------------------------------------------------------------ configs
+    def cfg(self, mode: str, steps: int, storage: dict[str, Any] | None = None, ndim: int = NDIM):
+        return chainyard.parse_config(config_dict(mode, steps, storage, ndim), base_dir=self.models)
+
+    def start(self, mode: str) -> tuple[Any, np.ndarray, np.ndarray]:
+        """chainyard's own model guard and start state for replica 0 (the same for all runs)."""
+        cfg = self.cfg(mode, 1)
+        model = load_model(cfg)
+        pos, lp, _, _ = initial_state(cfg, model, 0)
+        return model, pos, lp
+
+    # ------------------------------------------------------------------ runs
+    def run(self, mode: str, key: str, steps: int, keep_chain: bool = False) -> Clock:
+        """One run of a part-1 configuration; times only the measured call."""
+        if key == "emcee":
+            model, pos, _ = self.start(mode)
+            sampler = emcee.EnsembleSampler(
+                WALKERS, NDIM, self.funcs[mode], vectorize=(mode == "vec"), args=(None,)
+            )
+            self._seed(sampler)
+            with Clock() as clock:
+                sampler.run_mcmc(pos, steps, progress=False)
+            if keep_chain:
+                self.chains[mode] = (sampler.get_chain(), sampler.get_log_prob())
+            return clock
+        if key == "guard":
+            model, pos, lp = self.start(mode)
+            sampler = emcee.EnsembleSampler(WALKERS, NDIM, _DeferErrors(model), vectorize=True)
+            self._seed(sampler)
+            state = emcee.State(pos, log_prob=lp)
+            with Clock() as clock:
+                sampler.run_mcmc(state, steps, progress=False)
+            return clock
+        if key == "driver":
+            model, pos, lp = self.start(mode)
+            cfg = self.cfg(mode, steps)
+            rs = random_state_to_json(sampler_random_state(SEED, 0).get_state())
+            with Clock() as clock:
+                driver = EnsembleDriver(
+                    model, cfg.sampler.moves, pos, lp, np.empty((WALKERS, 0)), rs, check_start=True
+                )
+                for _ in driver.steps(steps):
+                    pass
+            return clock
+        storage = CONFIGS[key][1]
+        return self.sample(self.cfg(mode, steps, storage), self.stores / f"{mode}_{key}")
+
+    def sample(self, cfg: Any, path: Path, fresh: bool = True) -> Clock:
+        if fresh and path.exists():
+            shutil.rmtree(path)
+        with Clock() as clock:
+            chainyard.sample(cfg, path, progress="off", stream=self.quiet)
+        self.quiet.seek(0)
+        self.quiet.truncate()
+        return clock
+
+    @staticmethod
+    def _seed(sampler: Any) -> None:
+        wanted = sampler_random_state(SEED, 0).get_state()
+        sampler.random_state = wanted
+        if not states_equal(sampler.random_state, wanted):
+            raise RuntimeError("emcee did not take the random state")
+
+    def hdf5(self, mode: str, steps: int) -> float:
+        path = self.work / f"emcee_{mode}.h5"
+        path.unlink(missing_ok=True)
+        _, pos, _ = self.start(mode)
+        clock = Clock().__enter__()
+        backend = emcee.backends.HDFBackend(str(path))
+        backend.reset(WALKERS, NDIM)
+        sampler = emcee.EnsembleSampler(
+            WALKERS,
+            NDIM,
+            self.funcs[mode],
+            vectorize=(mode == "vec"),
+            args=(None,),
+            backend=backend,
+        )
+        self._seed(sampler)
+        sampler.run_mcmc(pos, steps, progress=False)
+        clock.__exit__()
+        self.h5_chain = emcee.backends.HDFBackend(str(path), read_only=True).get_chain()
+        return clock.wall
+
+
+# --------------------------------------------------------------------------- parts
+
+
+@dataclass
+class Part1:
+    """Part-1 timings. ``wall``/``cpu``: every run; the rest: per (emcee, X) pair."""
+
+    wall: dict[tuple[str, str], list[float]] = field(default_factory=dict)
+    cpu: dict[tuple[str, str], list[float]] = field(default_factory=dict)
+    ratio: dict[tuple[str, str], list[float]] = field(default_factory=dict)
+    cpu_ratio: dict[tuple[str, str], list[float]] = field(default_factory=dict)
+    us_per_step: dict[tuple[str, str], list[float]] = field(default_factory=dict)
+
+
+def part1(b: Bench, log: Callable[[str], None]) -> Part1:
+    """Runs in triplets X, emcee, Y (same model): each X is compared with its neighbour."""
+    keys = [k for k in CONFIGS if k != "emcee"]
+    res = Part1()
+    for m in ("vec", "scalar"):
+        for k in CONFIGS:
+            for d in (res.wall, res.cpu, res.ratio, res.cpu_ratio, res.us_per_step):
+                d[(m, k)] = []
+            b.run(m, k, 200)  # warm-up: imports, zarr's event loop thread, codecs, file cache
+
+    def record(m: str, k: str, x: Clock, e: Clock) -> None:
+        res.wall[(m, k)].append(x.wall)
+        res.cpu[(m, k)].append(x.cpu)
+        res.ratio[(m, k)].append(x.wall / e.wall - 1)
+        res.cpu_ratio[(m, k)].append(x.cpu / e.cpu - 1)
+        res.us_per_step[(m, k)].append((x.wall - e.wall) / b.s.steps * 1e6)
+
+    for r in range(b.s.rounds):
+        t0 = time.perf_counter()
+        # rotating by one each round swaps which configurations run before / after emcee
+        rot = keys[r % len(keys) :] + keys[: r % len(keys)]
+        modes = ("vec", "scalar") if r % 2 == 0 else ("scalar", "vec")
+        last = r == b.s.rounds - 1
+        for j in range(0, len(rot), 2):
+            for m in modes:
+                x = b.run(m, rot[j], b.s.steps)
+                e = b.run(m, "emcee", b.s.steps, keep_chain=last)
+                y = b.run(m, rot[j + 1], b.s.steps)
+                res.wall[(m, "emcee")].append(e.wall)
+                res.cpu[(m, "emcee")].append(e.cpu)
+                record(m, rot[j], x, e)
+                record(m, rot[j + 1], y, e)
+        log(f"  part 1 round {r + 1}/{b.s.rounds}: {time.perf_counter() - t0:.0f} s")
+    return res
+
+
+def part2(b: Bench, log: Callable[[str], None]) -> dict[str, dict[str, list[float]]]:
+    out: dict[str, dict[str, list[float]]] = {m: {"h5": [], "cy": []} for m in ("vec", "scalar")}
+    b.hdf5("vec", 20)
+    for r in range(b.s.h5_rounds):
+        for m in ("vec", "scalar") if r % 2 == 0 else ("scalar", "vec"):
+            out[m]["h5"].append(b.hdf5(m, b.s.h5_steps))
+            out[m]["cy"].append(b.sample(b.cfg(m, b.s.h5_steps), b.stores / f"{m}_h5len").wall)
+            if r == 0:
+                same = np.array_equal(
+                    b.h5_chain, chainyard.open_store(b.stores / f"{m}_h5len").draws()
+                )
+                out[m]["same_chain"] = [float(same)]
+        log(f"  part 2 round {r + 1}/{b.s.h5_rounds} done")
+    return out
+
+
+def part3(b: Bench) -> dict[str, Any]:
+    res: dict[str, Any] = {"codecs": {}}
+    n_draws = None
+    for key, codec in (("cy_default", "pcodec"), ("cy_zstd", "zstd"), ("cy_none", "none")):
+        path = b.stores / f"vec_{key}"
+        store = chainyard.open_store(path)
+        steps = store.steps_done
+        n_draws = steps * store.walkers
+        pos_b = dir_bytes(path / "draws" / "position" / "c")
+        lp_b = dir_bytes(path / "draws" / "log_prob" / "c")
+        res["codecs"][codec] = {
+            "position_bpd": pos_b / n_draws,
+            "log_prob_bpv": lp_b / n_draws,
+            "log_prob_b_row": lp_b / steps,
+            "total": dir_bytes(path),
+            "chunks": sum(1 for p in (path / "draws" / "position" / "c").rglob("*") if p.is_file()),
+        }
+    checks: dict[str, bool] = {}
+    pc = chainyard.open_store(b.stores / "vec_cy_default")
+    draws = pc.draws()
+    checks["draws finite, shape (steps, 32, 10)"] = bool(
+        np.isfinite(draws).all() and draws.shape == (b.s.steps, WALKERS, NDIM)
+    )
+    for mode in ("vec", "scalar"):
+        st = chainyard.open_store(b.stores / f"{mode}_cy_default")
+        chain, lp = b.chains[mode]
+        checks[f"{MODE_LABEL[mode]}: store draws == bare emcee chain (bitwise)"] = bool(
+            np.array_equal(st.draws(), chain)
+        )
+        checks[f"{MODE_LABEL[mode]}: store log_prob == bare emcee log_prob (bitwise)"] = bool(
+            np.array_equal(st.log_prob(), lp)
+        )
+    for key in ("cy_zstd", "cy_none", "cy_nofsync"):
+        other = chainyard.open_store(b.stores / f"vec_{key}").draws()
+        checks[f"pcodec store draws == {key} store draws"] = bool(np.array_equal(draws, other))
+    # re-encode: the same array through a fresh pcodec zarr array, read back
+    arr = zarr.create_array(
+        b.work / "reencode.zarr",
+        shape=draws.shape,
+        chunks=(pc.chunk_steps, WALKERS, NDIM),
+        dtype="float64",
+        fill_value=np.nan,
+        **codec_kwargs("pcodec", None, "float64"),
+    )
+    arr[...] = draws
+    checks["re-encode with pcodec, read back: array_equal"] = bool(
+        np.array_equal(np.asarray(zarr.open_array(b.work / "reencode.zarr", mode="r")[...]), draws)
+    )
+    res["checks"] = checks
+    res["acceptance"] = float(pc.accepted().mean())
+    res["n_draws"] = n_draws
+    repeat = np.all(draws[1:] == draws[:-1], axis=2).mean()
+    res["repeat_fraction"] = float(repeat)
+    return res
+
+
+def part4(b: Bench, log: Callable[[str], None]) -> dict[str, Any]:
+    lengths = b.s.resume_lengths
+    build: dict[int, float] = {}
+    paths = {n: b.stores / f"resume_{n}" for n in lengths}
+    cfg = b.cfg("vec", lengths[0], ndim=2)
+    for n in lengths:
+        build[n] = b.sample(cfg.with_steps(n), paths[n]).wall
+        log(f"  part 4: built a {n:,}-step store in {build[n]:.1f} s")
+    current = dict.fromkeys(lengths, 0)
+    for n in lengths:
+        current[n] = chainyard.open_store(paths[n]).steps_done
+    b.sample(cfg.with_steps(current[lengths[0]] + 1), paths[lengths[0]], fresh=False)  # warm-up
+    current[lengths[0]] += 1
+    times: dict[int, list[float]] = {n: [] for n in lengths}
+    for r in range(b.s.resume_reps):
+        for n in lengths if r % 2 == 0 else tuple(reversed(lengths)):
+            t = b.sample(cfg.with_steps(current[n] + 1), paths[n], fresh=False).wall
+            current[n] += 1
+            if chainyard.open_store(paths[n]).steps_done != current[n]:
+                raise RuntimeError(f"resume of the {n}-step store did not add one step")
+            times[n].append(t)
+    return {"build": build, "times": times, "paths": paths, "cfg": cfg, "current": current}
+
+
+def profile_run(b: Bench, mode: str, top: int = 15) -> tuple[list[list[str]], float]:
+    """cProfile one default chainyard run; top entries (cumulative) inside chainyard/, zarr/."""
+    cfg = b.cfg(mode, b.s.steps)
+    path = b.stores / f"profile_{mode}"
+    prof = cProfile.Profile()
+    t0 = time.perf_counter()
+    prof.enable()
+    chainyard.sample(cfg, path, progress="off", stream=b.quiet)
+    prof.disable()
+    total = time.perf_counter() - t0
+    return profile_rows(prof, top), total
+
+
+def profile_rows(prof: cProfile.Profile, top: int) -> list[list[str]]:
+    stats = pstats.Stats(prof)
+    entries = []
+    for (fname, line, func), (_, ncalls, tottime, cumtime, _) in stats.stats.items():  # type: ignore[attr-defined]
+        f = fname.replace(os.sep, "/")
+        for pkg in ("chainyard/", "zarr/"):
+            i = f.rfind("/" + pkg)
+            if i >= 0 and "/tests/" not in f:
+                entries.append((cumtime, tottime, ncalls, f"{f[i + 1 :]}:{line}", func))
+                break
+    entries.sort(reverse=True)
+    return [
+        [f"{c:.3f}", f"{t:.3f}", str(n), f"`{func}` ({where})"]
+        for c, t, n, where, func in entries[:top]
+    ]
+
+
+def profile_resume(b: Bench, r4: dict[str, Any], n: int) -> list[list[str]]:
+    path = r4["paths"][n]
+    cfg = r4["cfg"].with_steps(r4["current"][n] + 1)
+    prof = cProfile.Profile()
+    prof.enable()
+    chainyard.sample(cfg, path, progress="off", stream=b.quiet)
+    prof.disable()
+    r4["current"][n] += 1
+    return profile_rows(prof, 15)
+
+
+# --------------------------------------------------------------------------- report
+
+
+def machine() -> list[list[str]]:
+    cpu = "?"
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                cpu = line.split(":", 1)[1].strip()
+                break
+    except OSError:
+        pass
+
+    def ver(name: str) -> str:
+        try:
+            return metadata.version(name)
+        except metadata.PackageNotFoundError:
+            return "not installed"
+
+    load = ", ".join(f"{x:.2f}" for x in os.getloadavg())
+    return [
+        ["nproc", str(len(os.sched_getaffinity(0)))],
+        ["CPU", cpu],
+        ["OS", platform.platform()],
+        ["Python", platform.python_version()],
+        ["numpy / emcee / zarr", f"{np.__version__} / {emcee.__version__} / {zarr.__version__}"],
+        ["numcodecs / pcodec / h5py", f"{ver('numcodecs')} / {ver('pcodec')} / {ver('h5py')}"],
+        ["chainyard", chainyard.__version__],
+        ["load average at start (1, 5, 15 min)", load],
+    ]
+
+
+def report(
+    s: Settings,
+    quick: bool,
+    t1: Part1,
+    r2: dict[str, dict[str, list[float]]],
+    r3: dict[str, Any],
+    r4: dict[str, Any],
+    profiles: dict[str, tuple[list[list[str]], float]],
+    resume_profiles: dict[int, list[list[str]]],
+    mach: list[list[str]],
+    elapsed: float,
+    work: Path,
+) -> tuple[str, str]:
+    """Markdown for RESULTS.md and a shorter text for the terminal."""
+    out: list[str] = []
+    steps = s.steps
+
+    def ratios(mode: str, key: str) -> list[float]:
+        return [0.0] if key == "emcee" else t1.ratio[(mode, key)]
+
+    def us(mode: str, key: str) -> float:
+        return 0.0 if key == "emcee" else median(t1.us_per_step[(mode, key)])
+
+    # ---- part 1
+    rows1 = []
+    for mode in ("vec", "scalar"):
+        for key, (label, _) in CONFIGS.items():
+            ts = t1.wall[(mode, key)]
+            r = ratios(mode, key)
+            base = key == "emcee"
+            rows1.append(
+                [
+                    MODE_LABEL[mode],
+                    label,
+                    str(len(ts)),
+                    f"{median(ts):.2f}",
+                    f"{steps / median(ts):,.0f}",
+                    "-" if base else pct(median(r)),
+                    "-" if base else f"{100 * min(r):+.1f} .. {100 * max(r):+.1f}%",
+                    "-" if base else pct(median(t1.cpu_ratio[(mode, key)])),
+                ]
+            )
+    over = {m: median(ratios(m, "cy_default")) for m in ("vec", "scalar")}
+    # ---- decomposition (differences of medians of per-pair ratios, in % of emcee time)
+    parts = [
+        ("model guard (chainyard.model.LoadedModel + _DeferErrors)", "emcee", "guard"),
+        ("EnsembleDriver per-step work (row copies, State handling)", "guard", "driver"),
+        ("run loop + store writes/commits, uncompressed, no fsync", "driver", "cy_none"),
+        ("pcodec compression (vs none)", "cy_none", "cy_nofsync"),
+        ("fsync of chunks and commit record", "cy_nofsync", "cy_default"),
+        ("total: default chainyard vs bare emcee", "emcee", "cy_default"),
+    ]
+    rows_dec = []
+    for label, a, c in parts:
+        cells = [label]
+        for mode in ("vec", "scalar"):
+            wall = median(ratios(mode, c)) - median(ratios(mode, a))
+            cpu = median(t1.cpu_ratio[(mode, c)]) - (
+                0.0 if a == "emcee" else median(t1.cpu_ratio[(mode, a)])
+            )
+            cells.append(f"{pct(wall)} / {pct(cpu)} ({us(mode, c) - us(mode, a):+.0f} us/step)")
+        rows_dec.append(cells)
+    # ---- part 2
+    rows2 = []
+    speed = {}
+    for mode in ("vec", "scalar"):
+        h5_rate = median([s.h5_steps / t for t in r2[mode]["h5"]])
+        cy_rate_long = median([steps / t for t in t1.wall[(mode, "cy_default")]])
+        cy_rate_same = median([s.h5_steps / t for t in r2[mode]["cy"]])
+        same_len = median([h / c for h, c in zip(r2[mode]["h5"], r2[mode]["cy"], strict=True)])
+        speed[mode] = cy_rate_long / h5_rate
+        rows2.append(
+            [
+                MODE_LABEL[mode],
+                f"{h5_rate:,.0f}",
+                f"{cy_rate_long:,.0f}",
+                f"{speed[mode]:.1f}x",
+                f"{cy_rate_same:,.0f}",
+                f"{same_len:.1f}x",
+                "yes" if r2[mode]["same_chain"][0] else "NO",
+            ]
+        )
+    # ---- part 3
+    c3 = r3["codecs"]
+    rows3 = [
+        [
+            codec + (" (default)" if codec == "pcodec" else ""),
+            f"{v['position_bpd']:.2f}",
+            f"{RAW_DRAW_BYTES / v['position_bpd']:.2f}x",
+            f"{v['log_prob_bpv']:.2f}",
+            f"{v['log_prob_b_row']:.0f}",
+            f"{v['total'] / 1e6:.2f} MB",
+            str(v["chunks"]),
+        ]
+        for codec, v in c3.items()
+    ]
+    lossless = all(r3["checks"].values())
+    bpd = c3["pcodec"]["position_bpd"]
+    # ---- part 4
+    lengths = s.resume_lengths
+    med4 = {n: median(r4["times"][n]) for n in lengths}
+    rows4 = [
+        [
+            f"{n:,}",
+            f"{r4['build'][n]:.1f}",
+            f"{1000 * med4[n]:.0f}",
+            spread([1000 * t for t in r4["times"][n]], ".0f"),
+            f"{med4[n] / med4[lengths[0]]:.2f}",
+        ]
+        for n in lengths
+    ]
+    resume_ratio = med4[lengths[-1]] / med4[lengths[0]]
+
+    # ---- targets
+    def ok(flag: bool) -> str:
+        return "**met**" if flag else "**missed**"
+
+    targets = [
+        [
+            "storage overhead, vectorised (default settings)",
+            "<= +5%",
+            pct(over["vec"]),
+            ok(over["vec"] <= TARGET_OVERHEAD),
+        ],
+        [
+            "storage overhead, not vectorised (default settings)",
+            "<= +5%",
+            pct(over["scalar"]),
+            ok(over["scalar"] <= TARGET_OVERHEAD),
+        ],
+        [
+            "speed vs emcee HDF5 backend, vectorised",
+            ">= 8x",
+            f"{speed['vec']:.1f}x",
+            ok(speed["vec"] >= TARGET_HDF5_SPEEDUP),
+        ],
+        [
+            "speed vs emcee HDF5 backend, not vectorised",
+            ">= 8x",
+            f"{speed['scalar']:.1f}x",
+            ok(speed["scalar"] >= TARGET_HDF5_SPEEDUP),
+        ],
+        [
+            "draws/position bytes per draw (pcodec), lossless",
+            "<= 31 B, lossless",
+            f"{bpd:.2f} B, lossless: {'yes' if lossless else 'NO'}",
+            ok(bpd <= TARGET_BYTES_PER_DRAW and lossless),
+        ],
+        [
+            f"resume + 1 step, {lengths[-1]:,} vs {lengths[0]:,} steps stored",
+            "~1x (<= 1.25)",
+            f"{resume_ratio:.2f}x",
+            ok(resume_ratio <= TARGET_RESUME_RATIO),
+        ],
+    ]
+
+    date = dt.datetime.now(dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
+    out.append("# chainyard engine benchmark: results\n")
+    cmd = "python tests/benchmarks/bench_engine.py" + (" --quick" if quick else "")
+    kind = "QUICK smoke run: few steps and rounds, not for judging targets" if quick else "full"
+    out.append(
+        f"Measured {date} with `{cmd}` ({kind}), total wall time {elapsed / 60:.1f} min. "
+        "See README.md for what each number means.\n"
+    )
+    same = os.stat(work.parent).st_dev == os.stat(HERE).st_dev
+    disk = "same file system as the repository" if same else "NOT the repository's file system"
+    out.append("## Machine\n")
+    out.append(md_table(["", ""], mach) + "\n")
+    out.append(
+        f"Stores and HDF5 files were written to `{work.parent}` ({disk}). "
+        "The machine is shared and noisy: compare the ratios (each measured against the "
+        "bare-emcee run of the same round), not absolute times across runs.\n"
+    )
+    out.append("## Targets\n")
+    out.append(md_table(["what", "target", "measured", "result"], targets) + "\n")
+
+    out.append("## 1. chainyard.sample vs bare emcee (in-memory backend)\n")
+    out.append(
+        f"10-D standard Gaussian, {WALKERS} walkers, {steps:,} steps, stretch move, seed "
+        f"{SEED}; {s.rounds} rounds. In every round each configuration runs once, back to "
+        "back with a bare-emcee run of the same model: runs go in triplets X, emcee, Y, and "
+        "the configurations rotate between rounds so each one runs both before and after "
+        "emcee. Overhead = time / time of its neighbouring emcee run "
+        "- 1: median and min..max over rounds, for wall time (what a user waits) and for "
+        "process CPU time (all threads; it leaves out waiting for the disk, but is much less "
+        "disturbed by other processes on this shared machine). chainyard defaults: "
+        "chunk_steps 1000, commit every 2000 steps / 30 s. The rows between the baseline and "
+        "the chainyard.sample rows are partial pipelines used to split the overhead (section "
+        "'Where the time goes').\n"
+    )
+    out.append(md_table(P1_HEADER, rows1) + "\n")
+
+    out.append("## 2. vs emcee's HDF5 backend\n")
+    out.append(
+        f"emcee.backends.HDFBackend (defaults, no compression) run for {s.h5_steps:,} steps "
+        f"(it is slow), {s.h5_rounds} rounds; speedup = chainyard's steps/s over the "
+        f"{steps:,}-step runs of part 1 / HDF5 steps/s. Also shown: chainyard run for the "
+        f"same {s.h5_steps:,} steps in the same rounds (its fixed start-up cost then weighs "
+        "more), and whether the HDF5 chain is bitwise equal to chainyard's.\n"
+    )
+    out.append(
+        md_table(
+            [
+                "model",
+                "HDF5 steps/s",
+                f"chainyard steps/s ({steps:,})",
+                "speedup",
+                f"chainyard steps/s ({s.h5_steps:,})",
+                "speedup, same length",
+                "same chain",
+            ],
+            rows2,
+        )
+        + "\n"
+    )
+
+    out.append("## 3. Stored bytes\n")
+    out.append(
+        f"Vectorised run of part 1 ({steps:,} steps x {WALKERS} walkers = "
+        f"{r3['n_draws']:,} draws). Bytes = sum of chunk files under `draws/position/c` "
+        "(`draws/log_prob/c` for log_prob); raw float64 is 80 B per draw and 8 B per "
+        f"log_prob value ({8 * WALKERS} B per step row). Acceptance {r3['acceptance']:.3f}; "
+        f"{100 * r3['repeat_fraction']:.1f}% of (step, walker) rows repeat the previous "
+        "step's row.\n"
+    )
+    out.append(
+        md_table(
+            [
+                "codec",
+                "position B/draw",
+                "vs raw",
+                "log_prob B/value",
+                "log_prob B/step row",
+                "whole store",
+                "position chunks",
+            ],
+            rows3,
+        )
+        + "\n"
+    )
+    out.append("Losslessness checks:\n")
+    out += [f"- {'PASS' if v else 'FAIL'}: {k}" for k, v in r3["checks"].items()]
+    out.append("")
+
+    out.append("## 4. Resume time vs store length\n")
+    out.append(
+        f"2-parameter vectorised Gaussian, {WALKERS} walkers, default storage. Each timing is "
+        "one `chainyard.sample(cfg.with_steps(n + 1), store)` call on an existing store of n "
+        "steps: open, identity check, reload of the last chunk's rows, one step, write and "
+        f"commit (nothing subtracted). {s.resume_reps} repetitions per store, interleaved; "
+        "every repetition adds one step.\n"
+    )
+    out.append(
+        md_table(
+            [
+                "stored steps",
+                "build s",
+                "resume + 1 step, median ms",
+                "min..max ms",
+                "ratio to shortest",
+            ],
+            rows4,
+        )
+        + "\n"
+    )
+
+    # ---- interpretation
+    out.append("## Interpretation\n")
+    out.append(interpretation(over, speed, bpd, lossless, resume_ratio, t1, c3, lengths))
+    out.append("")
+
+    out.append("## Where the time goes\n")
+    out.append(
+        "Overhead over bare emcee split into additive parts: each row is the difference "
+        "between consecutive configurations of part 1, as wall / CPU share of bare-emcee time "
+        "(medians of the per-pair ratios) and wall microseconds per step (medians of the "
+        "per-pair time differences). Small parts are within the noise and can come out "
+        "negative.\n"
+    )
+    out.append(md_table(["part", MODE_LABEL["vec"], MODE_LABEL["scalar"]], rows_dec) + "\n")
+    for mode, (rows, total) in profiles.items():
+        out.append(
+            f"cProfile of one default chainyard run, {MODE_LABEL[mode]} model, {steps:,} steps "
+            f"({total:.1f} s under the profiler, which inflates Python-heavy code): top "
+            f"{len(rows)} entries by cumulative time inside chainyard/ and zarr/.\n"
+        )
+        out.append(md_table(["cumulative s", "own s", "calls", "function"], rows) + "\n")
+    for n, rows in resume_profiles.items():
+        out.append(f"cProfile of one resume + 1 step of the {n:,}-step store.\n")
+        out.append(md_table(["cumulative s", "own s", "calls", "function"], rows) + "\n")
+    md = "\n".join(out).rstrip() + "\n"
+
+    term = [
+        md_table(["what", "target", "measured", "result"], targets),
+        "",
+        md_table(P1_HEADER, rows1),
+        "",
+        md_table(["part", MODE_LABEL["vec"], MODE_LABEL["scalar"]], rows_dec),
+        "",
+        md_table(
+            [
+                "model",
+                "HDF5 steps/s",
+                "chainyard steps/s",
+                "speedup",
+                "cy steps/s short",
+                "speedup short",
+                "same chain",
+            ],
+            rows2,
+        ),
+        "",
+        md_table(
+            ["codec", "pos B/draw", "vs raw", "lp B/value", "lp B/row", "store", "chunks"], rows3
+        ),
+        *[f"  {'PASS' if v else 'FAIL'}: {k}" for k, v in r3["checks"].items()],
+        "",
+        md_table(["stored steps", "build s", "resume ms", "min..max", "ratio"], rows4),
+    ]
+    return md, "\n".join(term)
+
+
+def interpretation(
+    over: dict[str, float],
+    speed: dict[str, float],
+    bpd: float,
+    lossless: bool,
+    resume_ratio: float,
+    t1: Part1,
+    c3: dict[str, Any],
+    lengths: tuple[int, ...],
+) -> str:
+    def wall(mode: str, key: str) -> float:
+        return median(t1.ratio[(mode, key)])
+
+    def cpu(mode: str, key: str) -> float:
+        return median(t1.cpu_ratio[(mode, key)])
+
+    met, missed = [], []
+    for mode in ("vec", "scalar"):
+        text = (
+            f"storage overhead {MODE_LABEL[mode]} {pct(over[mode])} wall time, "
+            f"{pct(cpu(mode, 'cy_default'))} CPU time (target <= +5%)"
+        )
+        (met if over[mode] <= TARGET_OVERHEAD else missed).append(text)
+    for mode in ("vec", "scalar"):
+        text = f"{speed[mode]:.1f}x the HDF5 backend's rate {MODE_LABEL[mode]} (target >= 8x)"
+        (met if speed[mode] >= TARGET_HDF5_SPEEDUP else missed).append(text)
+    text = f"{bpd:.2f} B per draw with pcodec, lossless {'yes' if lossless else 'NO'} (<= 31 B)"
+    (met if bpd <= TARGET_BYTES_PER_DRAW and lossless else missed).append(text)
+    text = f"resume time ratio {lengths[-1]:,}/{lengths[0]:,} steps {resume_ratio:.2f}x (~1)"
+    (met if resume_ratio <= TARGET_RESUME_RATIO else missed).append(text)
+    paras = [
+        "Met: " + ("; ".join(met) if met else "none") + ".",
+        "Missed: " + ("; ".join(missed) if missed else "none") + ".",
+    ]
+    for mode in ("vec", "scalar"):
+        eng_w, eng_c = wall(mode, "driver"), cpu(mode, "driver")
+        paras.append(
+            f"{MODE_LABEL[mode].capitalize()}: of the {pct(over[mode])} wall-time overhead "
+            f"({pct(cpu(mode, 'cy_default'))} in CPU time), {pct(eng_w)} ({pct(eng_c)} CPU) "
+            "is there before any byte is stored (emcee driven through chainyard's model guard "
+            f"and EnsembleDriver, no store) and {pct(over[mode] - eng_w)} "
+            f"({pct(cpu(mode, 'cy_default') - eng_c)} CPU) is the run loop with the store "
+            "(buffering, checksums, zarr writes and compression, commits). Turning fsync off "
+            f"gives {pct(wall(mode, 'cy_nofsync'))}, zstd instead of pcodec "
+            f"{pct(wall(mode, 'cy_zstd'))}, no compression and no fsync "
+            f"{pct(wall(mode, 'cy_none'))}."
+        )
+    same = "bitwise identical to" if lossless else "NOT identical to"
+    paras.append(
+        f"Storage: pcodec stores {bpd:.2f} B per draw ({RAW_DRAW_BYTES / bpd:.2f}x smaller than "
+        f"raw), zstd {c3['zstd']['position_bpd']:.2f} B. The stored chains are {same} bare "
+        "emcee's in-memory chains from the same start and RNG stream."
+    )
+    return "\n\n".join(paras)
+
+
+# --------------------------------------------------------------------------- main
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--quick", action="store_true", help="1-minute smoke run (few steps/rounds)")
+    ap.add_argument("--rounds", type=int, help="rounds for part 1 (default 5; quick 2)")
+    ap.add_argument(
+        "--output",
+        type=Path,
+        help="markdown results file (default: RESULTS.md; quick: .work/RESULTS-quick.md)",
+    )
+    ap.add_argument(
+        "--workdir",
+        type=Path,
+        help="folder for the scratch stores (default: the "
+        "system temp folder, outside the git work tree; removed afterwards)",
+    )
+    ap.add_argument("--keep", action="store_true", help="keep the stores afterwards")
+    args = ap.parse_args(argv)
+    s = QUICK if args.quick else FULL
+    if args.rounds:
+        s = Settings(s.steps, args.rounds, s.h5_steps, s.h5_rounds, s.resume_lengths, s.resume_reps)
+    output = args.output or (
+        HERE / ".work" / "RESULTS-quick.md" if args.quick else HERE / "RESULTS.md"
+    )
+    parent = args.workdir or Path(tempfile.gettempdir())
+    parent.mkdir(parents=True, exist_ok=True)
+    work = Path(tempfile.mkdtemp(prefix="chainyard-bench-", dir=parent))
+    t_start = time.perf_counter()
+
+    def log(msg: str) -> None:
+        print(f"[{time.perf_counter() - t_start:6.0f} s] {msg}", flush=True)
+
+    mach = machine()
+    log(f"work folder {work}; {'quick' if args.quick else 'full'} run")
+    try:
+        b = Bench(work, s)
+        log("part 1: chainyard vs bare emcee")
+        t1 = part1(b, log)
+        log("part 3: stored bytes and losslessness")
+        r3 = part3(b)
+        log("part 2: emcee HDF5 backend")
+        r2 = part2(b, log)
+        log("part 4: resume time vs store length")
+        r4 = part4(b, log)
+        log("profiles")
+        profiles = {mode: profile_run(b, mode) for mode in ("vec", "scalar")}
+        lengths = s.resume_lengths
+        med4 = {n: median(r4["times"][n]) for n in lengths}
+        resume_profiles = {}
+        if med4[lengths[-1]] / med4[lengths[0]] > TARGET_RESUME_RATIO:
+            resume_profiles = {n: profile_resume(b, r4, n) for n in (lengths[0], lengths[-1])}
+        elapsed = time.perf_counter() - t_start
+        load = ", ".join(f"{x:.2f}" for x in os.getloadavg())
+        mach.append(["load average at end (1, 5, 15 min)", load])
+        md, term = report(
+            s, args.quick, t1, r2, r3, r4, profiles, resume_profiles, mach, elapsed, work
+        )
+    finally:
+        if not args.keep:
+            shutil.rmtree(work, ignore_errors=True)
+    output.parent.mkdir(parents=True, exist_ok=True)
+    output.write_text(md)
+    print()
+    print(term)
+    print(f"\nwrote {output} ({elapsed / 60:.1f} min)")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
