@@ -535,11 +535,13 @@ class RunConfig(_Strict):
     def sampling_settings(self) -> dict[str, Any]:
         """The normalised settings the draws depend on (for workflow rerun triggers).
 
-        Everything except decisions, targets and free text: changing burn-in or thinning must
-        not resample.
+        Everything except decisions, targets, free text and the replica count: changing
+        burn-in or thinning must not resample, and adding replicas must not resample the
+        existing ones.
         """
         norm = self.normalised()
-        for key in ("burn_in", "thinning", "targets", "description", "extend_until_targets"):
+        for key in ("burn_in", "thinning", "targets", "description", "extend_until_targets",
+                    "replicas"):
             norm.pop(key, None)
         return norm
 

@@ -13,8 +13,8 @@ back to the constrained scale the reference reports, and compares posterior mean
 * ``mcse_ref``: for the posteriordb reference draws, ``ref_sd / sqrt(10_000)``: the reference is
   10 chains x 1,000 draws that posteriordb certifies as approximately independent (|lag-1
   autocorrelation| < 0.05, bulk ESS > 9,200 for every parameter here). For ``exact_values``
-  (quadrature / closed form, no MCMC; eight schools and kidiq) ``mcse_ref = 0``; these are
-  preferred where they exist and the reference draws are checked as a second source.
+  (quadrature / closed form, no MCMC; eight schools and kidiq) ``mcse_ref = 0``; where they
+  exist only they are asserted, and the reference-draw comparison is printed beside them.
 * ``mcse_chainyard``: see :func:`mean_check`.
 
 Seeds are fixed. ``CHAINYARD_REFPOST_SEED_OFFSET=<int>`` shifts every seed (used to check by
@@ -110,6 +110,7 @@ class MeanCheck:
     ref_sd: float
     ref_mcse: float
     tau: IntegratedTimeReport
+    asserted: bool = True
 
     @property
     def z(self) -> float:
@@ -120,6 +121,7 @@ class MeanCheck:
             f"{self.name}: mean {self.mean:.6g} (MCSE {self.mcse:.2g}) vs {self.ref_mean:.6g} "
             f"(MCSE {self.ref_mcse:.2g}) [{self.source}]: z = {self.z:+.2f}; sd {self.sd:.4g} vs "
             f"{self.ref_sd:.4g}; tau {self.tau.tau:.0f} ({self.tau.steps_per_tau:.0f} steps/tau)"
+            + ("" if self.asserted else " (not asserted: the exact value is preferred)")
         )
 
 
@@ -130,6 +132,7 @@ def mean_check(
     ref_sd: float,
     ref_mcse: float,
     source: str,
+    asserted: bool = True,
 ) -> MeanCheck:
     """Mean and its MCSE of one quantity from one ensemble, ``draws`` of shape (steps, walkers).
 
@@ -141,13 +144,14 @@ def mean_check(
     applied to walkers here. The report also says whether tau can be trusted (steps > 50 tau),
     and every test asserts that before it uses the MCSE. (``mcse_mean`` on the walker-mean trace,
     ``ensemble_to_chains([draws])``, is a valid alternative that also counts cross-walker
-    correlation; in trial runs it was within about +-30% of this one, in no fixed direction.)
+    correlation; in trial runs the ratio of the two was 0.5-1.7 in no fixed direction, the
+    single walker-mean series giving the noisier ESS estimate.)
     """
     report = integrated_time_report(walkers_as_chains(draws))
     sd = float(np.std(draws, ddof=1))
     mcse = sd * math.sqrt(report.tau / draws.size)
     return MeanCheck(
-        name, source, float(draws.mean()), sd, mcse, ref_mean, ref_sd, ref_mcse, report
+        name, source, float(draws.mean()), sd, mcse, ref_mean, ref_sd, ref_mcse, report, asserted
     )
 
 
@@ -156,6 +160,10 @@ def reference_checks(
 ) -> list[MeanCheck]:
     """Checks of each quantity against ``exact_values`` (if any) and the reference draws.
 
+    Where an exact value exists only it is asserted; the reference-draw comparison is still
+    computed and printed. (The draws carry their own Monte Carlo error: for kidiq, beta's
+    reference-draw means sit about 2 reference MCSE from the exact OLS values, which would
+    shift z by up to ~2 and make a |z| < 4 check on them needlessly fragile.)
     Quantity names are the reference's (``theta[1]``, ``tau``, ...); names absent from
     ``parameter_summaries`` are looked up in ``unconstrained_summaries`` (e.g. ``log_tau``).
     """
@@ -177,22 +185,24 @@ def reference_checks(
                 summ["sd"],
                 summ["sd"] / math.sqrt(n_ref),
                 f"posteriordb reference draws, {draws_name}",
+                asserted=name not in exact,
             )
         )
     return checks
 
 
 def assert_agreement(checks: list[MeanCheck], accepted: npt.NDArray[np.bool_]) -> None:
-    """tau reliable, no stuck walker, every |z| < 4 and every sd within 10% of the reference."""
+    """tau reliable, no stuck walker, |z| < 4 and sd within 10% for every asserted check."""
     report = "\n".join(c.line() for c in checks)
     print(report)
     acc = acceptance_report(accepted)
     assert acc.stuck_walkers == (), acc.messages
     unreliable = [c.name for c in checks if not c.tau.reliable]
     assert not unreliable, f"tau unreliable (MCSE not trustworthy) for {unreliable}\n{report}"
-    bad = [c.line() for c in checks if not abs(c.z) < Z_MAX]
+    checked = [c for c in checks if c.asserted]
+    bad = [c.line() for c in checked if not abs(c.z) < Z_MAX]
     assert not bad, "means disagree:\n" + "\n".join(bad)
-    bad_sd = [c.line() for c in checks if not abs(c.sd / c.ref_sd - 1.0) < SD_RTOL]
+    bad_sd = [c.line() for c in checked if not abs(c.sd / c.ref_sd - 1.0) < SD_RTOL]
     assert not bad_sd, "sds disagree:\n" + "\n".join(bad_sd)
 
 
@@ -294,19 +304,24 @@ def test_low_dim_gauss_mix_matches_reference(tmp_path: Path) -> None:
 def test_eight_schools_centered_is_flagged(tmp_path: Path) -> None:
     """Centred eight schools (a funnel): chainyard's verdict fails, flagging log tau.
 
-    Same posterior, walkers, init, steps and burn-in per replica as the non-centred test, which
-    passes with log tau at > 100 steps per autocorrelation time. In the centred coordinates
-    the walkers cannot follow the funnel into small tau: the stretch move's proposals along
-    lines between walkers leave the narrow neck, so log tau mixes 3-5 times slower (tau ~
-    400-700 steps, about 20-40 steps per tau). Over 4 replicas the diagnostics say so:
+    Same posterior, walkers, init, steps and burn-in per replica as the non-centred test, whose
+    log tau gets 84-99 steps per autocorrelation time in trial runs (the 50 x tau rule holds).
+    In the centred coordinates the walkers cannot follow the funnel into small tau: stretch
+    moves along lines between walkers leave the narrow neck, so log tau mixes 2.5-4 times
+    slower (tau 370-620 steps, 22-28 steps per tau in trial runs). Over 4 replicas chainyard's
+    diagnostics say so:
 
     * ``assess`` with the default ``Targets`` is not ok, and log tau fails the 50-steps-per-tau
-      rule (``integrated_time_report(...).reliable`` is False in every replica);
+      rule (``integrated_time_report(...).reliable`` is False in every replica): the flag;
     * log tau is the worst-mixing parameter (fewest steps per tau);
-    * R-hat of log tau across the replicas' walker-mean traces is > 1.01 (seen: 1.03-1.20).
+    * R-hat of log tau across the replicas' walker-mean traces is > 1.01 (trial runs:
+      1.05-1.27). R-hat alone would not single out the funnel at this length: four healthy
+      non-centred replicas of 10,000 kept steps gave walker-mean R-hat up to 1.03 for some
+      parameters, so the theta_j failing ``max_rhat`` here is not by itself evidence.
 
-    The mean of log tau is also biased upwards against the posteriordb reference draws (the
-    neck is under-visited), by 2-8 MCSE in trial runs: printed, not asserted.
+    The mean of log tau against the posteriordb reference draws is printed but not asserted:
+    in trial runs it was off by -2.3 to +5.9 MCSE, mostly upwards (the neck is under-visited),
+    not reliably enough to serve as the flag at this run length.
     """
     posterior = "eight_schools-eight_schools_centered"
     stores = [

@@ -74,6 +74,15 @@ def test_burn_in_change_does_not_resample(finished: Path) -> None:
     assert planned_jobs(finished) == {}
 
 
+def test_more_replicas_samples_only_new_ones(finished: Path) -> None:
+    """Raising the replica count samples only the new replica."""
+    write_config(finished, {"gauss": gauss_run(replicas=3)})
+    try:
+        assert planned_jobs(finished).get("chainyard_sample") == 1
+    finally:
+        write_config(finished, {"gauss": gauss_run()})
+
+
 def test_model_change_reruns_sampling(finished: Path) -> None:
     """Editing the model file reruns sampling (input content changed)."""
     model = finished / "models" / "gauss.py"
