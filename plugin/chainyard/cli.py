@@ -25,14 +25,25 @@ def _cmd_sample(args: argparse.Namespace) -> int:
     config = load_config(args.config)
     if args.steps is not None:
         config = config.with_steps(args.steps)
-    sample(
-        config,
-        args.out,
+    kwargs = dict(
         replica=args.replica,
         restart=args.restart,
         progress=args.progress,
         progress_interval=args.progress_interval,
     )
+    if not args.until_targets:
+        sample(config, args.out, **kwargs)
+        return 0
+    from chainyard.analysis.until import sample_until_targets
+
+    store, met = sample_until_targets(config, args.out, **kwargs)
+    if not met:
+        print(
+            f"chainyard: targets not met after {store.steps_done:,} steps (budget spent); "
+            f"see {args.out}/target_checks.json",
+            file=sys.stderr,
+        )
+        return 1
     return 0
 
 
@@ -141,6 +152,11 @@ def _parser() -> argparse.ArgumentParser:
         type=int,
         default=None,
         help="override sampler.steps (e.g. to extend a finished run)",
+    )
+    p.add_argument(
+        "--until-targets",
+        action="store_true",
+        help="extend until the per-replica targets hold (see extend_until_targets)",
     )
     p.add_argument(
         "--restart", action="store_true", help="discard an existing store at --out and start over"
