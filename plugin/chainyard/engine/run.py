@@ -19,9 +19,9 @@ from pathlib import Path
 from typing import Any, TextIO
 
 import numpy as np
-from numpy.typing import NDArray
 
 from chainyard.config import RunConfig, config_hash
+from chainyard.engine.buffer import StepBuffer, update_checksums
 from chainyard.engine.ensemble import EnsembleDriver
 from chainyard.engine.identity import describe_differences, run_identity
 from chainyard.engine.initial import initial_state
@@ -29,8 +29,8 @@ from chainyard.errors import ChainyardError, ConfigError, StoreConflictError, St
 from chainyard.model import LoadedModel, load_model
 from chainyard.progress import Progress
 from chainyard.provenance import git_state, host_record, software_versions, utc_now
-from chainyard.store import Store, chunk_checksum, writer_lock
-from chainyard.store.layout import ACCEPTED, ATTRS_KEY, BLOB, COMMIT_FILE, LOG_PROB, POSITION
+from chainyard.store import Store, writer_lock
+from chainyard.store.layout import ATTRS_KEY, BLOB, COMMIT_FILE, LOG_PROB, POSITION
 from chainyard.streams import random_state_to_json, sampler_random_state, spawn_key
 
 __all__ = ["Interrupted", "sample"]
@@ -97,79 +97,6 @@ def _is_partial_creation(path: Path) -> bool:
     except (OSError, ValueError):
         return False
     return isinstance(attrs.get(ATTRS_KEY), dict)
-
-
-class _Buffer:
-    """Rows since the start of the current chunk, plus pending (uncommitted) rows.
-
-    ``origin`` (a chunk boundary) is the step index of row 0; rows ``[origin, committed)``
-    are already stored and kept only to checksum the chunk they belong to.
-    """
-
-    def __init__(
-        self, walkers: int, n_params: int, n_blobs: int, chunk: int, pending_cap: int
-    ) -> None:
-        size = chunk + pending_cap
-        self.chunk, self.pending_cap = chunk, pending_cap
-        self.position = np.empty((size, walkers, n_params))
-        self.log_prob = np.empty((size, walkers))
-        self.accepted = np.empty((size, walkers), dtype=bool)
-        self.blobs = np.empty((n_blobs, size, walkers))
-        self.origin = 0
-        self.fill = 0
-
-    def load_tail(self, store: Store, committed: int) -> None:
-        """Reload the stored rows of the chunk that ``committed`` falls in."""
-        self.origin = (committed // self.chunk) * self.chunk
-        n = committed - self.origin
-        self.fill = n
-        if n:
-            self.position[:n] = store.read_rows(POSITION, self.origin, committed)
-            self.log_prob[:n] = store.read_rows(LOG_PROB, self.origin, committed)
-            self.accepted[:n] = store.read_rows(ACCEPTED, self.origin, committed)
-            for k, b in enumerate(store.blob_names):
-                self.blobs[k, :n] = store.read_rows(f"{BLOB}/{b}", self.origin, committed)
-
-    def rows(self, a: int, b: int, blob_names: tuple[str, ...]) -> dict[str, NDArray[Any]]:
-        """Rows for steps ``[a, b)`` (absolute step indices)."""
-        i, j = a - self.origin, b - self.origin
-        out: dict[str, NDArray[Any]] = {
-            POSITION: self.position[i:j],
-            LOG_PROB: self.log_prob[i:j],
-            ACCEPTED: self.accepted[i:j],
-        }
-        for k, name in enumerate(blob_names):
-            out[f"{BLOB}/{name}"] = self.blobs[k, i:j]
-        return out
-
-    def drop_before(self, committed: int) -> None:
-        """Forget full chunks before ``committed``; keep its chunk's rows."""
-        new_origin = (committed // self.chunk) * self.chunk
-        shift = new_origin - self.origin
-        if shift <= 0:
-            return
-        keep = self.fill - shift
-        for arr in (self.position, self.log_prob, self.accepted):
-            arr[:keep] = arr[shift : self.fill]
-        self.blobs[:, :keep] = self.blobs[:, shift : self.fill]
-        self.origin, self.fill = new_origin, keep
-
-
-def _checksums(
-    record: dict[str, list[str]], buf: _Buffer, a: int, b: int, names: tuple[str, ...]
-) -> dict[str, list[str]]:
-    """Update per-chunk checksums for the chunks touched by steps ``[a, b)``."""
-    out = {k: list(v) for k, v in record.items()}
-    size = buf.chunk
-    for ci in range(a // size, (b - 1) // size + 1):
-        lo, hi = ci * size, min((ci + 1) * size, b)
-        rows = buf.rows(lo, hi, names)
-        for name, values in rows.items():
-            sums = out.setdefault(name, [])
-            while len(sums) <= ci:
-                sums.append("")
-            sums[ci] = chunk_checksum(values)
-    return out
 
 
 def _store_attrs(config: RunConfig, replica: int, identity: dict[str, Any]) -> dict[str, Any]:
@@ -382,7 +309,7 @@ def _advance(
     )
     bytes_per_step = walkers * (n_params + 2 + n_blobs) * 8
     pending_cap = max(1, min(st.commit_every_steps, MAX_PENDING_BYTES // bytes_per_step))
-    buf = _Buffer(walkers, n_params, n_blobs, store.chunk_steps, pending_cap)
+    buf = StepBuffer(walkers, n_params, n_blobs, store.chunk_steps, pending_cap)
     buf.load_tail(store, done)
     segment = {
         "kind": kind,
@@ -413,7 +340,9 @@ def _advance(
             return
         store.write_rows(committed, buf.rows(committed, upto, blob_names), fsync=fsync)
         new = dict(record)
-        new["checksums"] = _checksums(record.get("checksums", {}), buf, committed, upto, blob_names)
+        new["checksums"] = update_checksums(
+            record.get("checksums", {}), buf, committed, upto, blob_names
+        )
         new["steps_done"] = upto
         new["random_state"] = driver.random_state()
         new["updated_utc"] = utc_now()

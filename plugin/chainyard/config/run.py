@@ -1,0 +1,256 @@
+"""The run configuration as a whole: validation, messages, YAML loading, JSON Schema."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+from typing import Any
+
+import yaml
+from pydantic import (
+    Field,
+    PrivateAttr,
+    ValidationError,
+    model_validator,
+)
+
+from chainyard.config._base import JSON_SCHEMA_DIALECT, _Strict
+from chainyard.config.policies import (
+    BurnInSpec,
+    DefaultBurnIn,
+    ExtendSpec,
+    NoThinning,
+    TargetsSpec,
+    ThinningSpec,
+)
+from chainyard.config.sections import GaussianMove, ModelSpec, Parameter, SamplerSpec, StorageSpec
+from chainyard.errors import ConfigError
+
+# --------------------------------------------------------------------------- run
+
+
+class RunConfig(_Strict):
+    """One sampling run."""
+
+    model: ModelSpec
+    parameters: tuple[Parameter, ...] = Field(description="Parameters in theta order.")
+    sampler: SamplerSpec
+    storage: StorageSpec = Field(default_factory=StorageSpec)
+    seed: int = Field(ge=0, description="Root seed; replicas get independent spawned streams.")
+    replicas: int = Field(default=1, ge=1, description="Independent replicas (for workflows).")
+    targets: TargetsSpec = Field(default_factory=TargetsSpec)
+    burn_in: BurnInSpec = Field(
+        default_factory=lambda: DefaultBurnIn(policy="default"),
+        description="How many initial steps to discard (default: MSER-5 and 2 x tau).",
+    )
+    thinning: ThinningSpec = Field(
+        default_factory=lambda: NoThinning(policy="none"),
+        description="Whether to keep only every k-th step (default: keep all).",
+    )
+    extend_until_targets: ExtendSpec | None = Field(
+        default=None,
+        description=(
+            "If set, `sample --until-targets` extends the run until the per-replica targets "
+            "(ESS, steps per tau) hold or the budget is spent."
+        ),
+    )
+    description: str | None = Field(default=None, description="Free text for reports.")
+
+    _base_dir: Path = PrivateAttr(default_factory=Path.cwd)
+    _source: str = PrivateAttr(default="<config>")
+
+    @model_validator(mode="after")
+    def _consistent(self) -> RunConfig:
+        if not self.parameters:
+            raise ValueError("parameters: at least one parameter is required")
+        if not self.sampler.moves:
+            raise ValueError("sampler.moves: at least one move is required")
+        names = [p.name for p in self.parameters]
+        dupes = sorted({n for n in names if names.count(n) > 1})
+        if dupes:
+            raise ValueError(f"parameter names must be unique; repeated: {', '.join(dupes)}")
+        n = len(names)
+        if self.sampler.walkers < 2 * n:
+            raise ValueError(
+                f"sampler.walkers = {self.sampler.walkers}: must be at least 2 x parameters "
+                f"= {2 * n}"
+            )
+        if self.sampler.initial_positions is None:
+            missing = [p.name for p in self.parameters if p.init is None]
+            if missing:
+                raise ValueError(
+                    "parameters without 'init' (and no sampler.initial_positions file): "
+                    + ", ".join(missing)
+                )
+        blob_dupes = sorted({b for b in self.sampler.blobs if self.sampler.blobs.count(b) > 1})
+        if blob_dupes:
+            raise ValueError(f"sampler.blobs must be unique; repeated: {', '.join(blob_dupes)}")
+        for i, move in enumerate(self.sampler.moves):
+            sd = move.proposal_sd if isinstance(move, GaussianMove) else None
+            if isinstance(sd, tuple) and len(sd) != n:
+                raise ValueError(
+                    f"sampler.moves[{i}].proposal_sd has {len(sd)} values; "
+                    f"need 1 or {n} (one per parameter)"
+                )
+        return self
+
+    # ------------------------------------------------------------------ helpers
+    @property
+    def base_dir(self) -> Path:
+        """Directory that relative paths in this config are resolved against."""
+        return self._base_dir
+
+    @property
+    def source(self) -> str:
+        """Where this config was read from (for messages)."""
+        return self._source
+
+    @property
+    def param_names(self) -> tuple[str, ...]:
+        """Parameter names in theta order."""
+        return tuple(p.name for p in self.parameters)
+
+    def resolve(self, path: str) -> Path:
+        """Resolve a path written in the config against the config's directory."""
+        p = Path(path)
+        return p if p.is_absolute() else (self._base_dir / p)
+
+    def normalised(self) -> dict[str, Any]:
+        """All settings with defaults filled in, as plain JSON-compatible values."""
+        return json.loads(json.dumps(self.model_dump(mode="json"), sort_keys=True))
+
+    def sampling_settings(self) -> dict[str, Any]:
+        """The normalised settings the draws depend on (for workflow rerun triggers).
+
+        Everything except decisions, targets, free text and the replica count: changing
+        burn-in or thinning must not resample, and adding replicas must not resample the
+        existing ones.
+        """
+        norm = self.normalised()
+        for key in (
+            "burn_in",
+            "thinning",
+            "targets",
+            "description",
+            "extend_until_targets",
+            "replicas",
+        ):
+            norm.pop(key, None)
+        return norm
+
+    def with_steps(self, steps: int) -> RunConfig:
+        """A copy with a different total step count (same base directory)."""
+        data = self.model_dump()
+        data["sampler"]["steps"] = steps
+        return parse_config(data, base_dir=self._base_dir, source=self._source)
+
+
+def config_hash(settings: dict[str, Any]) -> str:
+    """SHA-256 of the canonical JSON (sorted keys, no spaces) of ``settings``."""
+    blob = json.dumps(settings, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    return hashlib.sha256(blob.encode()).hexdigest()
+
+
+def format_validation_error(error: ValidationError, source: str) -> list[str]:
+    """Turn a pydantic error into one line per problem: file, field path, value, what is allowed.
+
+    Parameters
+    ----------
+    error : ValidationError
+        The error pydantic raised.
+    source : str
+        The config file's name, prefixed to every line.
+    """
+    lines = []
+    for item in error.errors(include_url=False):
+        loc = _clean_loc(item["loc"], item["type"])
+        where = f"{source}: {loc}" if loc else source
+        kind = item["type"]
+        msg = item["msg"]
+        if msg.startswith("Value error, "):
+            msg = msg[len("Value error, ") :]
+        if kind == "extra_forbidden":
+            lines.append(f"{where}: unknown key (check the spelling; see `chainyard schema`)")
+        elif kind == "missing":
+            lines.append(f"{where}: required key is missing")
+        else:
+            value = item.get("input")
+            shown = _short(value)
+            lines.append(f"{where} = {shown}: {msg}" if loc else f"{where}: {msg}")
+    return lines
+
+
+def _clean_loc(loc: tuple[int | str, ...], kind: str) -> str:
+    parts: list[str] = []
+    for part in loc:
+        if isinstance(part, int):
+            parts.append(f"[{part}]")
+        else:
+            parts.append(f".{part}")
+    text = "".join(parts).lstrip(".")
+    # pydantic puts the union tag into the path for tagged unions: drop the repeat
+    for tag in ("stretch", "walk", "differential_evolution", "de_snooker", "gaussian"):
+        text = text.replace(f".{tag}.", ".").removesuffix(f".{tag}") if ".moves[" in text else text
+    for tag in ("normal", "uniform"):
+        text = text.replace(f".init.{tag}.{tag}", f".init.{tag}")
+    return text
+
+
+def _short(value: Any) -> str:
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def parse_config(data: Any, *, base_dir: Path | None = None, source: str = "<config>") -> RunConfig:
+    """Validate a mapping as a :class:`RunConfig`.
+
+    Raises
+    ------
+    ConfigError
+        With one line per problem.
+    """
+    if not isinstance(data, dict):
+        raise ConfigError(f"{source}: must be a mapping of settings, got {type(data).__name__}")
+    try:
+        config = RunConfig.model_validate(data)
+    except ValidationError as exc:
+        raise ConfigError(format_validation_error(exc, source)) from None
+    config._base_dir = (base_dir or Path.cwd()).resolve()
+    config._source = source
+    return config
+
+
+def load_config(path: str | Path) -> RunConfig:
+    """Read and validate a YAML (or JSON) run configuration.
+
+    Parameters
+    ----------
+    path : str or Path
+        The config file. Relative paths inside it are resolved against its directory.
+
+    Raises
+    ------
+    ConfigError
+        If the file cannot be read or any setting is invalid.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text()
+    except FileNotFoundError:
+        raise ConfigError(f"{path}: config file not found") from None
+    except OSError as exc:
+        raise ConfigError(f"{path}: cannot read config file ({exc.strerror})") from None
+    try:
+        data = yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}" if mark is not None else ""
+        raise ConfigError(f"{path}: not valid YAML{where}") from None
+    return parse_config(data, base_dir=path.parent, source=str(path))
+
+
+def json_schema() -> dict[str, Any]:
+    """The JSON Schema of :class:`RunConfig`, with ``$schema`` set (for snakemake validate)."""
+    schema = RunConfig.model_json_schema()
+    return {"$schema": JSON_SCHEMA_DIALECT, **schema}

@@ -1,0 +1,275 @@
+"""Config sections of one run: model, parameters, sampler and moves, storage."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal
+
+from pydantic import (
+    BaseModel,
+    Discriminator,
+    Field,
+    Tag,
+    field_validator,
+    model_validator,
+)
+
+from chainyard.config._base import _Strict
+
+# --------------------------------------------------------------------------- model
+
+
+class ModelSpec(_Strict):
+    """Where the log-probability function and its data come from."""
+
+    log_prob: str = Field(
+        description=(
+            "The log-probability function, as 'path/to/module.py:function' (path relative to "
+            "the config file) or 'package.module:function' (importable). Called as "
+            "log_prob(theta, data); theta has shape (params,), or (walkers, params) when "
+            "'vectorized' is true."
+        ),
+        examples=["model.py:log_prob"],
+    )
+    data: str | None = Field(
+        default=None,
+        description=(
+            "Optional data file (.csv with a header row, .npz, .json), relative to the config "
+            "file; loaded once and passed as the second argument. None: data is None."
+        ),
+    )
+    data_loader: str | None = Field(
+        default=None,
+        description=(
+            "Optional function 'module.py:function' or 'package.module:function' called as "
+            "loader(path) to load 'data' instead of the built-in readers."
+        ),
+    )
+    vectorized: bool = Field(
+        default=False,
+        description=(
+            "True if log_prob takes all walkers at once: theta (walkers, params) -> (walkers,)."
+        ),
+    )
+    extra_sources: tuple[str, ...] = Field(
+        default=(),
+        description=(
+            "Further source files (relative to the config file) whose content is part of the "
+            "model's identity, e.g. helper modules the model imports."
+        ),
+    )
+
+    @field_validator("log_prob", "data_loader")
+    @classmethod
+    def _function_reference(cls, value: str | None) -> str | None:
+        if value is None:
+            return value
+        module, sep, func = value.rpartition(":")
+        if not sep or not module or not func.isidentifier():
+            raise ValueError(
+                "must look like 'path/to/module.py:function' or 'package.module:function'"
+            )
+        return value
+
+
+# --------------------------------------------------------------------------- parameters
+
+
+class NormalSpec(_Strict):
+    loc: float = Field(description="Centre of the normal ball (parameter units).")
+    scale: float = Field(gt=0, description="Standard deviation of the ball (parameter units).")
+
+
+class UniformSpec(_Strict):
+    low: float = Field(description="Lower edge of the box (parameter units).")
+    high: float = Field(description="Upper edge of the box (parameter units).")
+
+    @model_validator(mode="after")
+    def _ordered(self) -> UniformSpec:
+        if not self.high > self.low:
+            raise ValueError(f"high ({self.high}) must be greater than low ({self.low})")
+        return self
+
+
+class NormalInit(_Strict):
+    """Walkers start at loc + scale * N(0, 1)."""
+
+    normal: NormalSpec
+
+
+class UniformInit(_Strict):
+    """Walkers start uniformly in [low, high)."""
+
+    uniform: UniformSpec
+
+
+def _init_kind(value: Any) -> str | None:
+    if isinstance(value, dict) and len(value) == 1:
+        return next(iter(value))
+    if isinstance(value, BaseModel):
+        return next(iter(type(value).model_fields))
+    return None
+
+
+InitSpec = Annotated[
+    Annotated[NormalInit, Tag("normal")] | Annotated[UniformInit, Tag("uniform")],
+    Discriminator(
+        _init_kind,
+        custom_error_type="init_kind",
+        custom_error_message="must be exactly one of {normal: {loc, scale}} or "
+        "{uniform: {low, high}}",
+    ),
+]
+
+
+class Parameter(_Strict):
+    """One model parameter, in the order theta holds them."""
+
+    name: str = Field(pattern=r"^[A-Za-z_][A-Za-z0-9_.\-]*$", description="Parameter name.")
+    init: InitSpec | None = Field(
+        default=None,
+        description=(
+            "How walkers are initialised for this parameter. Required unless the sampler's "
+            "'initial_positions' file is given."
+        ),
+    )
+    bounds: tuple[float | None, float | None] | None = Field(
+        default=None,
+        description=(
+            "Optional [low, high] support (either may be null). Outside it log_prob is -inf "
+            "and the model is not called."
+        ),
+    )
+    unit: str | None = Field(default=None, description="Unit for labels in plots and tables.")
+    label: str | None = Field(default=None, description="Longer human label for plots.")
+
+    @field_validator("bounds")
+    @classmethod
+    def _bounds_ordered(
+        cls, value: tuple[float | None, float | None] | None
+    ) -> tuple[float | None, float | None] | None:
+        if value is not None:
+            low, high = value
+            if low is not None and high is not None and not high > low:
+                raise ValueError(f"high ({high}) must be greater than low ({low})")
+        return value
+
+
+# --------------------------------------------------------------------------- sampler
+
+
+class _Move(_Strict):
+    weight: float = Field(default=1.0, gt=0, description="Relative probability of this move.")
+
+
+class StretchMove(_Move):
+    """Affine-invariant stretch move (Goodman and Weare 2010)."""
+
+    kind: Literal["stretch"]
+    scale: float = Field(default=2.0, gt=1, description="Stretch scale a (> 1).")
+
+
+class WalkMove(_Move):
+    """Affine-invariant walk move (Goodman and Weare 2010)."""
+
+    kind: Literal["walk"]
+    subset_size: int | None = Field(
+        default=None, ge=2, description="Walkers in the complementary subset; None: all."
+    )
+
+
+class DifferentialEvolutionMove(_Move):
+    """Differential-evolution proposal (ter Braak 2006; Nelson et al. 2014)."""
+
+    kind: Literal["differential_evolution"]
+    jitter: float = Field(default=1e-5, ge=0, description="Scale of the Gaussian jitter.")
+    step_factor: float | None = Field(
+        default=None, gt=0, description="Mean step factor gamma0; None: 2.38/sqrt(2*params)."
+    )
+
+
+class DESnookerMove(_Move):
+    """Differential-evolution snooker update (ter Braak and Vrugt 2008)."""
+
+    kind: Literal["de_snooker"]
+    step_factor: float = Field(default=1.7, gt=0, description="Snooker step factor gamma.")
+
+
+class GaussianMove(_Move):
+    """Gaussian random-walk Metropolis-Hastings proposal per walker."""
+
+    kind: Literal["gaussian"]
+    proposal_sd: float | tuple[float, ...] = Field(
+        description="Proposal standard deviation: one value, or one per parameter."
+    )
+    update: Literal["vector", "random", "sequential"] = Field(
+        default="vector",
+        description="Update all coordinates at once, one random coordinate, or cycle.",
+    )
+
+
+MoveSpec = Annotated[
+    StretchMove | WalkMove | DifferentialEvolutionMove | DESnookerMove | GaussianMove,
+    Field(discriminator="kind"),
+]
+
+
+class SamplerSpec(_Strict):
+    """The ensemble sampler."""
+
+    walkers: int = Field(ge=2, description="Number of walkers (at least 2 x parameters).")
+    steps: int = Field(ge=1, description="Total number of steps in the finished run.")
+    moves: tuple[MoveSpec, ...] = Field(
+        default=(StretchMove(kind="stretch"),),
+        description="Proposal moves with weights. Default: one stretch move with scale 2.",
+    )
+    blobs: tuple[str, ...] = Field(
+        default=(),
+        description=(
+            "Names of extra scalar values log_prob returns after the log-probability, "
+            "stored per step and walker."
+        ),
+    )
+    initial_positions: str | None = Field(
+        default=None,
+        description=(
+            "Optional .npy or .csv file of shape (walkers, params) with every walker's start; "
+            "overrides the parameters' 'init'."
+        ),
+    )
+    init_retries: int = Field(
+        default=100,
+        ge=0,
+        description=(
+            "Times a walker whose start has log_prob -inf is redrawn from its 'init' before "
+            "the run is refused."
+        ),
+    )
+
+
+# --------------------------------------------------------------------------- storage
+
+
+class StorageSpec(_Strict):
+    """How draws are stored and committed."""
+
+    chunk_steps: int = Field(
+        default=1000, ge=1, description="Steps per stored chunk (zarr chunk length)."
+    )
+    commit_every_steps: int = Field(
+        default=2000, ge=1, description="Commit at least every this many steps."
+    )
+    commit_every_seconds: float = Field(
+        default=30.0, gt=0, description="Commit at least every this many seconds (wall time)."
+    )
+    codec: Literal["pcodec", "zstd", "blosc_zstd", "lz4", "none"] = Field(
+        default="pcodec",
+        description=(
+            "Lossless codec for the float arrays. pcodec stores about 30 bytes per 10-D draw "
+            "(raw: 80); zstd about 32 and faster to write; none stores raw bytes."
+        ),
+    )
+    level: int | None = Field(default=None, ge=0, le=22, description="Codec level; None: default.")
+    fsync: bool = Field(
+        default=True,
+        description="Flush every commit to disk before it counts (survives power loss).",
+    )
