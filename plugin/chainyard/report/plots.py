@@ -20,8 +20,16 @@ from chainyard.store import Store
 __all__ = ["acceptance_plot", "axis_label", "pairs_plot", "tau_history_plot", "trace_plot"]
 
 #: one colour per replica (cycled): a muted palette of our own
-REPLICA_COLOURS = ("#2f5d8a", "#c4572f", "#3f8f5a", "#8c4f9e", "#b08d1a", "#4a8f9e",
-                   "#9e4a6a", "#5e5e5e")
+REPLICA_COLOURS = (
+    "#2f5d8a",
+    "#c4572f",
+    "#3f8f5a",
+    "#8c4f9e",
+    "#b08d1a",
+    "#4a8f9e",
+    "#9e4a6a",
+    "#5e5e5e",
+)
 INK = "#222222"
 CUT_COLOUR = "#b22222"
 MAX_POINTS = 2000
@@ -31,11 +39,11 @@ def _colour(i: int) -> str:
     return REPLICA_COLOURS[i % len(REPLICA_COLOURS)]
 
 
-def axis_label(store: Store, name: str) -> str:
-    """``label [unit]`` of a parameter from the run config (name when no label)."""
+def axis_label(store: Store, name: str, *, short: bool = False) -> str:
+    """``label [unit]`` of a parameter from the run config (``name [unit]`` if ``short``)."""
     for p in store.config.parameters:
         if p.name == name:
-            text = p.label or p.name
+            text = p.name if short or not p.label else p.label
             return f"{text} [{p.unit}]" if p.unit else text
     return name
 
@@ -56,8 +64,9 @@ def _save(fig: Any, path: str | Path) -> None:
 def trace_plot(stores: Sequence[Store], cut: int, path: str | Path) -> None:
     """Walker-mean trace and 5-95% walker band per replica, with the burn-in cut marked."""
     names = stores[0].param_names
-    fig, axes = plt.subplots(len(names) + 1, 1, figsize=(9, 1.9 * (len(names) + 1)),
-                             sharex=True, squeeze=False)
+    fig, axes = plt.subplots(
+        len(names) + 1, 1, figsize=(9, 1.9 * (len(names) + 1)), sharex=True, squeeze=False
+    )
     steps = min(s.steps_done for s in stores)
     stride = max(1, steps // MAX_POINTS)
     x = np.arange(0, steps, stride)
@@ -68,14 +77,21 @@ def trace_plot(stores: Sequence[Store], cut: int, path: str | Path) -> None:
             col = col[::stride]
             lo, hi = np.quantile(col, [0.05, 0.95], axis=1)
             ax.fill_between(x, lo, hi, color=_colour(i), alpha=0.15, linewidth=0)
-            ax.plot(x, col.mean(axis=1), color=_colour(i), linewidth=0.9,
-                    label=f"replica {s.replica}")
+            ax.plot(
+                x, col.mean(axis=1), color=_colour(i), linewidth=0.9, label=f"replica {s.replica}"
+            )
         ax.axvline(cut, color=CUT_COLOUR, linestyle="--", linewidth=1.0)
         ax.set_ylabel("log-prob" if j < 0 else axis_label(stores[0], names[j]), fontsize=8)
         _style(ax)
-    axes[0, 0].annotate(f"burn-in cut: step {cut:,}", xy=(cut, 1.0),
-                        xycoords=("data", "axes fraction"), xytext=(4, -10),
-                        textcoords="offset points", color=CUT_COLOUR, fontsize=8)
+    axes[0, 0].annotate(
+        f"burn-in cut: step {cut:,}",
+        xy=(cut, 1.0),
+        xycoords=("data", "axes fraction"),
+        xytext=(4, -10),
+        textcoords="offset points",
+        color=CUT_COLOUR,
+        fontsize=8,
+    )
     axes[0, 0].legend(fontsize=7, ncols=min(4, len(stores)), loc="lower right", frameon=False)
     axes[-1, 0].set_xlabel("step", fontsize=9)
     fig.suptitle("Traces: walker mean (line) and 5-95% of walkers (band)", fontsize=10)
@@ -97,20 +113,24 @@ def tau_history_plot(stores: Sequence[Store], path: str | Path) -> None:
             longest = max(longest, int(lengths[-1]))
         ref = np.geomspace(10, max(longest, 20), 20)
         ax.loglog(ref, ref / 50, color=INK, linestyle=":", linewidth=1, label="steps / 50")
-        ax.set_title(axis_label(stores[0], name), fontsize=8)
+        ax.set_title(axis_label(stores[0], name, short=True), fontsize=8)
         ax.set_xlabel("steps used", fontsize=8)
         ax.set_ylabel("tau [steps]", fontsize=8)
         _style(ax)
     axes[0, 0].legend(fontsize=7, frameon=False)
     for k in range(len(names), nrow * ncol):
         axes[k // ncol, k % ncol].set_visible(False)
-    fig.suptitle("Autocorrelation time vs steps: trust tau where it is flat and below the "
-                 "dotted line", fontsize=9)
+    fig.suptitle(
+        "Autocorrelation time vs steps: trust tau where it is flat and below the dotted line",
+        fontsize=9,
+        y=1.03,
+    )
     _save(fig, path)
 
 
-def pairs_plot(stores: Sequence[Store], path: str | Path, max_params: int = 6,
-               max_draws: int = 20_000) -> None:
+def pairs_plot(
+    stores: Sequence[Store], path: str | Path, max_params: int = 6, max_draws: int = 20_000
+) -> None:
     """Pairwise marginals of the pooled final draws (subsampled evenly)."""
     names = stores[0].param_names[:max_params]
     cols = []
@@ -134,34 +154,50 @@ def pairs_plot(stores: Sequence[Store], path: str | Path, max_params: int = 6,
             else:
                 ax.hist2d(data[c], data[r], bins=40, cmap="Blues")
             if r == k - 1:
-                ax.set_xlabel(axis_label(stores[0], names[c]), fontsize=7)
+                ax.set_xlabel(axis_label(stores[0], names[c], short=True), fontsize=7)
             if c == 0 and r > 0:
-                ax.set_ylabel(axis_label(stores[0], names[r]), fontsize=7)
+                ax.set_ylabel(axis_label(stores[0], names[r], short=True), fontsize=7)
             ax.tick_params(labelsize=6)
-    fig.suptitle("Pairwise marginals (after burn-in and thinning, replicas pooled)",
-                 fontsize=9)
+    fig.suptitle("Pairwise marginals (after burn-in and thinning, replicas pooled)", fontsize=9)
     _save(fig, path)
 
 
-def acceptance_plot(stores: Sequence[Store], path: str | Path,
-                    diagnostics: dict[str, Any] | None = None) -> None:
+def acceptance_plot(
+    stores: Sequence[Store], path: str | Path, diagnostics: dict[str, Any] | None = None
+) -> None:
     """Acceptance fraction of every walker per replica, with the 0.2-0.5 band shaded."""
     fig, ax = plt.subplots(figsize=(9, 2.8))
     ax.axhspan(0.2, 0.5, color="#e8f1e4", label="0.2-0.5 (common practice)")
+    stuck = {
+        a["replica"]: set(a.get("stuck_walkers", []))
+        for a in (diagnostics or {}).get("acceptance", [])
+    }
     for i, s in enumerate(stores):
         frac = s.accepted().mean(axis=0)
         x = i * (s.walkers + 4) + np.arange(s.walkers)
-        ax.bar(x, frac, width=0.8, color=_colour(i), label=f"replica {s.replica}")
-    if diagnostics:
-        for a in diagnostics.get("acceptance", []):
-            for w in a.get("stuck_walkers", []):
-                i = [s.replica for s in stores].index(a["replica"])
-                ax.annotate("stuck", (i * (stores[i].walkers + 4) + w, 0.02), fontsize=6,
-                            color=CUT_COLOUR, rotation=90)
+        bad = np.array([w in stuck.get(s.replica, set()) for w in range(s.walkers)])
+        ax.bar(x[~bad], frac[~bad], width=0.8, color=_colour(i), label=f"replica {s.replica}")
+        if bad.any():
+            ax.bar(
+                x[bad],
+                frac[bad],
+                width=0.8,
+                color="white",
+                edgecolor=_colour(i),
+                hatch="////",
+                linewidth=0.8,
+            )
+    handles, _ = ax.get_legend_handles_labels()
+    if any(stuck.values()):
+        from matplotlib.patches import Patch
+
+        handles.append(Patch(facecolor="white", edgecolor=INK, hatch="////", label="stuck walker"))
     ax.set_ylabel("acceptance fraction", fontsize=8)
     ax.set_xticks([])
     ax.set_xlabel("walkers, grouped by replica", fontsize=8)
     ax.set_ylim(0, 1)
     _style(ax)
-    ax.legend(fontsize=7, ncols=min(5, len(stores) + 1), frameon=False, loc="upper right")
+    ax.legend(
+        handles=handles, fontsize=7, ncols=min(6, len(handles)), frameon=False, loc="upper right"
+    )
     _save(fig, path)
