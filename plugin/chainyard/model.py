@@ -256,6 +256,13 @@ class LoadedModel:
         ndarray, shape (walkers,) or (walkers, 1 + n_blobs)
             Log-probability (and blobs, NaN for walkers outside the bounds).
         """
+        if self.n_blobs == 0 and not self.bounded:
+            lp = (
+                self._call_vectorized_plain(thetas) if self.vectorized else self._loop_plain(thetas)
+            )
+            if not (lp < np.inf).all():  # one pass finds both NaN and +inf
+                self._raise_bad(thetas, lp)
+            return lp
         n = thetas.shape[0]
         inside = np.all((thetas >= self.lower) & (thetas <= self.upper), axis=1)
         out = np.full((n, 1 + self.n_blobs), np.nan)
@@ -274,12 +281,53 @@ class LoadedModel:
                     except Exception as exc:
                         raise self._fail(theta, f"raised {type(exc).__name__}: {exc}") from None
                     out[i, 0], out[i, 1:] = self._split_scalar(result, theta)
-        bad = np.flatnonzero(np.isnan(out[:, 0]))
-        if bad.size:
-            raise self._fail(thetas[bad[0]], "returned NaN")
-        if np.any(out[:, 0] == np.inf):
-            raise self._fail(thetas[np.flatnonzero(out[:, 0] == np.inf)[0]], "returned +inf")
+        if not (out[:, 0] < np.inf).all():
+            self._raise_bad(thetas, out[:, 0])
         return out[:, 0] if self.n_blobs == 0 else out
+
+    @property
+    def bounded(self) -> bool:
+        """Whether any parameter has a finite bound."""
+        return bool(np.isfinite(self.lower).any() or np.isfinite(self.upper).any())
+
+    def _raise_bad(self, thetas: NDArray[np.float64], lp: NDArray[np.float64]) -> None:
+        nan = np.flatnonzero(np.isnan(lp))
+        if nan.size:
+            raise self._fail(thetas[nan[0]], "returned NaN")
+        raise self._fail(thetas[np.flatnonzero(lp == np.inf)[0]], "returned +inf")
+
+    def _loop_plain(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Fast path: one call per walker, no bounds, no blobs."""
+        f, data = self.func, self.data
+        lp = np.empty(thetas.shape[0])
+        for i in range(thetas.shape[0]):
+            theta = thetas[i]
+            try:
+                value = f(theta, data)
+            except Exception as exc:
+                raise self._fail(theta, f"raised {type(exc).__name__}: {exc}") from None
+            try:
+                lp[i] = value
+            except (TypeError, ValueError):
+                raise self._fail(theta, f"returned a non-number ({_short(value)})") from None
+        return lp
+
+    def _call_vectorized_plain(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Fast path: all walkers in one call, no bounds, no blobs."""
+        try:
+            result = self.func(thetas, self.data)
+        except Exception as exc:
+            raise self._fail(thetas[0], f"raised {type(exc).__name__}: {exc}") from None
+        try:
+            lp = np.asarray(result, dtype=np.float64).reshape(-1)
+        except (TypeError, ValueError):
+            raise self._fail(thetas[0], "returned a non-numeric array") from None
+        if lp.shape != (thetas.shape[0],):
+            raise self._fail(
+                thetas[0],
+                f"(vectorized) must return shape ({thetas.shape[0]},), got {np.shape(result)}",
+            )
+        return lp
 
     def _call_vectorized(
         self, thetas: NDArray[np.float64], idx: NDArray[np.intp], out: NDArray[np.float64]

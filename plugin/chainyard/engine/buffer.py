@@ -7,6 +7,7 @@ stored are kept, or reloaded on resume).
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -15,7 +16,7 @@ from numpy.typing import NDArray
 from chainyard.store import Store, chunk_checksum
 from chainyard.store.layout import ACCEPTED, BLOB, LOG_PROB, POSITION
 
-__all__ = ["StepBuffer", "update_checksums"]
+__all__ = ["Snapshot", "StepBuffer", "update_checksums"]
 
 
 class StepBuffer:
@@ -75,17 +76,36 @@ class StepBuffer:
 
 
 def update_checksums(
-    record: dict[str, list[str]], buf: StepBuffer, a: int, b: int, names: tuple[str, ...]
+    record: dict[str, list[str]],
+    rows: Callable[[int, int], dict[str, NDArray[Any]]],
+    a: int,
+    b: int,
+    chunk: int,
 ) -> dict[str, list[str]]:
-    """Update per-chunk checksums for the chunks touched by steps ``[a, b)``."""
+    """Per-chunk checksums updated for the chunks touched by steps ``[a, b)``.
+
+    ``rows(lo, hi)`` returns every array's rows for steps ``[lo, hi)``; it is asked for whole
+    chunks (from the chunk boundary at or before ``a``).
+    """
     out = {k: list(v) for k, v in record.items()}
-    size = buf.chunk
-    for ci in range(a // size, (b - 1) // size + 1):
-        lo, hi = ci * size, min((ci + 1) * size, b)
-        rows = buf.rows(lo, hi, names)
-        for name, values in rows.items():
+    for ci in range(a // chunk, (b - 1) // chunk + 1):
+        lo, hi = ci * chunk, min((ci + 1) * chunk, b)
+        for name, values in rows(lo, hi).items():
             sums = out.setdefault(name, [])
             while len(sums) <= ci:
                 sums.append("")
             sums[ci] = chunk_checksum(values)
     return out
+
+
+class Snapshot:
+    """A copy of the rows ``[origin, stop)`` taken at a commit, owned by the writer thread."""
+
+    def __init__(self, buf: StepBuffer, start: int, stop: int, blob_names: tuple[str, ...]) -> None:
+        self.origin = (start // buf.chunk) * buf.chunk
+        self.stop = stop
+        self._rows = {k: v.copy() for k, v in buf.rows(self.origin, stop, blob_names).items()}
+
+    def rows(self, a: int, b: int) -> dict[str, NDArray[Any]]:
+        """Rows for steps ``[a, b)`` (absolute indices inside the snapshot)."""
+        return {k: v[a - self.origin : b - self.origin] for k, v in self._rows.items()}

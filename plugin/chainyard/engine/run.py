@@ -21,10 +21,11 @@ from typing import Any, TextIO
 import numpy as np
 
 from chainyard.config import RunConfig, config_hash
-from chainyard.engine.buffer import StepBuffer, update_checksums
+from chainyard.engine.buffer import Snapshot, StepBuffer, update_checksums
 from chainyard.engine.ensemble import EnsembleDriver
 from chainyard.engine.identity import describe_differences, run_identity
 from chainyard.engine.initial import initial_state
+from chainyard.engine.writer import CommitWriter
 from chainyard.errors import ChainyardError, ConfigError, StoreConflictError, StoreError
 from chainyard.model import LoadedModel, load_model
 from chainyard.progress import Progress
@@ -334,22 +335,36 @@ def _advance(
     accepted_sum = 0
     steps_here = 0
 
+    writer = CommitWriter()
+    chunk = store.chunk_steps
+
     def commit(upto: int) -> None:
-        nonlocal committed, record
+        """Hand steps ``[committed, upto)`` to the writer thread (the RNG state is taken now,
+        at a step boundary); sampling goes on while they are encoded, written and flushed."""
+        nonlocal committed
         if upto <= committed:
             return
-        store.write_rows(committed, buf.rows(committed, upto, blob_names), fsync=fsync)
-        new = dict(record)
-        new["checksums"] = update_checksums(
-            record.get("checksums", {}), buf, committed, upto, blob_names
-        )
-        new["steps_done"] = upto
-        new["random_state"] = driver.random_state()
-        new["updated_utc"] = utc_now()
-        seg = dict(new["segments"][-1], to_step=upto, ended_utc=new["updated_utc"])
-        new["segments"] = [*new["segments"][:-1], seg]
-        store.commit(new, fsync=fsync)
-        record = new
+        writer.wait()
+        snap = Snapshot(buf, committed, upto, blob_names)
+        rng = driver.random_state()
+        start = committed
+
+        def job() -> None:
+            nonlocal record
+            store.write_rows(start, snap.rows(start, upto), fsync=fsync)
+            new = dict(record)
+            new["checksums"] = update_checksums(
+                record.get("checksums", {}), snap.rows, start, upto, chunk
+            )
+            new["steps_done"] = upto
+            new["random_state"] = rng
+            new["updated_utc"] = utc_now()
+            seg = dict(new["segments"][-1], to_step=upto, ended_utc=new["updated_utc"])
+            new["segments"] = [*new["segments"][:-1], seg]
+            store.commit(new, fsync=fsync)  # the commit point
+            record = new
+
+        writer.submit(job)
         committed = upto
         buf.drop_before(committed)
 
@@ -378,13 +393,16 @@ def _advance(
             if stop.signum is not None:
                 # at a step boundary: the RNG state matches the last buffered step
                 commit(step)
+                writer.wait()
                 name = signal.Signals(stop.signum).name
                 reporter.message(
                     f"stopped by {name} at step {committed:,} of {target:,}; rerun to continue"
                 )
                 raise Interrupted(stop.signum)
         commit(step)
+        writer.wait()
     finally:
+        writer.wait(raise_error=False)  # an in-flight commit of finished steps completes
         acc = accepted_sum / (steps_here * walkers) if steps_here else float("nan")
         reporter.update(step, acc)
         reporter.close(acc)
