@@ -285,10 +285,9 @@ class LoadedModel:
             self._raise_bad(thetas, out[:, 0])
         return out[:, 0] if self.n_blobs == 0 else out
 
-    @property
-    def bounded(self) -> bool:
-        """Whether any parameter has a finite bound."""
-        return bool(np.isfinite(self.lower).any() or np.isfinite(self.upper).any())
+    def __post_init__(self) -> None:
+        self.bounded = bool(np.isfinite(self.lower).any() or np.isfinite(self.upper).any())
+        """Whether any parameter has a finite bound (outside them: -inf, model not called)."""
 
     def _raise_bad(self, thetas: NDArray[np.float64], lp: NDArray[np.float64]) -> None:
         nan = np.flatnonzero(np.isnan(lp))

@@ -31,6 +31,8 @@ from chainyard.streams import random_state_from_json, random_state_to_json, stat
 
 __all__ = ["EnsembleDriver", "build_moves"]
 
+_NO_BLOBS = np.empty((0, 0))
+
 
 def build_moves(moves: tuple[MoveSpec, ...], n_params: int) -> list[tuple[Any, float]]:
     """emcee move objects with their weights, from the config's move specs."""
@@ -153,8 +155,8 @@ class EnsembleDriver:
 
     def _from_emcee_blobs(self, blobs: Any, walkers: int) -> NDArray[np.float64]:
         if self._n_blobs == 0:
-            return np.empty((walkers, 0))
-        return np.asarray(blobs, dtype=np.float64).reshape(walkers, self._n_blobs).copy()
+            return _NO_BLOBS
+        return np.asarray(blobs, dtype=np.float64).reshape(walkers, self._n_blobs)
 
     def steps(self, n: int) -> Iterator[StepRows]:
         """Advance ``n`` steps; see :class:`chainyard.engine.protocol.SamplerDriver`."""
@@ -178,9 +180,9 @@ class EnsembleDriver:
                 walkers = state.coords.shape[0]
                 self._state = state
                 yield StepRows(
-                    position=state.coords.copy(),
-                    log_prob=np.array(state.log_prob, dtype=np.float64),
-                    accepted=np.array(self._recorder.last_accepted, dtype=bool),
+                    position=state.coords,
+                    log_prob=state.log_prob,
+                    accepted=self._recorder.last_accepted,
                     blobs=self._from_emcee_blobs(state.blobs, walkers),
                 )
         except ValueError as exc:

@@ -20,7 +20,10 @@ __all__ = ["SamplerDriver", "StepRows"]
 
 @dataclass(frozen=True)
 class StepRows:
-    """One step of every walker (arrays are owned by the receiver: drivers pass copies).
+    """One step of every walker.
+
+    The arrays may be the driver's own and are valid only until the next step: the receiver
+    copies what it keeps (the run loop copies them into its buffer at once).
 
     Attributes
     ----------
