@@ -4,7 +4,12 @@ Public API
 ----------
 load_config(path) -> RunConfig
 sample(config, store_path, replica=0) -> Store
-open_store(path) -> Store
+open_store(path) -> Store            (a store directory or a packed .zip)
+verify(target) -> VerifyReport      (chunks, counters, seal, provenance chain)
+replay(target, steps) -> ReplayResult
+provenance_record(target) -> dict   (format chainyard.provenance v1)
+pack_store(store, out) / unpack_store(pack, out)
+prov_json(record) -> str            (W3C PROV-JSON)
 """
 
 from __future__ import annotations
@@ -21,7 +26,13 @@ from chainyard.errors import (
     StoreConflictError,
     StoreError,
     StoreLockedError,
+    VerificationError,
 )
+from chainyard.provenance.pack import pack_store, unpack_store
+from chainyard.provenance.prov_json import prov_json
+from chainyard.provenance.record import provenance_record
+from chainyard.provenance.replay import replay
+from chainyard.provenance.verify import verify
 from chainyard.store import Store
 
 try:
@@ -31,7 +42,10 @@ except _metadata.PackageNotFoundError:  # running from a source tree
 
 
 def open_store(path: str | Path) -> Store:
-    """Open a chainyard store for reading (never executes code from it)."""
+    """Open a chainyard store for reading (never executes code from it).
+
+    ``path`` is a store directory or a single-file pack written by :func:`pack_store`.
+    """
     return Store.open(path)
 
 
@@ -44,10 +58,17 @@ __all__ = [
     "StoreConflictError",
     "StoreError",
     "StoreLockedError",
+    "VerificationError",
     "__version__",
     "json_schema",
     "load_config",
     "open_store",
+    "pack_store",
     "parse_config",
+    "prov_json",
+    "provenance_record",
+    "replay",
     "sample",
+    "unpack_store",
+    "verify",
 ]

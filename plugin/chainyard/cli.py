@@ -212,6 +212,9 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--output", "-o", default=None, help="write to this file instead")
     p.set_defaults(func=_cmd_schema)
 
+    from chainyard.provenance.commands import add_commands
+
+    add_commands(sub)  # verify, inspect, pack, unpack, export-prov
     return parser
 
 

@@ -14,6 +14,7 @@ __all__ = [
     "StoreConflictError",
     "StoreError",
     "StoreLockedError",
+    "VerificationError",
 ]
 
 
@@ -73,3 +74,13 @@ class StoreLockedError(StoreError):
     """Another process holds the store's write lock."""
 
     exit_code = 6
+
+
+class VerificationError(ChainyardError):
+    """A store, pack or record failed verification or replay (a byte, counter or hash differs).
+
+    Also raised when a replay cannot start because the model or data no longer match their
+    recorded hashes.
+    """
+
+    exit_code = 7

@@ -20,8 +20,15 @@ is chunked along steps only (``storage.chunk_steps`` rows per chunk).
 
 Group attributes (``zarr.json`` -> ``attributes.chainyard``): ``format``, ``format_version``,
 ``param_names``, ``blob_names``, ``walkers``, ``replica``, ``seed``, ``config`` (normalised),
-``config_hash``, ``identity`` (everything that determines the draws, with content hashes) and
-``provenance`` (software and host at creation).
+``config_hash``, ``identity`` (everything that determines the draws, with content hashes),
+``provenance`` (software and host at creation) and ``created_by`` (software, host, git state
+and time of the process that created this store: for a derived store, the derivation).
+
+``commit.json`` holds ``steps_done``, ``random_state``, ``checksums`` (BLAKE2b-128 of the
+decoded rows of every committed chunk), ``segments`` and an ``integrity`` block (checksums of
+the stored chunk bytes and start state, the metadata seal, the RNG state at each segment's
+start; see :mod:`chainyard.store.integrity`). A store packed into one zip file has the same
+keys at the zip's root.
 """
 
 from __future__ import annotations

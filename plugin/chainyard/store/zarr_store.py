@@ -10,15 +10,18 @@ Commit protocol (crash safe at every instant):
    commit point.
 
 A crash before step 3 leaves the old record in force; rows past it are ignored and
-overwritten on resume. Reading never executes code: zarr metadata and JSON only.
+overwritten on resume. Every commit record carries an integrity block (checksums of the stored
+chunk bytes and a seal over the metadata; see :mod:`chainyard.store.integrity`). Reading never
+executes code: zarr metadata and JSON only. A store packed into a single zip file (``chainyard
+pack``) opens read-only with the same API.
 """
 
 from __future__ import annotations
 
-import hashlib
 import json
 import os
 import warnings
+import zipfile
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
@@ -28,6 +31,9 @@ import zarr
 from numpy.typing import NDArray
 
 from chainyard.errors import StoreError
+from chainyard.provenance import git_state, host_record, software_versions, utc_now
+from chainyard.store.files import atomic_write_json, fsync_dir
+from chainyard.store.integrity import chunk_checksum, seal_record
 from chainyard.store.layout import (
     ACCEPTED,
     ATTRS_KEY,
@@ -50,36 +56,6 @@ __all__ = ["Store", "atomic_write_json", "chunk_checksum"]
 warnings.filterwarnings("ignore", message="Numcodecs codecs are not in the Zarr")
 
 
-def atomic_write_json(path: Path, data: Any, *, fsync: bool) -> None:
-    """Replace ``path`` by JSON ``data`` atomically (temporary file + rename)."""
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    text = json.dumps(data, sort_keys=True, indent=1, allow_nan=False)
-    with open(tmp, "w") as f:
-        f.write(text)
-        if fsync:
-            f.flush()
-            os.fsync(f.fileno())
-    os.replace(tmp, path)
-    if fsync:
-        _fsync_dir(path.parent)
-
-
-def _fsync_dir(path: Path) -> None:
-    fd = os.open(path, os.O_RDONLY)
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
-
-
-def chunk_checksum(rows: NDArray[Any]) -> str:
-    """BLAKE2b-128 (hex) of an array's C-order bytes, prefixed by its shape and dtype."""
-    h = hashlib.blake2b(digest_size=16)
-    h.update(f"{rows.dtype.str}{rows.shape}".encode())
-    h.update(np.ascontiguousarray(rows).tobytes())
-    return h.hexdigest()
-
-
 class Store:
     """A chainyard run store on local disk.
 
@@ -89,13 +65,24 @@ class Store:
     Attributes
     ----------
     path : Path
-        The store directory.
+        The store directory (or the zip file of a packed store).
+    packed : bool
+        True for a store read from a single zip file (always read-only).
     """
 
-    def __init__(self, path: Path, group: zarr.Group, commit: dict[str, Any]) -> None:
+    def __init__(
+        self,
+        path: Path,
+        group: zarr.Group,
+        commit: dict[str, Any],
+        archive: zipfile.ZipFile | None = None,
+    ) -> None:
         self.path = path
         self._group = group
         self._commit = commit
+        self._archive = archive
+        self.packed = archive is not None
+        self._written: set[int] = set()  # chunk indices written since the last commit
         attrs = dict(group.attrs).get(ATTRS_KEY)
         if not isinstance(attrs, dict) or attrs.get("format") != FORMAT_NAME:
             raise StoreError(f"{path}: not a chainyard store (no '{ATTRS_KEY}' attributes)")
@@ -119,6 +106,11 @@ class Store:
         path = Path(path)
         if not path.exists():
             raise StoreError(f"{path}: store not found")
+        if path.is_file():
+            from chainyard.store.packed import open_packed
+
+            commit, group, archive = open_packed(path, writable=writable)
+            return cls(path, group, commit, archive)
         commit_path = path / COMMIT_FILE
         try:
             commit = json.loads(commit_path.read_text())
@@ -131,6 +123,12 @@ class Store:
         except Exception as exc:
             raise StoreError(f"{path}: cannot open as a zarr group ({exc})") from None
         return cls(path, group, commit)
+
+    def close(self) -> None:
+        """Release the zip file of a packed store (nothing to do for a directory)."""
+        if self._archive is not None:
+            self._archive.close()
+            self._group.store.close()
 
     @classmethod
     def create(
@@ -151,7 +149,17 @@ class Store:
     ) -> Store:
         """Create a new store with empty draws and the start state; write the first commit."""
         path = Path(path)
-        full = {"format": FORMAT_NAME, "format_version": FORMAT_VERSION, **attrs}
+        full = {
+            "format": FORMAT_NAME,
+            "format_version": FORMAT_VERSION,
+            **attrs,
+            "created_by": {
+                "utc": utc_now(),
+                "software": software_versions(),
+                "host": host_record(),
+                "git": git_state(Path.cwd()),
+            },
+        }
         group = zarr.open_group(path, mode="w", attributes={ATTRS_KEY: full})
         shapes = {
             POSITION: ((capacity, walkers, n_params), "float64"),
@@ -177,7 +185,7 @@ class Store:
                 compressors=None,
             )
             arr[...] = value
-        atomic_write_json(path / COMMIT_FILE, commit, fsync=fsync)
+        cls(path, group, {}).commit(commit, fsync=fsync)
         return cls.open(path, writable=True)
 
     # ------------------------------------------------------------------ metadata
@@ -282,13 +290,15 @@ class Store:
 
     def start_state(self) -> dict[str, NDArray[np.float64]]:
         """Positions, log-prob and blobs before the first step."""
-        out = {
-            POSITION: np.asarray(self._group[f"{START}/{POSITION}"][...]),
-            LOG_PROB: np.asarray(self._group[f"{START}/{LOG_PROB}"][...]),
-        }
-        for b in self.blob_names:
-            out[f"{BLOB}/{b}"] = np.asarray(self._group[f"{START}/{BLOB}/{b}"][...])
-        return out
+        return {name: self.start_array(name) for name in self.start_names()}
+
+    def start_names(self) -> tuple[str, ...]:
+        """Names (under ``start/``) of the start-state arrays."""
+        return (POSITION, LOG_PROB, *(f"{BLOB}/{b}" for b in self.blob_names))
+
+    def start_array(self, name: str) -> NDArray[np.float64]:
+        """One start-state array (``position``, ``log_prob`` or ``blob/NAME``)."""
+        return np.asarray(self._group[f"{START}/{name}"][...])
 
     def last_state(self) -> dict[str, NDArray[np.float64]]:
         """Positions, log-prob and blobs after the last committed step (start state if none)."""
@@ -308,6 +318,27 @@ class Store:
         """Rows ``start:stop:step`` of any per-step array, committed or not."""
         return np.asarray(self._array(name)[start:stop:step])
 
+    # ------------------------------------------------------------------ raw keys
+    def read_bytes(self, key: str) -> bytes | None:
+        """Raw stored bytes of ``key`` (e.g. ``"zarr.json"``); None if there is no such key."""
+        try:
+            if self._archive is not None:
+                return self._archive.read(key)
+            return (self.path / key).read_bytes()
+        except (KeyError, FileNotFoundError, IsADirectoryError, NotADirectoryError):
+            return None
+
+    def chunk_key(self, name: str, index: int) -> str:
+        """Key of chunk ``index`` (along steps) of the per-step array ``draws/<name>``."""
+        arr = self._array(name)
+        return f"{DRAWS}/{name}/" + arr.metadata.encode_chunk_key((index, *(0,) * (arr.ndim - 1)))
+
+    def start_chunk_key(self, name: str) -> str:
+        """Key of the single chunk of the start array ``start/<name>``."""
+        arr = self._group[f"{START}/{name}"]
+        assert isinstance(arr, zarr.Array)
+        return f"{START}/{name}/" + arr.metadata.encode_chunk_key((0,) * arr.ndim)
+
     # ------------------------------------------------------------------ writing
     def ensure_capacity(self, steps: int) -> None:
         """Grow every per-step array to hold at least ``steps`` rows."""
@@ -320,8 +351,13 @@ class Store:
     def write_rows(self, start: int, rows: dict[str, NDArray[Any]], *, fsync: bool) -> None:
         """Write rows ``[start, start + n)`` of every array (not yet committed)."""
         n = len(rows[POSITION])
+        size = 0
         for name, values in rows.items():
-            self._array(name)[start : start + n] = values
+            arr = self._array(name)
+            arr[start : start + n] = values
+            size = int(arr.chunks[0])
+        if n:
+            self._written.update(range(start // size, (start + n - 1) // size + 1))
         if fsync:
             self._fsync_rows(start, start + n, list(rows))
 
@@ -339,14 +375,25 @@ class Store:
                         os.fsync(fd)
                     finally:
                         os.close(fd)
-                    _fsync_dir(chunk.parent)
+                    fsync_dir(chunk.parent)
 
     def commit(self, record: dict[str, Any], *, fsync: bool) -> None:
-        """Make ``record`` (with its ``steps_done``) the store's commit record: the commit point."""
-        atomic_write_json(self.path / COMMIT_FILE, record, fsync=fsync)
-        self._commit = json.loads(json.dumps(record))
+        """Make ``record`` (with its ``steps_done``) the store's commit record: the commit point.
+
+        The record is written with a fresh integrity block (:func:`seal_record`): checksums of
+        the stored bytes of the chunks this commit touched, and the metadata seal.
+        """
+        sealed = seal_record(self, record, self._commit, written=self._written)
+        atomic_write_json(self.path / COMMIT_FILE, sealed, fsync=fsync)
+        self._commit = json.loads(json.dumps(sealed))
+        self._written = set()
 
     def update_attrs(self, **changes: Any) -> None:
-        """Change chainyard attributes (used only when a run is extended)."""
+        """Change chainyard attributes (used only when a run is extended).
+
+        The current commit record is then rewritten (same content, atomically) so that its
+        seal covers the new attributes.
+        """
         self._attrs.update(changes)
         self._group.attrs.update({ATTRS_KEY: self._attrs})
+        self.commit(self._commit, fsync=True)

@@ -1,4 +1,24 @@
-"""Provenance: software, host and source-control facts recorded with every result."""
+"""Provenance: what produced a result, whether it is intact, and how to share it.
+
+This package's top level holds the facts recorded with every result (software versions, host,
+git state, timestamps) and imports nothing else from chainyard, so that every layer may use it.
+The rest lives in submodules (imported on use):
+
+``record``
+    the provenance record (format ``chainyard.provenance`` version 1) of a store, derived
+    store or JSON record, its completeness check, and :func:`~chainyard.provenance.record.stamp`
+    for new outputs;
+``verify``
+    :func:`~chainyard.provenance.verify.verify` (chunks, counters, seal, provenance chain);
+``replay``
+    rerunning recorded steps and comparing them bitwise;
+``pack``
+    single-file archives (``chainyard.pack`` version 1) and unpacking them;
+``prov_json``
+    W3C PROV-JSON export;
+``inspect``
+    the human (and JSON) summary of a store.
+"""
 
 from __future__ import annotations
 
@@ -22,6 +42,8 @@ _PACKAGES = (
     "numcodecs",
     "pcodec",
     "pydantic",
+    "prov",
+    "matplotlib",
     "scipy",
     "snakemake",
 )

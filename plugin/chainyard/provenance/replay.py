@@ -1,0 +1,309 @@
+"""Replay: rerun recorded steps from the recorded config, model and seed; compare bitwise.
+
+The model and data are located (``--sources DIR``, else the sources inside a pack, else the
+directory the config was read from), their content hashes are compared with the recorded
+identity *before* the model is imported, and the sampler is driven exactly as the run loop
+drives it. Every replayed row is compared byte for byte with the stored one; the first
+difference names the step, array and walker.
+
+* ``steps=N``: the first N steps from the recorded seed (initial positions included). For a
+  derived (trimmed/thinned) store, the stored rows that fall inside those N source steps
+  are compared.
+* ``segment=K``: segment K of the history only, starting from the stored row before it and
+  the RNG state recorded when the segment began; this checks that a resume or extension was
+  exact.
+"""
+
+from __future__ import annotations
+
+import json
+import tempfile
+from contextlib import ExitStack
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from chainyard.errors import ConfigError, VerificationError
+from chainyard.store import Store
+from chainyard.store.integrity import INTEGRITY_KEY
+
+__all__ = ["ReplayResult", "replay"]
+
+PACK_MANIFEST = "pack/manifest.json"
+
+
+@dataclass
+class ReplayResult:
+    """Outcome of a replay.
+
+    Attributes
+    ----------
+    subject : str
+        The store replayed.
+    from_step, to_step : int
+        Source steps ``[from_step, to_step)`` that were rerun.
+    compared : int
+        Stored rows compared (fewer than the steps for a thinned store).
+    first_difference : dict or None
+        ``{"step", "array", "walker", "stored", "replayed"}`` of the first differing value.
+    sources : str
+        Where the model and data were read from.
+    """
+
+    subject: str
+    from_step: int
+    to_step: int
+    compared: int
+    first_difference: dict[str, Any] | None
+    sources: str
+
+    @property
+    def ok(self) -> bool:
+        """True when every compared row is bitwise identical."""
+        return self.first_difference is None
+
+    def line(self) -> str:
+        """One line summarising the result."""
+        span = f"steps {self.from_step}-{self.to_step - 1}"
+        if self.ok:
+            return (
+                f"{self.subject}: replayed {span} from {self.sources}: {self.compared:,} stored "
+                "row(s) bitwise identical"
+            )
+        d = self.first_difference or {}
+        return (
+            f"{self.subject}: replay of {span} differs first at step {d['step']} in "
+            f"{d['array']} (walker {d['walker']}: stored {d['stored']!r}, replayed "
+            f"{d['replayed']!r})"
+        )
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON form."""
+        return {
+            "subject": self.subject,
+            "from_step": self.from_step,
+            "to_step": self.to_step,
+            "compared": self.compared,
+            "ok": self.ok,
+            "first_difference": self.first_difference,
+            "sources": self.sources,
+        }
+
+
+def _materialise_pack_sources(store: Store, into: Path) -> Path | None:
+    """Write a pack's model/data files at their recorded relative paths below ``into``."""
+    raw = store.read_bytes(PACK_MANIFEST)
+    if raw is None:
+        return None
+    sources = json.loads(raw).get("sources", [])
+    depth = max((Path(s["path"]).parts.count("..") for s in sources), default=0)
+    base = into.joinpath(*(["d"] * depth)) if depth else into
+    base.mkdir(parents=True, exist_ok=True)
+    for s in sources:
+        data = store.read_bytes(s["member"])
+        if data is None or Path(s["path"]).is_absolute():
+            continue
+        dest = (base / s["path"]).resolve()
+        if not dest.is_relative_to(into.resolve()):
+            continue
+        dest.parent.mkdir(parents=True, exist_ok=True)
+        dest.write_bytes(data)
+    return base
+
+
+def _config(store: Store, base: Path, steps: int) -> Any:
+    from chainyard.config import parse_config
+
+    data = store.attrs["config"]
+    data["sampler"]["steps"] = max(1, steps)
+    try:
+        return parse_config(data, base_dir=base, source=f"{store.path} (stored config)")
+    except ConfigError as exc:
+        raise VerificationError(f"{store.path}: cannot replay: {exc}") from None
+
+
+def _check_inputs(store: Store, config: Any, base: Path) -> None:
+    """Refuse before importing anything if model or data differ from the recorded ones."""
+    from chainyard.engine import EnsembleDriver
+    from chainyard.engine.identity import describe_differences, run_identity
+
+    diffs = describe_differences(
+        store.attrs.get("identity", {}), run_identity(config, store.replica, EnsembleDriver.kind)
+    )
+    if diffs:
+        raise VerificationError(
+            f"{store.path}: cannot replay: model or data no longer match the recorded ones "
+            f"(looked in {base}): {'; '.join(diffs)}"
+        )
+
+
+class _StoredRows:
+    """Stored rows one at a time, decoding each chunk once."""
+
+    def __init__(self, store: Store) -> None:
+        self.store = store
+        self.cache: dict[str, tuple[int, NDArray[Any]]] = {}
+
+    def row(self, name: str, j: int) -> NDArray[Any]:
+        size = self.store.chunk_steps
+        c = j // size
+        hit = self.cache.get(name)
+        if hit is None or hit[0] != c:
+            lo = c * size
+            hit = (c, self.store.read_rows(name, lo, min(lo + size, self.store.steps_done)))
+            self.cache[name] = hit
+        return hit[1][j - c * size]
+
+
+def _row_map(store: Store) -> NDArray[np.int64]:
+    """Source step of every stored row (identity for a sampled store)."""
+    steps = np.arange(store.steps_done, dtype=np.int64)
+    block = store.attrs.get("derived")
+    while block:
+        steps = int(block["discard"]) + steps * int(block["factor"])
+        block = block.get("parent")
+    return steps
+
+
+def _difference(
+    name: str, step: int, stored: NDArray[Any], replayed: NDArray[Any]
+) -> dict[str, Any] | None:
+    a = np.ascontiguousarray(stored)
+    b = np.ascontiguousarray(np.asarray(replayed, dtype=a.dtype).reshape(a.shape))
+    if a.tobytes() == b.tobytes():
+        return None
+    per_walker = a.view(np.uint8).reshape(a.shape[0], -1) != b.view(np.uint8).reshape(
+        b.shape[0], -1
+    )
+    w = int(np.argmax(per_walker.any(axis=1)))
+    return {
+        "step": step,
+        "array": name,
+        "walker": w,
+        "stored": a[w].tolist(),
+        "replayed": b[w].tolist(),
+    }
+
+
+def _start(store: Store, config: Any, model: Any, a: int, segment: int | None) -> tuple[Any, ...]:
+    """Positions, log-prob, blobs and RNG state before step ``a`` (and any start difference)."""
+    from chainyard.engine.initial import initial_state
+    from chainyard.streams import random_state_to_json, sampler_random_state
+
+    names = store.blob_names
+    if a == 0:
+        pos, lp, blobs, _ = initial_state(config, model, store.replica)
+        rng = random_state_to_json(sampler_random_state(config.seed, store.replica).get_state())
+        stored = store.start_state()
+        diff = _difference("start/position", -1, stored["position"], pos) or _difference(
+            "start/log_prob", -1, stored["log_prob"], lp
+        )
+        return pos, lp, blobs, rng, diff
+    states = (store.commit_record.get(INTEGRITY_KEY) or {}).get("segment_states") or []
+    rng = states[segment] if segment is not None and segment < len(states) else None
+    if rng is None:
+        raise VerificationError(
+            f"{store.path}: segment {segment} has no recorded starting RNG state (written "
+            f"before chainyard recorded it); replay from the start instead (--replay {a + 1})"
+        )
+    pos = store.read_rows("position", a - 1, a)[0]
+    lp = store.read_rows("log_prob", a - 1, a)[0]
+    cols = [store.read_rows(f"blob/{b}", a - 1, a)[0] for b in names]
+    blobs = np.column_stack(cols) if cols else np.empty((store.walkers, 0))
+    return pos, lp, blobs, rng, None
+
+
+def _run(store: Store, base: Path, a: int, b: int, segment: int | None) -> ReplayResult:
+    from chainyard.engine import EnsembleDriver
+    from chainyard.model import load_model
+
+    config = _config(store, base, b)
+    _check_inputs(store, config, base)
+    try:
+        model = load_model(config)
+    except ConfigError as exc:
+        raise exc.located(config.source) from None
+    pos, lp, blobs, rng, diff = _start(store, config, model, a, segment)
+    result = ReplayResult(str(store.path), a, b, 0, diff, str(base))
+    if diff is not None:
+        return result
+    rows = _row_map(store)
+    wanted = {int(s): j for j, s in enumerate(rows) if a <= s < b}
+    if not wanted:
+        raise VerificationError(
+            f"{store.path}: replaying steps {a}-{b - 1} covers none of this store's rows (its "
+            f"first row is source step {int(rows[0]) if rows.size else 0}); replay more steps"
+        )
+    driver = EnsembleDriver(model, config.sampler.moves, pos, lp, blobs, rng, check_start=(a == 0))
+    blob_names = store.blob_names
+    stored = _StoredRows(store)
+    for step, out in enumerate(driver.steps(b - a), start=a):
+        j = wanted.get(step)
+        if j is None:
+            continue
+        replayed = {"position": out.position, "log_prob": out.log_prob, "accepted": out.accepted}
+        for k, name in enumerate(blob_names):
+            replayed[f"blob/{name}"] = out.blobs[:, k]
+        for name, values in replayed.items():
+            diff = _difference(f"draws/{name}", step, stored.row(name, j), values)
+            if diff is not None:
+                result.first_difference = diff
+                return result
+        result.compared += 1
+    return result
+
+
+def replay(
+    target: str | Path | Store,
+    steps: int | None = None,
+    *,
+    segment: int | None = None,
+    sources: str | Path | None = None,
+) -> ReplayResult:
+    """Rerun recorded steps of a store and compare them bitwise with the stored draws.
+
+    Parameters
+    ----------
+    target : str, Path or Store
+        A store, derived store or packed store.
+    steps : int, optional
+        Replay the first ``steps`` source steps (default: all committed steps).
+    segment : int, optional
+        Replay only this segment of the history (sampled stores).
+    sources : str or Path, optional
+        Directory the recorded model/data paths are resolved against (default: the pack's
+        copies, else the directory of the original config).
+
+    Raises
+    ------
+    VerificationError
+        If the model or data no longer match their recorded hashes, or nothing can be
+        compared. A replay that runs but differs is returned, not raised.
+    """
+    store = target if isinstance(target, Store) else Store.open(target)
+    attrs = store.attrs
+    if store.steps_done == 0:
+        raise VerificationError(f"{store.path}: no committed steps to replay")
+    total = int(_row_map(store)[-1]) + 1
+    if segment is not None:
+        segs = store.commit_record.get("segments") or []
+        if attrs.get("derived") or not 0 <= segment < len(segs):
+            raise VerificationError(
+                f"{store.path}: no segment {segment} (the history has {len(segs)} segment(s); "
+                "derived stores have none: use --replay N)"
+            )
+        a, b = int(segs[segment]["from_step"]), int(segs[segment]["to_step"])
+    else:
+        a, b = 0, min(int(steps), total) if steps is not None else total
+        if b < 1:
+            raise VerificationError("--replay needs at least 1 step")
+    with ExitStack() as stack:
+        if sources is not None:
+            base = Path(sources).resolve()
+        else:
+            tmp = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="chainyard-")))
+            base = _materialise_pack_sources(store, tmp) or Path(attrs.get("config_dir", "."))
+        return _run(store, base, a, b, segment)

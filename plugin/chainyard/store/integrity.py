@@ -1,0 +1,192 @@
+"""The integrity block of a commit record: stored-byte checksums and the metadata seal.
+
+Every commit record (``commit.json``) carries, besides the per-chunk checksums of the decoded
+rows (``checksums``, written by the engine), a block ``integrity`` maintained by
+:meth:`chainyard.store.Store.commit` (format version 1)::
+
+    "integrity": {
+      "format_version": 1,
+      "files":  {ARRAY: [CHUNK_FILE_SUM or null, ...]},   # per committed chunk of draws/ARRAY
+      "start":  {NAME: {"rows": ROWS_SUM, "file": FILE_SUM or null}},   # start/NAME
+      "arrays": {NODE: SHA256},        # zarr.json of every array, without "shape"
+      "attrs":  {KEY: SHA256},         # every key of zarr.json attributes.chainyard
+      "record": {KEY: SHA256},         # every other key of this commit record
+      "segment_states": [RNG_STATE or null, ...],   # sampler RNG state at each segment's start
+      "self":   SHA256                 # of this block without "self"
+    }
+
+``FILE_SUM`` is BLAKE2b-128 (hex) of the chunk's stored (encoded) bytes, so a flipped byte
+is found even where the codec would decode it to the same values; ``null`` means no chunk
+file was written because every value equals the fill value (zarr omits such chunks).
+``ROWS_SUM`` is :func:`chunk_checksum` of the decoded values. ``SHA256`` is the SHA-256 of
+the canonical JSON (sorted keys, no spaces) of the value. Hashing each key separately lets a
+verifier name exactly what was edited. The seal detects accidental and naive edits; it is
+not a signature (anyone able to rewrite the files can rewrite the seal).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+if TYPE_CHECKING:  # pragma: no cover
+    from chainyard.store.zarr_store import Store
+
+__all__ = [
+    "INTEGRITY_KEY",
+    "INTEGRITY_VERSION",
+    "array_metadata",
+    "bytes_checksum",
+    "canonical_sha256",
+    "chunk_checksum",
+    "chunk_key_from_metadata",
+    "keyed_hashes",
+    "metadata_without_shape",
+    "seal_record",
+    "self_hash",
+]
+
+INTEGRITY_KEY = "integrity"
+INTEGRITY_VERSION = 1
+
+
+def canonical_sha256(value: Any) -> str:
+    """SHA-256 (hex) of the canonical JSON of ``value`` (sorted keys, no spaces)."""
+    text = json.dumps(value, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def chunk_checksum(rows: NDArray[Any]) -> str:
+    """BLAKE2b-128 (hex) of an array's C-order bytes, prefixed by its shape and dtype."""
+    h = hashlib.blake2b(digest_size=16)
+    h.update(f"{rows.dtype.str}{rows.shape}".encode())
+    h.update(np.ascontiguousarray(rows).tobytes())
+    return h.hexdigest()
+
+
+def bytes_checksum(data: bytes) -> str:
+    """BLAKE2b-128 (hex) of stored bytes."""
+    return hashlib.blake2b(data, digest_size=16).hexdigest()
+
+
+def keyed_hashes(mapping: dict[str, Any], exclude: tuple[str, ...] = ()) -> dict[str, str]:
+    """``{key: canonical_sha256(value)}`` for every key not in ``exclude``."""
+    return {k: canonical_sha256(v) for k, v in mapping.items() if k not in exclude}
+
+
+def metadata_without_shape(meta: dict[str, Any]) -> dict[str, Any]:
+    """An array's zarr.json without ``shape`` (which grows when a run is extended)."""
+    return {k: v for k, v in meta.items() if k != "shape"}
+
+
+def self_hash(block: dict[str, Any]) -> str:
+    """The ``self`` entry of an integrity block: SHA-256 of the block without it."""
+    return canonical_sha256({k: v for k, v in block.items() if k != "self"})
+
+
+def array_metadata(store: Store) -> dict[str, Any]:
+    """Parsed zarr.json of every array of ``store`` by node name (None where it is missing)."""
+    from chainyard.store.layout import BLOB, DRAWS, LOG_PROB, POSITION, START
+
+    names = [f"{DRAWS}/{n}" for n in store.array_names()]
+    names += [f"{START}/{n}" for n in (POSITION, LOG_PROB)]
+    names += [f"{START}/{BLOB}/{b}" for b in store.blob_names]
+    out: dict[str, Any] = {}
+    for node in names:
+        raw = store.read_bytes(f"{node}/zarr.json")
+        out[node] = None if raw is None else json.loads(raw)
+    return out
+
+
+def chunk_key_from_metadata(node: str, meta: dict[str, Any], index: int) -> str:
+    """Key of chunk ``index`` along the first axis, from an array's zarr.json (no zarr call)."""
+    enc = meta.get("chunk_key_encoding") or {}
+    conf = enc.get("configuration") or {}
+    coords = [str(index)] + ["0"] * (len(meta["shape"]) - 1)
+    if enc.get("name") == "v2":
+        return f"{node}/" + conf.get("separator", ".").join(coords)
+    sep = conf.get("separator", "/")
+    return f"{node}/c{sep}" + sep.join(coords)
+
+
+def _file_sum(store: Store, key: str) -> str | None:
+    data = store.read_bytes(key)
+    return None if data is None else bytes_checksum(data)
+
+
+def _segment_states(
+    previous: dict[str, Any], prev_block: dict[str, Any], segments: list[dict[str, Any]]
+) -> list[Any]:
+    """Carry the known segment start states forward and add those of new segments.
+
+    A segment that begins at the previous commit's ``steps_done`` started from that commit's
+    RNG state (the run loop resumes from exactly that record).
+    """
+    states = list(prev_block.get("segment_states", []))[: len(segments)]
+    while len(states) < len(segments):
+        seg = segments[len(states)]
+        starts_here = previous and seg.get("from_step") == previous.get("steps_done")
+        states.append(previous.get("random_state") if starts_here else None)
+    return states
+
+
+def seal_record(
+    store: Store,
+    record: dict[str, Any],
+    previous: dict[str, Any],
+    *,
+    written: set[int] | frozenset[int] = frozenset(),
+) -> dict[str, Any]:
+    """``record`` with a fresh integrity block, given the store's previous commit record.
+
+    Chunk files are re-read for the chunks written since the previous commit (``written``)
+    and from the chunk holding the previous ``steps_done`` on; others keep their sums.
+    """
+    body = {k: v for k, v in record.items() if k != INTEGRITY_KEY}
+    prev_block = previous.get(INTEGRITY_KEY) or {}
+    n = int(body["steps_done"])
+    meta = array_metadata(store)  # read once; chunk keys come from it (no zarr lookups)
+    grid = meta["draws/position"]["chunk_grid"]["configuration"]["chunk_shape"]
+    size = int(grid[0])
+    n_chunks = -(-n // size)
+    prev_steps = int(previous.get("steps_done", 0)) if prev_block else 0
+    first_touched = (prev_steps // size) if n > prev_steps else n_chunks
+    files: dict[str, list[str | None]] = {}
+    for name in store.array_names():
+        old = list(prev_block.get("files", {}).get(name, []))
+        sums = old[: min(first_touched, n_chunks)]
+        node = f"draws/{name}"
+        for i in range(len(sums), n_chunks):
+            sums.append(_file_sum(store, chunk_key_from_metadata(node, meta[node], i)))
+        for i in sorted(c for c in written if c < len(sums)):
+            sums[i] = _file_sum(store, chunk_key_from_metadata(node, meta[node], i))
+        files[name] = sums
+    start = prev_block.get("start")
+    if not start:
+        start = {}
+        for name, values in store.start_state().items():
+            start[name] = {
+                "rows": chunk_checksum(values),
+                "file": _file_sum(
+                    store, chunk_key_from_metadata(f"start/{name}", meta[f"start/{name}"], 0)
+                ),
+            }
+    block: dict[str, Any] = {
+        "format_version": INTEGRITY_VERSION,
+        "files": files,
+        "start": start,
+        "arrays": {
+            node: canonical_sha256(metadata_without_shape(m))
+            for node, m in meta.items()
+            if m is not None
+        },
+        "attrs": keyed_hashes(store.attrs),
+        "record": keyed_hashes(body),
+        "segment_states": _segment_states(previous, prev_block, list(body.get("segments", []))),
+    }
+    block["self"] = self_hash(block)
+    return {**body, INTEGRITY_KEY: block}
