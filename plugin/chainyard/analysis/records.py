@@ -9,9 +9,8 @@ from pathlib import Path
 from typing import Any
 
 from chainyard.errors import StoreError
-from chainyard.provenance import host_record, software_versions, utc_now
+from chainyard.provenance.record import stamp
 from chainyard.store import Store
-from chainyard.store.layout import COMMIT_FILE
 from chainyard.store.zarr_store import atomic_write_json
 
 __all__ = ["RECORD_VERSION", "input_identity", "read_record", "store_digest", "write_record"]
@@ -21,10 +20,9 @@ RECORD_VERSION = 1
 
 def store_digest(store: Store) -> str:
     """SHA-256 over a store's metadata and commit record (which holds every chunk checksum)."""
-    h = hashlib.sha256()
-    h.update((store.path / "zarr.json").read_bytes())
-    h.update((store.path / COMMIT_FILE).read_bytes())
-    return h.hexdigest()
+    from chainyard.provenance.inputs import store_digest as digest
+
+    return digest(store)
 
 
 def _file_digest(path: Path) -> str:
@@ -39,7 +37,12 @@ def input_identity(item: Store | Path) -> dict[str, Any]:
 
 
 def write_record(
-    path: str | Path, kind: str, body: dict[str, Any], inputs: Sequence[Store | Path]
+    path: str | Path,
+    kind: str,
+    body: dict[str, Any],
+    inputs: Sequence[Store | Path],
+    *,
+    started_utc: str | None = None,
 ) -> dict[str, Any]:
     """Write a record ``{"kind", "format_version", **body, "inputs", "provenance"}`` as JSON."""
     record = {
@@ -47,11 +50,7 @@ def write_record(
         "format_version": RECORD_VERSION,
         **body,
         "inputs": [input_identity(i) for i in inputs],
-        "provenance": {
-            "created_utc": utc_now(),
-            "software": software_versions(),
-            "host": host_record()["host"],
-        },
+        "provenance": stamp(list(inputs), started_utc=started_utc),
     }
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)

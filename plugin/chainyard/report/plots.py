@@ -55,9 +55,11 @@ def _style(ax: Any) -> None:
     ax.set_axisbelow(True)
 
 
-def _save(fig: Any, path: str | Path) -> None:
+def _save(fig: Any, path: str | Path, stores: Sequence[Store]) -> None:
+    from chainyard.provenance.stamps import png_metadata
+
     Path(path).parent.mkdir(parents=True, exist_ok=True)
-    fig.savefig(path, dpi=110, bbox_inches="tight")
+    fig.savefig(path, dpi=110, bbox_inches="tight", metadata=png_metadata(list(stores)))
     plt.close(fig)
 
 
@@ -95,7 +97,7 @@ def trace_plot(stores: Sequence[Store], cut: int, path: str | Path) -> None:
     axes[0, 0].legend(fontsize=7, ncols=min(4, len(stores)), loc="lower right", frameon=False)
     axes[-1, 0].set_xlabel("step", fontsize=9)
     fig.suptitle("Traces: walker mean (line) and 5-95% of walkers (band)", fontsize=10)
-    _save(fig, path)
+    _save(fig, path, stores)
 
 
 def tau_history_plot(stores: Sequence[Store], path: str | Path) -> None:
@@ -125,7 +127,7 @@ def tau_history_plot(stores: Sequence[Store], path: str | Path) -> None:
         fontsize=9,
         y=1.03,
     )
-    _save(fig, path)
+    _save(fig, path, stores)
 
 
 def pairs_plot(
@@ -159,7 +161,7 @@ def pairs_plot(
                 ax.set_ylabel(axis_label(stores[0], names[r], short=True), fontsize=7)
             ax.tick_params(labelsize=6)
     fig.suptitle("Pairwise marginals (after burn-in and thinning, replicas pooled)", fontsize=9)
-    _save(fig, path)
+    _save(fig, path, stores)
 
 
 def acceptance_plot(
@@ -200,4 +202,4 @@ def acceptance_plot(
     ax.legend(
         handles=handles, fontsize=7, ncols=min(6, len(handles)), frameon=False, loc="upper right"
     )
-    _save(fig, path)
+    _save(fig, path, stores)
