@@ -164,7 +164,7 @@ def format_validation_error(error: ValidationError, source: str) -> list[str]:
     """
     lines = []
     for item in error.errors(include_url=False):
-        loc = _clean_loc(item["loc"], item["type"])
+        loc = _clean_loc(item["loc"])
         where = f"{source}: {loc}" if loc else source
         kind = item["type"]
         msg = item["msg"]
@@ -181,7 +181,7 @@ def format_validation_error(error: ValidationError, source: str) -> list[str]:
     return lines
 
 
-def _clean_loc(loc: tuple[int | str, ...], kind: str) -> str:
+def _clean_loc(loc: tuple[int | str, ...]) -> str:
     parts: list[str] = []
     for part in loc:
         if isinstance(part, int):
