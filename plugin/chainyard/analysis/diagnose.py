@@ -22,26 +22,26 @@ from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
+import numpy.typing as npt
 
 from chainyard.config import TargetsSpec
 from chainyard.decisions import Targets, assess
 from chainyard.diagnostics import (
     acceptance_report,
-    ensemble_to_chains,
-    ess_bulk,
-    ess_tail,
     integrated_time_report,
-    mcse_mean,
-    mcse_quantile,
     min_ess,
     multivariate_ess,
     rhat,
     rhat_bulk,
     rhat_folded,
 )
+from chainyard.diagnostics._validation import MIN_DRAWS
+from chainyard.diagnostics.pooled import pooled_summary
 from chainyard.store import Store
 
-__all__ = ["WHAT_IS_COMPARED", "diagnose", "format_table"]
+__all__ = ["WHAT_IS_COMPARED", "diagnose", "format_table", "read_column"]
+
+FloatArray = npt.NDArray[np.float64]
 
 WHAT_IS_COMPARED = (
     "R-hat: one chain per independent replica (its walker-mean trace). ESS/MCSE: every walker "
@@ -54,32 +54,98 @@ def _finite(value: float) -> float | None:
     return float(value) if np.isfinite(value) else None
 
 
+#: Bytes of stored rows (all walkers and parameters) spanned by one read: a whole number of
+#: stored chunks, at least one. zarr decodes whole chunks, so this bounds its temporaries.
+READ_BYTES = 1 << 25
+
+
+def read_column(
+    stores: Sequence[Store], j: int, steps: int, out: FloatArray, walker_means: FloatArray
+) -> None:
+    """Read parameter ``j`` of every replica into ``out``, streaming over stored chunks.
+
+    ``out[offset_r + w, t]`` is walker ``w`` of replica ``r`` at step ``t`` (every walker
+    of every replica as a chain, C-ordered: rows are contiguous), and
+    ``walker_means[r, t]`` the walker-mean trace of replica ``r`` (the R-hat chains and the
+    mESS input). The store is read a few stored chunks at a time (:data:`READ_BYTES`), so
+    the only temporaries are those chunks.
+
+    Parameters
+    ----------
+    stores : sequence of Store
+    j : int
+        Parameter index.
+    steps : int
+        Steps read from each replica (from the first).
+    out : ndarray, shape (sum of walkers, steps)
+        Overwritten.
+    walker_means : ndarray, shape (replicas, steps)
+        Overwritten.
+
+    Raises
+    ------
+    ValueError
+        If a replica's draws contain NaN or infinite values.
+    """
+    row = 0
+    for r, s in enumerate(stores):
+        walkers = s.walkers
+        rows = out[row : row + walkers]
+        chunk = s.chunk_steps
+        row_bytes = 8 * walkers * len(s.param_names)
+        per_call = chunk * max(1, READ_BYTES // (row_bytes * chunk))
+        for a in range(0, steps, per_call):
+            b = min(steps, a + per_call)
+            block = s.column(j, a, b)  # (b - a, walkers)
+            if not np.isfinite(block).all():
+                raise ValueError(f"replica {r} contains NaN or infinite values")
+            rows[:, a:b] = block.T
+            walker_means[r, a:b] = block.mean(axis=1)
+        row += walkers
+
+
 def _param_diagnostics(
-    stores: Sequence[Store], j: int, steps: int, min_steps_per_tau: float
+    stores: Sequence[Store],
+    j: int,
+    steps: int,
+    min_steps_per_tau: float,
+    x: FloatArray,
+    work: FloatArray,
+    walker_means: FloatArray,
 ) -> dict[str, Any]:
-    cols = [s.column(j, 0, steps) for s in stores]  # each (steps, walkers)
-    replica_chains = ensemble_to_chains(cols, "walker_mean")
-    walker_chains = ensemble_to_chains(cols, "walkers")
-    flat = walker_chains.reshape(-1)
-    reports = [integrated_time_report(c.T, min_steps_per_tau=min_steps_per_tau) for c in cols]
+    """Diagnostics of parameter ``j``; ``x`` and ``work`` are reused buffers (one column each).
+
+    Memory: ``x`` (the draws of all walkers of all replicas), ``work`` and, during the rank
+    normalisation, one index array of the same length: three columns, plus blocks of a few
+    MiB (see :mod:`chainyard.diagnostics.pooled`).
+    """
+    read_column(stores, j, steps, x, walker_means)
+    replica_chains = np.ascontiguousarray(walker_means)  # (replicas, steps), small
+    reports = []
+    row = 0
+    for s in stores:  # tau per replica, walkers averaged; rows of x are that replica's walkers
+        reports.append(
+            integrated_time_report(x[row : row + s.walkers], min_steps_per_tau=min_steps_per_tau)
+        )
+        row += s.walkers
     tau = max(r.tau for r in reports)
-    draws_total = flat.size
-    q05, q50, q95 = np.quantile(flat, [0.05, 0.5, 0.95])
+    draws_total = x.size
+    pooled = pooled_summary(x, work, overwrite=True)  # x holds normal scores afterwards
     out = {
-        "mean": float(flat.mean()),
-        "sd": float(flat.std(ddof=1)),
-        "q05": float(q05),
-        "q50": float(q50),
-        "q95": float(q95),
+        "mean": pooled["mean"],
+        "sd": pooled["sd"],
+        "q05": pooled["q05"],
+        "q50": pooled["q50"],
+        "q95": pooled["q95"],
         "rhat": _finite(rhat(replica_chains)),
         "rhat_bulk": _finite(rhat_bulk(replica_chains)),
         "rhat_folded": _finite(rhat_folded(replica_chains)),
-        "ess_bulk": _finite(ess_bulk(walker_chains)),
-        "ess_tail": _finite(ess_tail(walker_chains)),
+        "ess_bulk": _finite(pooled["ess_bulk"]),
+        "ess_tail": _finite(pooled["ess_tail"]),
         "ess_tau": float(draws_total / tau) if tau > 0 else None,
-        "mcse_mean": _finite(mcse_mean(walker_chains)),
-        "mcse_q05": _finite(mcse_quantile(walker_chains, 0.05)),
-        "mcse_q95": _finite(mcse_quantile(walker_chains, 0.95)),
+        "mcse_mean": _finite(pooled["mcse_mean"]),
+        "mcse_q05": _finite(pooled["mcse_q05"]),
+        "mcse_q95": _finite(pooled["mcse_q95"]),
         "tau": float(tau),
         "tau_per_replica": [float(r.tau) for r in reports],
         "steps_per_tau": float(steps / tau) if tau > 0 else None,
@@ -91,6 +157,13 @@ def _param_diagnostics(
 
 def diagnose(stores: Sequence[Store], targets: TargetsSpec | None = None) -> dict[str, Any]:
     """Diagnostics per parameter, acceptance per replica, mESS, and the verdict.
+
+    Bounded memory: one parameter at a time, read from the stores a few chunks at a time,
+    into two reused buffers of one *column* each (one parameter of every walker of every
+    replica: ``steps x walkers x replicas`` float64), plus an index array of one column
+    during the rank normalisation, so the peak is about three columns above the process's
+    baseline, whatever the number of parameters. Held across parameters: the walker-mean
+    traces of all parameters (the mESS input, ``raw size / walkers``).
 
     Parameters
     ----------
@@ -107,26 +180,29 @@ def diagnose(stores: Sequence[Store], targets: TargetsSpec | None = None) -> dic
     """
     targets = targets or stores[0].config.targets
     steps = min(s.steps_done for s in stores)
+    if steps < MIN_DRAWS:
+        raise ValueError(f"shortest replica has {steps} steps; at least {MIN_DRAWS} are required")
     names = stores[0].param_names
-    params = {
-        name: _param_diagnostics(stores, j, steps, targets.min_steps_per_tau)
-        for j, name in enumerate(names)
-    }
+    chains = sum(s.walkers for s in stores)
+    means = np.empty((len(stores), steps, len(names)))  # walker-mean traces, for mESS
+    x = np.empty((chains, steps))
+    work = np.empty(x.size)
+    params = {}
+    for j, name in enumerate(names):
+        params[name] = _param_diagnostics(
+            stores, j, steps, targets.min_steps_per_tau, x, work, means[:, :, j]
+        )
+    del x, work
     acceptance = []
     for s in stores:
         rep = acceptance_report(s.accepted(0, steps))
         acceptance.append({"replica": s.replica, **rep.to_dict()})
         acceptance[-1]["messages"] = [f"replica {s.replica}: {m}" for m in rep.messages]
-    means = np.stack(
-        [
-            np.stack([s.column(j, 0, steps).mean(axis=1) for j in range(len(names))], axis=-1)
-            for s in stores
-        ]
-    )  # (replicas, steps, params)
     try:
         mess = float(multivariate_ess(means))
     except ValueError:
         mess = float("nan")
+    del means
     multivariate = {
         "ess": _finite(mess),
         "min_ess_required": (

@@ -35,6 +35,11 @@ class StoreWindow:
         return self._store.steps_done - self._start
 
     @property
+    def chunk_steps(self) -> int:
+        """Steps per stored chunk of the underlying store."""
+        return self._store.chunk_steps
+
+    @property
     def config(self) -> Any:
         """The run configuration of the underlying store."""
         return self._store.config

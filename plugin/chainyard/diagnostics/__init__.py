@@ -20,6 +20,7 @@ from .ensemble import ensemble_to_chains, walkers_as_chains
 from .ess import ess_bulk, ess_mean, ess_quantile, ess_sd, ess_tail
 from .mcse import mcse_mean, mcse_quantile, mcse_sd
 from .multivariate import min_ess, multivariate_ess
+from .pooled import pooled_summary
 from .rhat import rhat, rhat_bulk, rhat_folded
 from .vectorised import ess_bulk_per_param, ess_tail_per_param, per_param, rhat_per_param
 
@@ -46,6 +47,7 @@ __all__ = [
     "min_ess",
     "multivariate_ess",
     "per_param",
+    "pooled_summary",
     "rhat",
     "rhat_bulk",
     "rhat_folded",

@@ -71,7 +71,8 @@ def mcse_quantile(x: npt.ArrayLike, q: float) -> float:
     With ``S_eff = ess_quantile(x, q)``, the 15.9% and 84.1% points of
     ``Beta(S_eff q + 1, S_eff (1 - q) + 1)`` are mapped to order statistics
     of the pooled draws; the MCSE is half their distance (Vehtari et al.
-    2021, Bayesian Analysis 16(2), Sec. 4.4).
+    2021, Bayesian Analysis 16(2), Sec. 4.4). ``nan`` when the quantile ESS is undefined
+    (constant indicator).
 
     Parameters
     ----------
@@ -87,9 +88,34 @@ def mcse_quantile(x: npt.ArrayLike, q: float) -> float:
     if is_constant(arr):
         return float("nan")
     ess = ess_quantile(arr, q)
+    if not np.isfinite(ess):
+        return float("nan")
+    lo, hi = quantile_interval_ranks(ess, q, arr.size)
+    work = arr.flatten()
+    work.partition((lo, hi))  # the two order statistics, no full sort
+    return float((work[hi] - work[lo]) / 2.0)
+
+
+def quantile_interval_ranks(ess: float, q: float, size: int) -> tuple[int, int]:
+    """0-based order-statistic indices of the quantile MCSE interval.
+
+    The 15.9% and 84.1% points of ``Beta(ess q + 1, ess (1 - q) + 1)``, scaled to ``size``
+    pooled draws (Vehtari et al. 2021, Bayesian Analysis 16(2), Sec. 4.4).
+
+    Parameters
+    ----------
+    ess : float
+        ESS of the ``q`` quantile (finite).
+    q : float
+        Probability in (0, 1).
+    size : int
+        Number of pooled draws.
+
+    Returns
+    -------
+    (int, int)
+    """
     lo_p, hi_p = stats.beta.ppf(_ONE_SIGMA, ess * q + 1.0, ess * (1.0 - q) + 1.0)
-    ordered = np.sort(arr, axis=None)
-    size = ordered.size
     lo = math.floor(max(lo_p * size - 1.0, 0.0))
     hi = math.ceil(min(hi_p * size - 1.0, size - 1.0))
-    return float((ordered[hi] - ordered[lo]) / 2.0)
+    return int(lo), int(hi)

@@ -28,7 +28,7 @@ from __future__ import annotations
 import numpy as np
 import numpy.typing as npt
 
-from ._validation import as_chains_draws, fold, is_constant, rank_normalise, split_chains
+from ._validation import as_chains_draws, fold, is_constant, rank_normalise_inplace, split_chains
 
 FloatArray = npt.NDArray[np.float64]
 
@@ -70,7 +70,7 @@ def rhat_bulk(x: npt.ArrayLike) -> float:
     arr = as_chains_draws(x)
     if is_constant(arr):
         return float("nan")
-    return _basic_rhat(rank_normalise(split_chains(arr)))
+    return _basic_rhat(rank_normalise_inplace(split_chains(arr)))
 
 
 def rhat_folded(x: npt.ArrayLike) -> float:
@@ -90,7 +90,7 @@ def rhat_folded(x: npt.ArrayLike) -> float:
     arr = as_chains_draws(x)
     if is_constant(arr):
         return float("nan")
-    return _basic_rhat(rank_normalise(fold(split_chains(arr))))
+    return _basic_rhat(rank_normalise_inplace(fold(split_chains(arr))))
 
 
 def rhat(x: npt.ArrayLike) -> float:
@@ -111,6 +111,9 @@ def rhat(x: npt.ArrayLike) -> float:
     if is_constant(arr):
         return float("nan")
     split = split_chains(arr)
-    bulk = _basic_rhat(rank_normalise(split))
-    folded = _basic_rhat(rank_normalise(fold(split)))
-    return float(max(bulk, folded))
+    folded = fold(split)
+    work = np.empty(split.size)
+    bulk = _basic_rhat(rank_normalise_inplace(split, work))
+    del split
+    folded_rhat = _basic_rhat(rank_normalise_inplace(folded, work))
+    return float(max(bulk, folded_rhat))
