@@ -56,7 +56,7 @@ def _finite(value: float) -> float | None:
 
 #: Bytes of stored rows (all walkers and parameters) spanned by one read: a whole number of
 #: stored chunks, at least one. zarr decodes whole chunks, so this bounds its temporaries.
-READ_BYTES = 1 << 25
+READ_BYTES = 1 << 23
 
 
 def read_column(

@@ -87,7 +87,7 @@ def split_chains(x: FloatArray) -> FloatArray:
 
 
 #: Sorted values handled per block by :func:`average_ranks_sorted` (bounds its temporaries).
-RANK_BLOCK = 1 << 18
+RANK_BLOCK = 1 << 17
 
 
 def average_ranks_sorted(v: FloatArray) -> None:

@@ -69,7 +69,7 @@ class IntegratedTimeReport:
 def _walker_mean_acf(x: FloatArray) -> tuple[FloatArray, int]:
     """Walker-averaged normalised ACF of (walkers, steps) and #constant walkers.
 
-    Walkers are transformed a block at a time (about 4 MiB of draws per block) and their
+    Walkers are transformed a block at a time (about 2 MiB of draws per block) and their
     ACFs summed in walker order, so memory stays at one block's FFT whatever the number of
     walkers, with the same value as averaging the stacked ACFs.
     """

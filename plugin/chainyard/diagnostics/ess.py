@@ -29,8 +29,8 @@ FloatArray = npt.NDArray[np.float64]
 
 
 #: Input bytes per block of chains in the blockwise autocovariance (bounds FFT temporaries:
-#: about six times this, whatever the number of chains).
-BLOCK_BYTES = 1 << 22
+#: about nine times this, whatever the number of chains).
+BLOCK_BYTES = 1 << 21
 
 
 def rows_per_block(n_draws: int) -> int:

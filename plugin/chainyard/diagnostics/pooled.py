@@ -13,7 +13,7 @@ functions one by one, while holding at most three arrays the size of the input:
   the ranks;
 * the index array of the one argsort of the rank normalisation, while it lives.
 
-Everything else is streamed over blocks of a few chains (about 4 MiB each): the split-chain
+Everything else is streamed over blocks of a few chains (about 2 MiB each): the split-chain
 autocovariances of the ESS (one FFT per block, never the whole (chains, draws) array), the
 quantile indicators ``x <= q`` (built per block, never as a full array), the ranks of tied
 values (per run of ties). The steps are separate functions, called in order by
