@@ -351,7 +351,7 @@ def _advance(
 
         def job() -> None:
             nonlocal record
-            store.write_rows(start, snap.rows(start, upto), fsync=fsync)
+            store.write_steps(snap.rows(snap.origin, upto), snap.origin, start, upto, fsync=fsync)
             new = dict(record)
             new["checksums"] = update_checksums(
                 record.get("checksums", {}), snap.rows, start, upto, chunk

@@ -64,7 +64,8 @@ def chunk_checksum(rows: NDArray[Any]) -> str:
     """BLAKE2b-128 (hex) of an array's C-order bytes, prefixed by its shape and dtype."""
     h = hashlib.blake2b(digest_size=16)
     h.update(f"{rows.dtype.str}{rows.shape}".encode())
-    h.update(np.ascontiguousarray(rows).tobytes())
+    # hashed from the array's buffer: no copy, and hashlib releases the GIL while it reads
+    h.update(memoryview(np.ascontiguousarray(rows)).cast("B"))
     return h.hexdigest()
 
 
@@ -140,12 +141,15 @@ def seal_record(
     previous: dict[str, Any],
     *,
     written: set[int] | frozenset[int] = frozenset(),
+    file_sums: dict[str, dict[int, str]] | None = None,
 ) -> dict[str, Any]:
     """``record`` with a fresh integrity block, given the store's previous commit record.
 
     Chunk files are re-read for the chunks written since the previous commit (``written``)
-    and from the chunk holding the previous ``steps_done`` on; others keep their sums.
+    and from the chunk holding the previous ``steps_done`` on, except those whose stored-byte
+    checksum the writer already knows (``file_sums[array][chunk]``); others keep their sums.
     """
+    known = file_sums or {}
     body = {k: v for k, v in record.items() if k != INTEGRITY_KEY}
     prev_block = previous.get(INTEGRITY_KEY) or {}
     n = int(body["steps_done"])
@@ -160,10 +164,17 @@ def seal_record(
         old = list(prev_block.get("files", {}).get(name, []))
         sums = old[: min(first_touched, n_chunks)]
         node = f"draws/{name}"
+        have = known.get(name, {})
+
+        def file_sum(i: int, node: str = node, have: dict[int, str] = have) -> str | None:
+            if i in have:
+                return have[i]
+            return _file_sum(store, chunk_key_from_metadata(node, meta[node], i))
+
         for i in range(len(sums), n_chunks):
-            sums.append(_file_sum(store, chunk_key_from_metadata(node, meta[node], i)))
+            sums.append(file_sum(i))
         for i in sorted(c for c in written if c < len(sums)):
-            sums[i] = _file_sum(store, chunk_key_from_metadata(node, meta[node], i))
+            sums[i] = file_sum(i)
         files[name] = sums
     start = prev_block.get("start")
     if not start:

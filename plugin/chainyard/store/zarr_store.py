@@ -32,8 +32,15 @@ from numpy.typing import NDArray
 
 from chainyard.errors import StoreError
 from chainyard.provenance import git_state, host_record, software_versions, utc_now
+from chainyard.store.chunks import ChunkEncoder, chunk_encoder, write_chunk_file
 from chainyard.store.files import atomic_write_json, fsync_dir
-from chainyard.store.integrity import chunk_checksum, seal_record
+from chainyard.store.integrity import (
+    array_metadata,
+    bytes_checksum,
+    chunk_checksum,
+    chunk_key_from_metadata,
+    seal_record,
+)
 from chainyard.store.layout import (
     ACCEPTED,
     ATTRS_KEY,
@@ -83,6 +90,10 @@ class Store:
         self._archive = archive
         self.packed = archive is not None
         self._written: set[int] = set()  # chunk indices written since the last commit
+        # stored-byte checksums of chunk files written directly since the last commit
+        self._file_sums: dict[str, dict[int, str]] = {}
+        self._encoder_cache: dict[str, ChunkEncoder | None] | None = None
+        self._chunk_meta: dict[str, dict[str, Any]] = {}
         attrs = dict(group.attrs).get(ATTRS_KEY)
         if not isinstance(attrs, dict) or attrs.get("format") != FORMAT_NAME:
             raise StoreError(f"{path}: not a chainyard store (no '{ATTRS_KEY}' attributes)")
@@ -348,8 +359,61 @@ class Store:
             arr = self._array(name)
             arr.resize((steps, *arr.shape[1:]))
 
+    def _encoders(self) -> dict[str, ChunkEncoder | None]:
+        """Direct chunk encoders of the per-step arrays (None where zarr must write)."""
+        if self._encoder_cache is None:
+            meta = array_metadata(self)
+            self._chunk_meta = {name: meta[f"{DRAWS}/{name}"] or {} for name in self.array_names()}
+            self._encoder_cache = {name: chunk_encoder(m) for name, m in self._chunk_meta.items()}
+        return self._encoder_cache
+
+    def write_steps(
+        self,
+        rows: dict[str, NDArray[Any]],
+        origin: int,
+        start: int,
+        stop: int,
+        *,
+        fsync: bool,
+    ) -> None:
+        """Write steps ``[start, stop)`` of every array, whole chunks at a time (not committed).
+
+        ``rows[name]`` holds the array's rows ``[origin, stop)``, where ``origin`` is the
+        chunk boundary at or before ``start``, so every chunk touched is encoded from memory
+        (rows a chunk does not hold yet are the fill value) and no chunk is read back.
+        Arrays whose codec chain :func:`chainyard.store.chunks.chunk_encoder` does not cover
+        are written through zarr. The stored-byte checksums of the chunk files written here
+        are kept for the next :meth:`commit`.
+        """
+        encoders = self._encoders()
+        size = int(self._chunk_meta[POSITION]["chunk_grid"]["configuration"]["chunk_shape"][0])
+        if origin % size or not origin <= start <= stop:
+            raise ValueError(f"bad step range: origin {origin}, start {start}, stop {stop}")
+        if stop == start:
+            return
+        first, last = start // size, (stop - 1) // size
+        folders: set[Path] = set()
+        for name, values in rows.items():
+            enc = encoders.get(name)
+            if enc is None:
+                self.write_rows(start, {name: values[start - origin :]}, fsync=fsync)
+                continue
+            sums = self._file_sums.setdefault(name, {})
+            for ci in range(first, last + 1):
+                lo, hi = ci * size, min((ci + 1) * size, stop)
+                data = enc.encode(values[lo - origin : hi - origin])
+                key = chunk_key_from_metadata(f"{DRAWS}/{name}", self._chunk_meta[name], ci)
+                path = self.path / key
+                write_chunk_file(path, data, fsync=fsync)
+                folders.add(path.parent)
+                sums[ci] = bytes_checksum(data)
+        self._written.update(range(first, last + 1))
+        if fsync:
+            for folder in sorted(folders):
+                fsync_dir(folder)
+
     def write_rows(self, start: int, rows: dict[str, NDArray[Any]], *, fsync: bool) -> None:
-        """Write rows ``[start, start + n)`` of every array (not yet committed)."""
+        """Write rows ``[start, start + n)`` of every array through zarr (not yet committed)."""
         n = len(rows[POSITION])
         size = 0
         for name, values in rows.items():
@@ -383,10 +447,13 @@ class Store:
         The record is written with a fresh integrity block (:func:`seal_record`): checksums of
         the stored bytes of the chunks this commit touched, and the metadata seal.
         """
-        sealed = seal_record(self, record, self._commit, written=self._written)
+        sealed = seal_record(
+            self, record, self._commit, written=self._written, file_sums=self._file_sums
+        )
         atomic_write_json(self.path / COMMIT_FILE, sealed, fsync=fsync)
         self._commit = json.loads(json.dumps(sealed))
         self._written = set()
+        self._file_sums = {}
 
     def update_attrs(self, **changes: Any) -> None:
         """Change chainyard attributes (used only when a run is extended).
