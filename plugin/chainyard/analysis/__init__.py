@@ -1,6 +1,7 @@
 """Store-level steps: decide burn-in and thinning, derive stores, diagnose, summarise.
 
-These functions read stores one parameter column at a time (bounded memory), call the pure
+These functions read stores one parameter column at a time, a few stored chunks per read
+(bounded memory: :func:`diagnose` peaks at about three columns), call the pure
 functions of :mod:`chainyard.diagnostics` and :mod:`chainyard.decisions`, and write
 JSON records that carry a provenance stamp. The workflow rules and the command line are thin
 wrappers over them.

@@ -1,7 +1,7 @@
 """Thin wrappers applying a one-parameter diagnostic over a trailing parameter axis.
 
 Each parameter is processed separately (one (chains, draws) slice at a time),
-so peak memory is that of one parameter plus the input.
+so peak memory is that of one parameter (about three copies of it) plus the input.
 """
 
 from __future__ import annotations
