@@ -14,6 +14,9 @@ What is compared (documented in every diagnostics record):
   the largest over replicas is reported, with steps per tau and the 50 x tau rule.
 * **Multivariate ESS** (Vats, Flegal and Jones 2019, Biometrika 106(2)) on the walker-mean
   traces of all replicas.
+
+Memory is bounded by the size of one parameter *column* (that parameter for every walker of
+every replica), not by the store: see :func:`diagnose`.
 """
 
 from __future__ import annotations
