@@ -23,6 +23,7 @@ The rest lives in submodules (imported on use):
 from __future__ import annotations
 
 import datetime as _dt
+import functools
 import os
 import platform
 import socket
@@ -56,6 +57,12 @@ def utc_now() -> str:
 
 def software_versions() -> dict[str, str | None]:
     """Python and package versions (None for a package that is not installed)."""
+    return dict(_software_versions())
+
+
+@functools.cache
+def _software_versions() -> dict[str, str | None]:
+    # read once per process: package metadata parsing costs ~15 ms a call
     out: dict[str, str | None] = {"python": platform.python_version()}
     for name in _PACKAGES:
         try:
