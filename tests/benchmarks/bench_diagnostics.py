@@ -1,7 +1,7 @@
 """Cost benchmark of chainyard's diagnostics (run on demand, not by pytest).
 
-    .venv/bin/python tests/benchmarks/bench_diagnostics.py            # full run, ~6-8 minutes
-    .venv/bin/python tests/benchmarks/bench_diagnostics.py --quick    # smoke run, ~1 minute
+    .venv/bin/python tests/benchmarks/bench_diagnostics.py            # full run, ~8 minutes
+    .venv/bin/python tests/benchmarks/bench_diagnostics.py --quick    # smoke run, ~2 minutes
 
 Everything is measured in one run, as ratios or per-run numbers (the machine is shared and
 noisy): repetitions alternate between the two libraries and medians are reported.
@@ -17,8 +17,16 @@ noisy): repetitions alternate between the two libraries and medians are reported
    written with Store.create / write_rows / commit, codec "none") are diagnosed with
    ``chainyard.analysis.diagnose`` in subprocesses, some under ``RLIMIT_AS`` (the limit is
    set before the interpreter imports anything), one without a limit. Reported: completion,
-   wall time, peak RSS against the raw data size, where a run under the limit fails, and a
-   step-by-step memory breakdown of diagnose's work for one parameter.
+   wall time, peak RSS and address space against the raw data size and in *columns* (one
+   parameter of all replicas and walkers) above the child's baseline, where a run under the
+   limit fails, and a step-by-step memory breakdown of diagnose's work for one parameter.
+   Goals: at most GOAL_COLUMNS columns above the baseline on the large store (4,096 MB raw,
+   410 MB columns, where the constant tens of MB of read / FFT blocks do not matter), and
+   completion of that store under RLIMIT_AS 3 GiB, a limit smaller than the raw store (so
+   it cannot be loaded whole) yet above baseline + GOAL_COLUMNS columns (~0.5 + 1.6 GB); a
+   second run under 1.5 GiB (below baseline + 3 columns) shows where the bound lies.
+   Children run with ``MALLOC_ARENA_MAX=2`` (see ARENAS), except the unlimited medium run,
+   which shows glibc's default for comparison.
 
 Full mode appends (or, on a re-run, replaces) the "## Diagnostics" section at the end of
 tests/benchmarks/RESULTS.md, leaving the rest of the file alone; --quick writes
@@ -843,7 +851,7 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument(
         "--complete-large",
         action="store_true",
-        help="also diagnose the large store without a limit (full mode: ~9 GB RAM, ~8 min)",
+        help="also diagnose the large store without a limit (full mode: ~2 GB RAM, ~4 min)",
     )
     parser.add_argument("--child", nargs=2, metavar=("KIND", "JSON"), help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
