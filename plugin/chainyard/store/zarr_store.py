@@ -404,6 +404,10 @@ class Store:
                 data = enc.encode(values[lo - origin : hi - origin])
                 key = chunk_key_from_metadata(f"{DRAWS}/{name}", self._chunk_meta[name], ci)
                 path = self.path / key
+                folder = path.parent
+                while not folder.exists():  # new folders: their entries must be flushed too
+                    folders.add(folder.parent)
+                    folder = folder.parent
                 write_chunk_file(path, data, fsync=fsync)
                 folders.add(path.parent)
                 sums[ci] = bytes_checksum(data)
