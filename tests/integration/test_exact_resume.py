@@ -69,12 +69,20 @@ def _wait_for_commits(proc_start: float, store: Path, min_steps: int, timeout: f
         time.sleep(0.005)
 
 
+def _with_writer(writer: str) -> dict:
+    """KILL_CONFIG committing on the given writer (a thread, or the helper process)."""
+    return {**KILL_CONFIG, "storage": {**KILL_CONFIG["storage"], "commit_writer": writer}}
+
+
 @pytest.mark.slow
+@pytest.mark.parametrize("writer", ["thread", "process"])
 @pytest.mark.parametrize("seed", [11, 12, 13])
-def test_sigkill_then_resume_is_exact(seed: int, tmp_path: Path, reference: Path) -> None:
+def test_sigkill_then_resume_is_exact(
+    seed: int, writer: str, tmp_path: Path, reference: Path
+) -> None:
     """SIGKILL at random moments (twice, the second during a resume), then finish: identical."""
     rng = np.random.default_rng(seed)
-    cfg = write_run(tmp_path, KILL_CONFIG, SLOW_MODEL)
+    cfg = write_run(tmp_path, _with_writer(writer), SLOW_MODEL)
     out = tmp_path / "killed.zarr"
     kills = 0
     for attempt in range(2):
@@ -97,9 +105,10 @@ def test_sigkill_then_resume_is_exact(seed: int, tmp_path: Path, reference: Path
     assert_same_store(out, reference)
 
 
-def test_sigterm_commits_and_resumes(tmp_path: Path, reference: Path) -> None:
+@pytest.mark.parametrize("writer", ["thread", "process"])
+def test_sigterm_commits_and_resumes(writer: str, tmp_path: Path, reference: Path) -> None:
     """SIGTERM (a wall-time limit) commits the finished steps, exits 143, resumes exactly."""
-    cfg = write_run(tmp_path, KILL_CONFIG, SLOW_MODEL)
+    cfg = write_run(tmp_path, _with_writer(writer), SLOW_MODEL)
     out = tmp_path / "term.zarr"
     proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off")
     _wait_for_commits(time.monotonic(), out, 300, timeout=60)

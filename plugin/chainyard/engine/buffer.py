@@ -16,7 +16,7 @@ from numpy.typing import NDArray
 from chainyard.store import Store, chunk_checksum
 from chainyard.store.layout import ACCEPTED, BLOB, LOG_PROB, POSITION
 
-__all__ = ["Snapshot", "StepBuffer", "update_checksums"]
+__all__ = ["StepBuffer", "update_checksums"]
 
 
 class StepBuffer:
@@ -96,16 +96,3 @@ def update_checksums(
                 sums.append("")
             sums[ci] = chunk_checksum(values)
     return out
-
-
-class Snapshot:
-    """A copy of the rows ``[origin, stop)`` taken at a commit, owned by the writer thread."""
-
-    def __init__(self, buf: StepBuffer, start: int, stop: int, blob_names: tuple[str, ...]) -> None:
-        self.origin = (start // buf.chunk) * buf.chunk
-        self.stop = stop
-        self._rows = {k: v.copy() for k, v in buf.rows(self.origin, stop, blob_names).items()}
-
-    def rows(self, a: int, b: int) -> dict[str, NDArray[Any]]:
-        """Rows for steps ``[a, b)`` (absolute indices inside the snapshot)."""
-        return {k: v[a - self.origin : b - self.origin] for k, v in self._rows.items()}

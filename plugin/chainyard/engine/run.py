@@ -21,11 +21,12 @@ from typing import Any, TextIO
 import numpy as np
 
 from chainyard.config import RunConfig, config_hash
-from chainyard.engine.buffer import Snapshot, StepBuffer, update_checksums
+from chainyard.engine.buffer import StepBuffer
+from chainyard.engine.commit import CommitJob
 from chainyard.engine.ensemble import EnsembleDriver
 from chainyard.engine.identity import describe_differences, run_identity
 from chainyard.engine.initial import initial_state
-from chainyard.engine.writer import CommitWriter
+from chainyard.engine.writer import Committer, process_writer_available
 from chainyard.errors import ChainyardError, ConfigError, StoreConflictError, StoreError
 from chainyard.model import LoadedModel, load_model
 from chainyard.progress import Progress
@@ -169,7 +170,7 @@ def sample(
         raise exc.located(config.source) from None
     identity = run_identity(config, replica, EnsembleDriver.kind)
     label = f"{path.name}"
-    with writer_lock(path):
+    with writer_lock(path) as lock:
         if restart and path.exists():
             if not (path / COMMIT_FILE).exists() and not _is_partial_creation(path):
                 raise StoreError(f"{path}: exists and is not a chainyard store; not removing it")
@@ -210,13 +211,39 @@ def sample(
         with _stop_on_signals() as stop:
             try:
                 _advance(
-                    store, config, model, kind, stop, progress, progress_interval, stream, label
+                    store,
+                    config,
+                    model,
+                    kind,
+                    stop,
+                    progress,
+                    progress_interval,
+                    stream,
+                    label,
+                    _lock_fds(lock),
                 )
             except ChainyardError:
                 if kind == "start" and Store.open(path).steps_done == 0:
                     shutil.rmtree(path)  # nothing of value was made by this failed start
                 raise
     return Store.open(path)
+
+
+def _lock_fds(lock: Any) -> list[int]:
+    """The OS file descriptor holding the store lock, if the lock object exposes it."""
+    fd = getattr(getattr(lock, "_context", None), "lock_file_fd", None)
+    return [fd] if isinstance(fd, int) else []
+
+
+#: "auto" commits in a helper process for runs with at least this many steps to go
+PROCESS_WRITER_MIN_STEPS = 5000
+
+
+def _use_process(config: RunConfig, steps_to_go: int) -> bool:
+    choice = config.storage.commit_writer
+    if choice == "thread" or not process_writer_available():
+        return False
+    return choice == "process" or steps_to_go >= PROCESS_WRITER_MIN_STEPS
 
 
 def _stored_steps(store: Store) -> int:
@@ -283,6 +310,7 @@ def _advance(
     progress_interval: float,
     stream: TextIO | None,
     label: str,
+    lock_fds: list[int],
 ) -> None:
     target = config.sampler.steps
     done = store.steps_done
@@ -323,7 +351,6 @@ def _advance(
         "config_hash": config_hash(config.normalised()),
         "software": software_versions(),
     }
-    record["segments"] = [*record.get("segments", []), segment]
     committed = done
     reporter = Progress(
         target, done, mode=progress, interval=progress_interval, stream=stream, label=label
@@ -334,37 +361,33 @@ def _advance(
     )
     accepted_sum = 0
     steps_here = 0
-
-    writer = CommitWriter()
-    chunk = store.chunk_steps
+    first_commit = True
+    writer = Committer(
+        store,
+        use_process=_use_process(config, target - done),
+        capacity=bytes_per_step * (store.chunk_steps + pending_cap),
+        keep_open=lock_fds,
+    )
 
     def commit(upto: int) -> None:
-        """Hand steps ``[committed, upto)`` to the writer thread (the RNG state is taken now,
-        at a step boundary); sampling goes on while they are encoded, written and flushed."""
-        nonlocal committed
+        """Hand steps ``[committed, upto)`` to the writer (the RNG state is taken now, at a
+        step boundary); sampling goes on while they are encoded, written and flushed."""
+        nonlocal committed, first_commit
         if upto <= committed:
             return
         writer.wait()
-        snap = Snapshot(buf, committed, upto, blob_names)
-        rng = driver.random_state()
-        start = committed
-
-        def job() -> None:
-            nonlocal record
-            store.write_steps(snap.rows(snap.origin, upto), snap.origin, start, upto, fsync=fsync)
-            new = dict(record)
-            new["checksums"] = update_checksums(
-                record.get("checksums", {}), snap.rows, start, upto, chunk
-            )
-            new["steps_done"] = upto
-            new["random_state"] = rng
-            new["updated_utc"] = utc_now()
-            seg = dict(new["segments"][-1], to_step=upto, ended_utc=new["updated_utc"])
-            new["segments"] = [*new["segments"][:-1], seg]
-            store.commit(new, fsync=fsync)  # the commit point
-            record = new
-
-        writer.submit(job)
+        origin = (committed // buf.chunk) * buf.chunk
+        job = CommitJob(
+            origin=origin,
+            start=committed,
+            upto=upto,
+            random_state=driver.random_state(),
+            segment=segment,
+            first=first_commit,
+            fsync=fsync,
+        )
+        writer.submit(job, buf.rows(origin, upto, blob_names))
+        first_commit = False
         committed = upto
         buf.drop_before(committed)
 
@@ -402,7 +425,7 @@ def _advance(
         commit(step)
         writer.wait()
     finally:
-        writer.wait(raise_error=False)  # an in-flight commit of finished steps completes
+        writer.close()  # an in-flight commit of finished steps completes
         acc = accepted_sum / (steps_here * walkers) if steps_here else float("nan")
         reporter.update(step, acc)
         reporter.close(acc)

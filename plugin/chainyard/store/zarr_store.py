@@ -94,6 +94,7 @@ class Store:
         self._file_sums: dict[str, dict[int, str]] = {}
         self._encoder_cache: dict[str, ChunkEncoder | None] | None = None
         self._chunk_meta: dict[str, dict[str, Any]] = {}
+        self._chunk_steps: int | None = None
         attrs = dict(group.attrs).get(ATTRS_KEY)
         if not isinstance(attrs, dict) or attrs.get("format") != FORMAT_NAME:
             raise StoreError(f"{path}: not a chainyard store (no '{ATTRS_KEY}' attributes)")
@@ -243,7 +244,9 @@ class Store:
     @property
     def chunk_steps(self) -> int:
         """Steps per stored chunk."""
-        return int(self._array(POSITION).chunks[0])
+        if self._chunk_steps is None:  # fixed at creation: read once
+            self._chunk_steps = int(self._array(POSITION).chunks[0])
+        return self._chunk_steps
 
     @property
     def config(self) -> Any:
@@ -386,7 +389,7 @@ class Store:
         are kept for the next :meth:`commit`.
         """
         encoders = self._encoders()
-        size = int(self._chunk_meta[POSITION]["chunk_grid"]["configuration"]["chunk_shape"][0])
+        size = self.chunk_steps
         if origin % size or not origin <= start <= stop:
             raise ValueError(f"bad step range: origin {origin}, start {start}, stop {stop}")
         if stop == start:
@@ -444,6 +447,11 @@ class Store:
                     finally:
                         os.close(fd)
                     fsync_dir(chunk.parent)
+
+    def reload_commit(self) -> None:
+        """Re-read the commit record from disk (another writer of this run may have moved it)."""
+        if self._archive is None:
+            self._commit = json.loads((self.path / COMMIT_FILE).read_text())
 
     def commit(self, record: dict[str, Any], *, fsync: bool) -> None:
         """Make ``record`` (with its ``steps_done``) the store's commit record: the commit point.
