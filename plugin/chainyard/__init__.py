@@ -14,11 +14,11 @@ prov_json(record) -> str            (W3C PROV-JSON)
 
 from __future__ import annotations
 
+import importlib
 from importlib import metadata as _metadata
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
-from chainyard.config import RunConfig, json_schema, load_config, parse_config
-from chainyard.engine import sample
 from chainyard.errors import (
     ChainyardError,
     ConfigError,
@@ -28,17 +28,52 @@ from chainyard.errors import (
     StoreLockedError,
     VerificationError,
 )
-from chainyard.provenance.pack import pack_store, unpack_store
-from chainyard.provenance.prov_json import prov_json
-from chainyard.provenance.record import provenance_record
-from chainyard.provenance.replay import replay
-from chainyard.provenance.verify import verify
-from chainyard.store import Store
+
+if TYPE_CHECKING:  # pragma: no cover
+    from chainyard.config import RunConfig, json_schema, load_config, parse_config
+    from chainyard.engine import sample
+    from chainyard.provenance.pack import pack_store, unpack_store
+    from chainyard.provenance.prov_json import prov_json
+    from chainyard.provenance.record import provenance_record
+    from chainyard.provenance.replay import replay
+    from chainyard.provenance.verify import verify
+    from chainyard.store import Store
 
 try:
     __version__ = _metadata.version("chainyard")
 except _metadata.PackageNotFoundError:  # running from a source tree
     __version__ = "0+unknown"
+
+# The public names are imported on first use (PEP 562): a process that needs only part of
+# the package (the commit helper process, `chainyard schema`) does not pay for emcee, scipy
+# and pydantic at start-up.
+_LAZY = {
+    "RunConfig": "chainyard.config",
+    "json_schema": "chainyard.config",
+    "load_config": "chainyard.config",
+    "parse_config": "chainyard.config",
+    "sample": "chainyard.engine.run",
+    "pack_store": "chainyard.provenance.pack",
+    "unpack_store": "chainyard.provenance.pack",
+    "prov_json": "chainyard.provenance.prov_json",
+    "provenance_record": "chainyard.provenance.record",
+    "replay": "chainyard.provenance.replay",
+    "verify": "chainyard.provenance.verify",
+    "Store": "chainyard.store",
+}
+
+
+def __getattr__(name: str) -> Any:
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module 'chainyard' has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_LAZY))
 
 
 def open_store(path: str | Path) -> Store:
@@ -46,6 +81,8 @@ def open_store(path: str | Path) -> Store:
 
     ``path`` is a store directory or a single-file pack written by :func:`pack_store`.
     """
+    from chainyard.store import Store
+
     return Store.open(path)
 
 
