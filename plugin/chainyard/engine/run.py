@@ -365,7 +365,7 @@ def _advance(
     writer = Committer(
         store,
         use_process=_use_process(config, target - done),
-        capacity=bytes_per_step * (store.chunk_steps + pending_cap),
+        capacity=bytes_per_step * (store.chunk_steps + pending_cap) + 64 * (3 + n_blobs),
         keep_open=lock_fds,
     )
 
