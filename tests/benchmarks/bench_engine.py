@@ -464,6 +464,45 @@ def best_us(fn: Callable[[], object], calls: int, repeat: int = 5) -> float:
     return best / calls * 1e6
 
 
+def store_like_arrays(
+    path: Path, rows: dict[str, np.ndarray], chunk: int, codec: str, level: int | None
+) -> tuple[dict[str, Any], dict[str, Any]]:
+    """Fresh zarr arrays laid out like a store's, for ``rows``, and their direct encoders."""
+    group = zarr.open_group(path, mode="w")
+    arrays = {}
+    for name, values in rows.items():
+        dtype = "bool" if values.dtype == bool else "float64"
+        arrays[name] = group.create_array(
+            name,
+            shape=values.shape,
+            chunks=(chunk, *values.shape[1:]),
+            dtype=dtype,
+            fill_value=False if dtype == "bool" else np.nan,
+            **codec_kwargs(codec, level, dtype),
+        )
+    encoders = {
+        name: chunk_encoder(json.loads((path / name / "zarr.json").read_text())) for name in rows
+    }
+    return arrays, encoders
+
+
+def write_direct(
+    path: Path,
+    arrays: dict[str, Any],
+    encoders: dict[str, Any],
+    rows: dict[str, np.ndarray],
+    chunk: int,
+) -> None:
+    """Write ``rows`` chunk by chunk as the engine does (chainyard.store.chunks, no fsync)."""
+    for name, values in rows.items():
+        enc = encoders[name]
+        assert enc is not None
+        for ci in range(-(-len(values) // chunk)):
+            key = arrays[name].metadata.encode_chunk_key((ci, *(0,) * (values.ndim - 1)))
+            data = enc.encode(values[ci * chunk : (ci + 1) * chunk])
+            write_chunk_file(path / name / key, data, fsync=False)
+
+
 def micro(b: Bench, repeat: int = 9) -> dict[str, Any]:
     """Per-step costs of the pieces chainyard adds, measured in isolation.
 
@@ -511,30 +550,9 @@ def micro(b: Bench, repeat: int = 9) -> dict[str, Any]:
     for rep in range(repeat):
         for codec, level in CODEC_VARIANTS:
             path = b.work / f"micro_{codec}_{level}_{rep}.zarr"
-            group = zarr.open_group(path, mode="w")
-            arrays = {}
-            for name, values in rows.items():
-                dtype = "bool" if values.dtype == bool else "float64"
-                arrays[name] = group.create_array(
-                    name,
-                    shape=(n, *values.shape[1:]),
-                    chunks=(chunk, *values.shape[1:]),
-                    dtype=dtype,
-                    fill_value=False if dtype == "bool" else np.nan,
-                    **codec_kwargs(codec, level, dtype),
-                )
-            encoders = {
-                name: chunk_encoder(json.loads((path / name / "zarr.json").read_text()))
-                for name in rows
-            }
+            arrays, encoders = store_like_arrays(path, rows, chunk, codec, level)
             t0 = time.perf_counter()
-            for name, values in rows.items():
-                enc = encoders[name]
-                assert enc is not None
-                for ci in range(-(-n // chunk)):
-                    key = arrays[name].metadata.encode_chunk_key((ci, *(0,) * (values.ndim - 1)))
-                    data = enc.encode(values[ci * chunk : (ci + 1) * chunk])
-                    write_chunk_file(path / name / key, data, fsync=False)
+            write_direct(path, arrays, encoders, rows, chunk)
             best_w[(codec, level)] = min(best_w[(codec, level)], time.perf_counter() - t0)
             if rep == 0:
                 for name, values in rows.items():
@@ -594,22 +612,7 @@ def gil_contention(b: Bench, rows: dict[str, np.ndarray], chunk: int) -> dict[st
             alone.append(sampling_loop(b))
             stop = threading.Event()
             path = b.work / f"gil_{how}_{codec}.zarr"
-            group = zarr.open_group(path, mode="w")
-            arrays = {}
-            for name, values in rows.items():
-                dtype = "bool" if values.dtype == bool else "float64"
-                arrays[name] = group.create_array(
-                    name,
-                    shape=values.shape,
-                    chunks=(chunk, *values.shape[1:]),
-                    dtype=dtype,
-                    fill_value=False if dtype == "bool" else np.nan,
-                    **codec_kwargs(codec, None, dtype),
-                )
-            encoders = {
-                name: chunk_encoder(json.loads((path / name / "zarr.json").read_text()))
-                for name in rows
-            }
+            arrays, encoders = store_like_arrays(path, rows, chunk, codec, None)
 
             def writer(
                 how: str = how,
@@ -619,18 +622,11 @@ def gil_contention(b: Bench, rows: dict[str, np.ndarray], chunk: int) -> dict[st
                 path: Path = path,
             ) -> None:
                 while not stop.is_set():
-                    for name, values in rows.items():
-                        if how == "zarr":
+                    if how == "zarr":
+                        for name, values in rows.items():
                             arrays[name][...] = values
-                            continue
-                        enc = encoders[name]
-                        assert enc is not None
-                        for ci in range(-(-len(values) // chunk)):
-                            key = arrays[name].metadata.encode_chunk_key(
-                                (ci, *(0,) * (values.ndim - 1))
-                            )
-                            data = enc.encode(values[ci * chunk : (ci + 1) * chunk])
-                            write_chunk_file(path / name / key, data, fsync=False)
+                    else:
+                        write_direct(path, arrays, encoders, rows, chunk)
 
             th = threading.Thread(target=writer, daemon=True)
             th.start()
