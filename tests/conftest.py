@@ -22,6 +22,18 @@ def log_prob(theta, data):
     return -0.5 * float(np.dot(theta, theta))
 """
 
+#: about 1 ms per step for 16 walkers: a few-second run, so kills land mid-run
+SLOW_MODEL = """
+import time
+import numpy as np
+
+def log_prob(theta, data):
+    t = time.perf_counter()
+    while time.perf_counter() - t < 6e-5:
+        pass
+    return -0.5 * float(np.dot(theta, theta))
+"""
+
 #: the minimal config from the core-engine issue, verbatim
 MINIMAL_CONFIG = """\
 model:

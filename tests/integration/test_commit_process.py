@@ -15,22 +15,20 @@ import pytest
 
 import chainyard
 from chainyard.engine.writer import process_writer_available
-from tests.conftest import assert_same_store, base_config, cli, popen_cli, tree_snapshot, write_run
+from tests.conftest import (
+    SLOW_MODEL,
+    assert_same_store,
+    base_config,
+    cli,
+    popen_cli,
+    tree_snapshot,
+    write_run,
+)
 
 pytestmark = pytest.mark.skipif(
     not process_writer_available(), reason="the commit helper process needs Linux"
 )
 
-SLOW_MODEL = """
-import time
-import numpy as np
-
-def log_prob(theta, data):
-    t = time.perf_counter()
-    while time.perf_counter() - t < 6e-5:
-        pass
-    return -0.5 * float(np.dot(theta, theta))
-"""
 
 
 def _config(writer: str, steps: int = 2400) -> dict:
@@ -95,6 +93,17 @@ def _committed(store: Path) -> int:
         return 0
 
 
+def _start_with_helper(tmp_path: Path, name: str, min_steps: int):
+    """Start a helper-process run; return (config, store, sampler process, helper pid) once
+    the helper writes chunks and ``min_steps`` are committed."""
+    cfg = write_run(tmp_path, _config("process"), SLOW_MODEL)
+    out = tmp_path / name
+    proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off")
+    _wait_for(lambda: _helper_writing(proc.pid) and _committed(out) >= min_steps)
+    (helper,) = _helpers(proc.pid)
+    return cfg, out, proc, helper
+
+
 @pytest.fixture(scope="module")
 def thread_reference(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """An uninterrupted run committing on the thread."""
@@ -111,11 +120,7 @@ def test_same_store_as_the_thread(tmp_path: Path, thread_reference: Path) -> Non
     SIGTERM and SIGINT sent to the helper itself are ignored (the sampler decides when to
     stop), and the store verifies.
     """
-    cfg = write_run(tmp_path, _config("process"), SLOW_MODEL)
-    out = tmp_path / "p.zarr"
-    proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off")
-    _wait_for(lambda: _helper_writing(proc.pid) and _committed(out) >= 300)
-    (helper,) = _helpers(proc.pid)
+    _, out, proc, helper = _start_with_helper(tmp_path, "p.zarr", 300)
     os.kill(helper, signal.SIGTERM)
     os.kill(helper, signal.SIGINT)
     _, err = proc.communicate(timeout=120)
@@ -131,11 +136,7 @@ def test_same_store_as_the_thread(tmp_path: Path, thread_reference: Path) -> Non
 @pytest.mark.slow
 def test_helper_dies_with_the_sampler(tmp_path: Path, thread_reference: Path) -> None:
     """SIGKILL of the sampler takes its helper down at once; the lock is free; resume exact."""
-    cfg = write_run(tmp_path, _config("process"), SLOW_MODEL)
-    out = tmp_path / "k.zarr"
-    proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off")
-    _wait_for(lambda: _helper_writing(proc.pid) and _committed(out) >= 500)
-    (helper,) = _helpers(proc.pid)
+    cfg, out, proc, helper = _start_with_helper(tmp_path, "k.zarr", 500)
     proc.send_signal(signal.SIGKILL)
     proc.wait(timeout=60)
     _wait_for(lambda: not _alive(helper), timeout=5)
@@ -149,11 +150,7 @@ def test_helper_dies_with_the_sampler(tmp_path: Path, thread_reference: Path) ->
 @pytest.mark.slow
 def test_killed_helper_stops_the_run_cleanly(tmp_path: Path, thread_reference: Path) -> None:
     """A helper that dies mid-run: one-line store error, exit 4, committed prefix intact."""
-    cfg = write_run(tmp_path, _config("process"), SLOW_MODEL)
-    out = tmp_path / "h.zarr"
-    proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off")
-    _wait_for(lambda: _helper_writing(proc.pid) and _committed(out) >= 300)
-    (helper,) = _helpers(proc.pid)
+    cfg, out, proc, helper = _start_with_helper(tmp_path, "h.zarr", 300)
     os.kill(helper, signal.SIGKILL)
     _, err = proc.communicate(timeout=120)
     assert proc.returncode == 4, err

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 import chainyard
-from tests.conftest import assert_same_store, base_config, cli, popen_cli, write_run
+from tests.conftest import SLOW_MODEL, assert_same_store, base_config, cli, popen_cli, write_run
 
 # 2,400 steps with chunks of 64 steps and commits every 50 steps: commits cut chunks in the
 # middle, so kills land before, inside and after chunk writes and commit-record renames.
@@ -23,17 +23,6 @@ KILL_CONFIG = base_config(
     storage={"chunk_steps": 64, "commit_every_steps": 50, "commit_every_seconds": 0.05},
 )
 
-SLOW_MODEL = """
-import time
-import numpy as np
-
-def log_prob(theta, data):
-    # about 1 ms per step for 16 walkers: a run lasts a few seconds
-    t = time.perf_counter()
-    while time.perf_counter() - t < 6e-5:
-        pass
-    return -0.5 * float(np.dot(theta, theta))
-"""
 
 
 @pytest.fixture(scope="module")
