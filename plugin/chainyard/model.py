@@ -260,7 +260,9 @@ class LoadedModel:
             lp = (
                 self._call_vectorized_plain(thetas) if self.vectorized else self._loop_plain(thetas)
             )
-            if not (lp < np.inf).all():  # one pass finds both NaN and +inf
+            # a sum that is NaN or +inf flags any NaN or +inf (or a finite overflow) in one
+            # cheap pass; the exact check runs only then
+            if not np.add.reduce(lp) < np.inf and not (lp < np.inf).all():
                 self._raise_bad(thetas, lp)
             return lp
         n = thetas.shape[0]

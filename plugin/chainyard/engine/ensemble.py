@@ -1,10 +1,10 @@
 """The affine-invariant ensemble sampler driver (emcee 3.1; Goodman and Weare 2010).
 
-Exact resume rests on three facts about emcee 3.1.6 (checked in the test suite): every step
-draws a fixed amount from the sampler's MT19937 ``RandomState``; the state after a step is
-fully described by positions, log-probabilities, blobs and that RNG state; and emcee's
-``random_state`` setter swallows malformed states silently, so the state is verified after
-it is set.
+Exact resume rests on two facts about emcee 3.1.6's moves (checked in the test suite): a
+step's draws come only from the MT19937 ``RandomState`` handed to the move, and the state
+after a step is fully described by positions, log-probabilities, blobs and that RNG state.
+The RNG state is set with ``RandomState.set_state`` and read back to verify it (emcee's own
+``random_state`` setter would swallow a malformed state silently).
 """
 
 from __future__ import annotations
@@ -14,6 +14,8 @@ from typing import Any
 
 import emcee
 import numpy as np
+from emcee.ensemble import walkers_independent
+from emcee.model import Model
 from numpy.typing import NDArray
 
 from chainyard.config import (
@@ -80,18 +82,17 @@ class _DeferErrors:
             return np.full(n, -np.inf)
 
 
-class _StepRecorder(emcee.backends.Backend):  # type: ignore[misc]
-    """A backend that keeps only the latest step's acceptance flags (nothing accumulates)."""
-
-    def grow(self, ngrow: int, blobs: Any) -> None:
-        return None
-
-    def save_step(self, state: emcee.State, accepted: NDArray[np.bool_]) -> None:
-        self.last_accepted = accepted
-
-
 class EnsembleDriver:
-    """Runs emcee's ``EnsembleSampler`` from a given state and RNG state.
+    """Steps emcee's ensemble moves from a given state and RNG state.
+
+    The moves are emcee's own objects (``propose``), stepped here rather than through
+    ``EnsembleSampler.sample``, whose loop also copies the whole RNG state into every step's
+    ``State`` (a 624-word copy, ~30 us), validates the move weights at every step
+    (``RandomState.choice``, ~8 us) and converts each walker's log-probability to a Python
+    float one at a time. Neither changes a draw: the move is chosen with the same single
+    uniform draw and cumulative-weight search that ``choice`` makes, so the chain and the RNG
+    state equal ``EnsembleSampler.sample``'s bit for bit (checked against emcee itself in
+    tests/unit/test_engine_ensemble.py).
 
     Parameters
     ----------
@@ -125,26 +126,25 @@ class EnsembleDriver:
         check_start: bool,
     ) -> None:
         walkers, n_params = position.shape
+        self._walkers = walkers
         self._n_blobs = model.n_blobs
-        self._recorder = _StepRecorder()
         self._model = _DeferErrors(model)
-        self._sampler = emcee.EnsembleSampler(
-            walkers,
-            n_params,
-            self._model,
-            moves=build_moves(moves, n_params),
-            vectorize=True,
-            backend=self._recorder,
-        )
+        built = build_moves(moves, n_params)
+        self._moves = [m for m, _ in built]
+        weights = np.array([w for _, w in built], dtype=np.float64)
+        weights /= np.sum(weights)  # as EnsembleSampler normalises them
+        self._cdf = weights.cumsum()  # as RandomState.choice builds it from p
+        self._cdf /= self._cdf[-1]
         wanted = random_state_from_json(random_state)
-        self._sampler.random_state = wanted
-        if not states_equal(self._sampler.random_state, wanted):
-            raise RuntimeError("emcee did not accept the sampler's random state")
+        self._rng = np.random.RandomState()  # emcee's generator (legacy MT19937)
+        self._rng.set_state(wanted)
+        if not states_equal(self._rng.get_state(), wanted):
+            raise RuntimeError("the sampler's random state did not take")
+        self._emcee_model = Model(self._model, self._compute, map, self._rng)
         self._state = emcee.State(
             np.array(position, dtype=np.float64),
             log_prob=np.array(log_prob, dtype=np.float64),
             blobs=self._to_emcee_blobs(blobs),
-            random_state=wanted,
         )
         self._check_start = check_start
 
@@ -153,47 +153,58 @@ class EnsembleDriver:
             return None
         return np.array(blobs[:, 0] if self._n_blobs == 1 else blobs, dtype=np.float64)
 
-    def _from_emcee_blobs(self, blobs: Any, walkers: int) -> NDArray[np.float64]:
+    def _from_emcee_blobs(self, blobs: Any) -> NDArray[np.float64]:
         if self._n_blobs == 0:
             return _NO_BLOBS
-        return np.asarray(blobs, dtype=np.float64).reshape(walkers, self._n_blobs)
+        return np.asarray(blobs, dtype=np.float64).reshape(self._walkers, self._n_blobs)
+
+    def _compute(
+        self, coords: NDArray[np.float64]
+    ) -> tuple[NDArray[np.float64], NDArray[np.float64] | None]:
+        """Log-probabilities (and blobs) of proposed positions, shaped as emcee's moves
+        expect them from ``EnsembleSampler.compute_log_prob``."""
+        total = float(np.add.reduce(coords, axis=None))  # one pass; exact check if not finite
+        if not -np.inf < total < np.inf and not np.isfinite(coords).all():
+            raise ModelError(
+                "the sampler proposed a non-finite position (the walkers have diverged: "
+                "check the model for log-probabilities that grow without bound)"
+            )
+        out = self._model(coords)
+        if self._n_blobs == 0:
+            return out, None
+        blobs = out[:, 1].copy() if self._n_blobs == 1 else out[:, 1:].copy()
+        return out[:, 0].copy(), blobs
 
     def steps(self, n: int) -> Iterator[StepRows]:
         """Advance ``n`` steps; see :class:`chainyard.engine.protocol.SamplerDriver`."""
         if n <= 0:
             return
-        try:
-            gen = self._sampler.sample(
-                self._state,
-                iterations=n,
-                store=True,
-                skip_initial_state_check=not self._check_start,
-                progress=False,
-            )
-            first = True
-            for state in gen:
-                if self._model.error is not None:
-                    raise self._model.error
-                if first:
-                    first = False
-                    self._check_start = False
-                walkers = state.coords.shape[0]
-                self._state = state
-                yield StepRows(
-                    position=state.coords,
-                    log_prob=state.log_prob,
-                    accepted=self._recorder.last_accepted,
-                    blobs=self._from_emcee_blobs(state.blobs, walkers),
-                )
-        except ValueError as exc:
-            if "condition number" in str(exc):
+        state = self._state
+        if self._check_start:
+            if not walkers_independent(state.coords):
                 raise ConfigError(
                     "parameters[*].init: the initial walkers are not linearly independent "
                     "(emcee's check); widen the init scales or use more spread-out positions"
-                ) from None
-            raise
-        self._state = emcee.State(self._state, copy=True)
+                )
+            self._check_start = False
+        rng, moves, cdf, model, guard = (
+            self._rng,
+            self._moves,
+            self._cdf,
+            self._emcee_model,
+            self._model,
+        )
+        single = len(moves) == 1
+        for _ in range(n):
+            u = rng.random_sample()  # RandomState.choice(moves, p=weights) draws exactly this
+            move = moves[0] if single else moves[int(cdf.searchsorted(u, side="right"))]
+            state, accepted = move.propose(model, state)  # updates ``state`` in place
+            if guard.error is not None:
+                raise guard.error
+            yield StepRows(
+                state.coords, state.log_prob, accepted, self._from_emcee_blobs(state.blobs)
+            )
 
     def random_state(self) -> dict[str, Any]:
         """The sampler's current RNG state as JSON values."""
-        return random_state_to_json(self._sampler.random_state)
+        return random_state_to_json(self._rng.get_state())

@@ -9,8 +9,7 @@ and (b) it can be rebuilt from the last stored rows plus that RNG state.
 from __future__ import annotations
 
 from collections.abc import Iterator
-from dataclasses import dataclass
-from typing import Any, Protocol
+from typing import Any, NamedTuple, Protocol
 
 import numpy as np
 from numpy.typing import NDArray
@@ -18,9 +17,8 @@ from numpy.typing import NDArray
 __all__ = ["SamplerDriver", "StepRows"]
 
 
-@dataclass(frozen=True)
-class StepRows:
-    """One step of every walker.
+class StepRows(NamedTuple):
+    """One step of every walker (a named tuple: made at every step, so kept cheap).
 
     The arrays may be the driver's own and are valid only until the next step: the receiver
     copies what it keeps (the run loop copies them into its buffer at once).

@@ -235,6 +235,11 @@ def _lock_fds(lock: Any) -> list[int]:
     return [fd] if isinstance(fd, int) else []
 
 
+#: the run loop's bookkeeping (commit due? progress? stop signal?) runs about this often (s)
+CHECK_SECONDS = 0.005
+#: ... but at least every this many steps
+MAX_CHECK_STRIDE = 256
+
 #: "auto" commits in a helper process for runs with at least this many steps to go
 PROCESS_WRITER_MIN_STEPS = 5000
 
@@ -360,7 +365,6 @@ def _advance(
         + f" replica {store.replica} at step {done:,} of {target:,}"
     )
     accepted_sum = 0
-    steps_here = 0
     first_commit = True
     writer = Committer(
         store,
@@ -372,7 +376,7 @@ def _advance(
     def commit(upto: int) -> None:
         """Hand steps ``[committed, upto)`` to the writer (the RNG state is taken now, at a
         step boundary); sampling goes on while they are encoded, written and flushed."""
-        nonlocal committed, first_commit
+        nonlocal committed, first_commit, i, counted
         if upto <= committed:
             return
         writer.wait()
@@ -390,30 +394,50 @@ def _advance(
         first_commit = False
         committed = upto
         buf.drop_before(committed)
+        i = counted = buf.fill  # the rows kept moved to the front of the buffer
 
     every_seconds = st.commit_every_seconds
-    last_commit_time = time.monotonic()
+    # committing at the last chunk boundary before the target leaves the final commit, which
+    # the caller waits for, at most one chunk to encode
+    last_boundary = ((target - 1) // buf.chunk) * buf.chunk
+    position, log_prob, accepted, blobs = buf.position, buf.log_prob, buf.accepted, buf.blobs
+    last_commit_time = last_check_time = time.monotonic()
     last_report = 0.0
-    step = done
+    step = last_check_step = done
+    i = counted = buf.fill  # next buffer row; rows before ``counted`` are in accepted_sum
+    check_row = i + 1  # the bookkeeping below runs when row ``check_row - 1`` is filled
+
+    def settle() -> None:
+        """Bring ``step``, the buffer fill and the acceptance count up to row ``i``."""
+        nonlocal step, counted, accepted_sum
+        buf.fill = i
+        step = buf.origin + i
+        accepted_sum += int(np.count_nonzero(accepted[counted:i]))
+        counted = i
+
     try:
         for rows in driver.steps(target - done):
-            i = step - buf.origin
-            buf.position[i] = rows.position
-            buf.log_prob[i] = rows.log_prob
-            buf.accepted[i] = rows.accepted
+            # per step only the copies (emcee's in-memory backend makes the same ones)
+            position[i] = rows.position
+            log_prob[i] = rows.log_prob
+            accepted[i] = rows.accepted
             if n_blobs:
-                buf.blobs[:, i] = rows.blobs.T
-            buf.fill = i + 1
-            step += 1
-            steps_here += 1
-            accepted_sum += int(np.count_nonzero(rows.accepted))  # 4x cheaper than .sum()
+                blobs[:, i] = rows.blobs.T
+            i += 1
+            if i < check_row:
+                continue
+            settle()
             now = time.monotonic()
-            if step - committed >= pending_cap or now - last_commit_time >= every_seconds:
+            if (
+                step - committed >= pending_cap
+                or now - last_commit_time >= every_seconds
+                or step == last_boundary
+            ):
                 commit(step)
                 last_commit_time = now
             if now - last_report >= 0.2:
                 last_report = now
-                reporter.update(step, accepted_sum / (steps_here * walkers))
+                reporter.update(step, accepted_sum / ((step - done) * walkers))
             if stop.signum is not None:
                 # at a step boundary: the RNG state matches the last buffered step
                 commit(step)
@@ -423,10 +447,24 @@ def _advance(
                     f"stopped by {name} at step {committed:,} of {target:,}; rerun to continue"
                 )
                 raise Interrupted(stop.signum)
+            # the next check about CHECK_SECONDS on (at once for slow models), and never past
+            # a point where a commit is due by step count
+            elapsed = now - last_check_time
+            stride = MAX_CHECK_STRIDE
+            if elapsed > 0:
+                stride = int(CHECK_SECONDS * (step - last_check_step) / elapsed)
+            last_check_time, last_check_step = now, step
+            due = committed + pending_cap
+            if step < last_boundary:
+                due = min(due, last_boundary)
+            check_row = min(step + max(1, min(stride, MAX_CHECK_STRIDE)), due) - buf.origin
+        settle()
         commit(step)
         writer.wait()
     finally:
         writer.close()  # an in-flight commit of finished steps completes
+        settle()
+        steps_here = step - done
         acc = accepted_sum / (steps_here * walkers) if steps_here else float("nan")
         reporter.update(step, acc)
         reporter.close(acc)
