@@ -85,7 +85,7 @@ MODE_LABEL = {"vec": "vectorised", "scalar": "not vectorised"}
 CONFIGS: dict[str, tuple[str, dict[str, Any] | None]] = {
     "emcee": ("bare emcee, in-memory backend (baseline)", None),
     "guard": ("emcee + chainyard model guard (no store)", None),
-    "driver": ("chainyard EnsembleDriver only (no store)", None),
+    "driver": ("chainyard's step loop over emcee's moves (EnsembleDriver, no store)", None),
     "cy_none": ("chainyard.sample, codec none, fsync off", {"codec": "none", "fsync": False}),
     "cy_nofsync": ("chainyard.sample, pcodec, fsync off", {"fsync": False}),
     "cy_zstd": ("chainyard.sample, zstd, fsync on", {"codec": "zstd"}),
@@ -598,11 +598,12 @@ GIL_PATHS = (("zarr", "pcodec"), ("direct", "pcodec"), ("zarr", "none"), ("direc
 def gil_contention(b: Bench, rows: dict[str, np.ndarray], chunk: int) -> dict[str, Any]:
     """How much a thread that keeps writing commits slows the sampling loop, per write path.
 
-    The stand-in for the sampling thread is emcee's own loop (the EnsembleDriver on the
-    vectorised model, 1,000 steps); another thread writes one commit's rows after another,
-    either through zarr (``array[a:b] = rows``: zarr's asyncio write path) or as the engine
-    does (chunks encoded and written directly). Ratio = loop time with the writer busy / loop
-    time alone; x1.00 would mean the writes run fully beside sampling on the second core.
+    The stand-in for the sampling thread is chainyard's step loop over emcee's moves (the
+    EnsembleDriver on the vectorised model, 1,000 steps); another thread writes one commit's
+    rows after another, either through zarr (``array[a:b] = rows``: zarr's asyncio write
+    path) or as the engine does (chunks encoded and written directly). Ratio = loop time with
+    the writer busy / loop time alone; x1.00 would mean the writes run fully beside sampling
+    on the second core.
     """
     out: dict[str, Any] = {}
     alone: list[float] = []
@@ -805,14 +806,24 @@ def report(
             )
     over = {m: median(ratios(m, "cy_default")) for m in ("vec", "scalar")}
     over_cpu = {m: median(t1.cpu_ratio[(m, "cy_default")]) for m in ("vec", "scalar")}
+    own = {m: store_own(t1, m) for m in ("vec", "scalar")}
     # ---- decomposition (differences of medians of per-pair ratios, in % of emcee time)
     parts = [
         ("model guard (chainyard.model.LoadedModel + _DeferErrors)", "emcee", "guard"),
-        ("EnsembleDriver per-step work (row copies, State handling)", "guard", "driver"),
-        ("run loop + store writes/commits, uncompressed, no fsync", "driver", "cy_none"),
+        ("chainyard's step loop instead of EnsembleSampler.sample", "guard", "driver"),
+        (
+            "run loop + store: row copies, writes, commits (uncompressed, no fsync)",
+            "driver",
+            "cy_none",
+        ),
         ("pcodec compression (vs none)", "cy_none", "cy_nofsync"),
         ("fsync of chunks and commit record", "cy_nofsync", "cy_default"),
         ("total: default chainyard vs bare emcee", "emcee", "cy_default"),
+        (
+            "(aside) the store alone: default chainyard vs its store-less loop",
+            "driver",
+            "cy_default",
+        ),
         ("(aside) commits on a thread instead of the helper process", "cy_default", "cy_thread"),
     ]
     rows_dec = []
@@ -891,6 +902,19 @@ def report(
             "<= +5% (wall time)",
             f"{pct(over['scalar'])} wall (CPU time: {pct(over_cpu['scalar'])})",
             ok(over["scalar"] <= TARGET_OVERHEAD),
+        ],
+        [
+            "(for honesty) the store's own cost, vectorised: default run vs chainyard's "
+            "store-less loop",
+            "the same 5% rule (not the issue's target)",
+            f"{pct(own['vec'])} wall",
+            ok(own["vec"] <= TARGET_OVERHEAD),
+        ],
+        [
+            "(for honesty) the store's own cost, not vectorised",
+            "the same 5% rule (not the issue's target)",
+            f"{pct(own['scalar'])} wall",
+            ok(own["scalar"] <= TARGET_OVERHEAD),
         ],
         [
             "speed vs emcee HDF5 backend, vectorised",
@@ -1073,7 +1097,7 @@ def report(
         for how, c in GIL_PATHS
     )
     out.append(
-        "Thread contention: emcee's sampling loop (the EnsembleDriver, vectorised model, "
+        "Thread contention: chainyard's step loop (the EnsembleDriver, vectorised model, "
         f"1,000 steps, fastest of 3) runs {gil} while another thread keeps writing such "
         "commits back to back (x1.00 would mean the writes run fully beside sampling on the "
         "second core). The engine writes directly: zarr's asyncio write path holds the GIL "
@@ -1124,6 +1148,14 @@ EVAL_HEADER = [
     "share of emcee step",
 ]
 WRITE_HEADER = ["codec", "write us/step", "position B/draw", "share of emcee step (vectorised)"]
+
+
+def store_own(t1: Part1, mode: str) -> float:
+    """The default run's time over the store-less driver loop's, each against its own
+    neighbouring emcee run (medians of the per-pair ratios): what the store alone costs."""
+    return (1 + median(t1.ratio[(mode, "cy_default")])) / (
+        1 + median(t1.ratio[(mode, "driver")])
+    ) - 1
 
 
 def emcee_step_us(r5: dict[str, Any], mode: str) -> float:
@@ -1178,7 +1210,6 @@ def diagnosis(
     w_z = r5[("write", "zstd", None)][0]
     budget = {m: TARGET_OVERHEAD * step[m] for m in modes}
     cpu_total = {m: median(t1.cpu_ratio[(m, "cy_default")]) for m in modes}
-    main_total = {m: median(t1.main_ratio[(m, "cy_default")]) for m in modes}
 
     def cpu_part(a: str, c: str, mode: str, main: bool = False) -> float:
         d = t1.main_ratio if main else t1.cpu_ratio
@@ -1188,7 +1219,6 @@ def diagnosis(
     entries = profiles["vec"][2]
     writes = [e for e in entries if e[4] == "write_rows" and e[3].startswith("chainyard/")]
     on_main = bool(writes) and writes[0][0] > 0.01
-    iso = {m: (guard[m] + ((w_pc + r5["checksum"]) if on_main else 0.0)) / step[m] for m in modes}
     small = [
         f"{c if lv is None else f'{c} level {lv}'} ({us:.1f} us, {bpd:.2f} B)"
         for (c, lv) in CODEC_VARIANTS
@@ -1201,23 +1231,32 @@ def diagnosis(
         for us, bpd in [r5[("write", c, lv)]]
         if bpd <= TARGET_BYTES_PER_DRAW and us <= budget["vec"]
     ]
-    parts_iso = "guard" + (", pcodec write of the commits and checksums" if on_main else "")
+    own = {m: store_own(t1, m) for m in modes}
+    drv = {m: median(t1.ratio[(m, "driver")]) for m in modes}
+    own_main = {
+        m: (1 + median(t1.main_ratio[(m, "cy_default")]))
+        / (1 + median(t1.main_ratio[(m, "driver")]))
+        - 1
+        for m in modes
+    }
     paras = [
         f"A +5% budget is {budget['vec']:.0f} us per step vectorised (a bare-emcee step "
         f"takes {step['vec']:.0f} us at best here) and {budget['scalar']:.0f} us not "
-        f"vectorised ({step['scalar']:.0f} us). The default chainyard run spends "
-        f"{pct(over['vec'])} / {pct(over['scalar'])} more in wall time "
-        f"({pct(cpu_total['vec'])} / {pct(cpu_total['scalar'])} in CPU time). The parts "
-        f"isolated below ({parts_iso}) account for {pct(iso['vec'])} / {pct(iso['scalar'])}; "
-        "the remainder is per-step work of the run loop and driver that this benchmark does "
-        "not isolate (row copies into the buffer, acceptance sums, clock reads, progress "
-        "updates, cache effects of the larger working set) and per-run fixed costs. The "
-        "sampling thread's own CPU time grows by only "
-        f"{pct(main_total['vec'])} / {pct(main_total['scalar'])}, so about "
-        f"{pct(over['vec'] - main_total['vec'])} / {pct(over['scalar'] - main_total['scalar'])} "
-        "of wall time is the sampling thread not running: waiting for the GIL while other "
-        "threads (writer, zarr's I/O loop) hold it, for a core while they encode (this "
-        "machine has two, shared with other jobs), or for the disk.",
+        f"vectorised ({step['scalar']:.0f} us). The default chainyard run's wall time is "
+        f"{pct(over['vec'])} / {pct(over['scalar'])} against bare emcee's "
+        f"({pct(cpu_total['vec'])} / {pct(cpu_total['scalar'])} in CPU time, which includes "
+        "the commit helper's work on the other core). Its step loop alone, storing nothing, "
+        f"runs {pct(drv['vec'])} / {pct(drv['scalar'])} against emcee's "
+        "EnsembleSampler.sample: at every step emcee's loop copies the whole RNG state into "
+        "the State it yields (a 624-word get_state), validates the move weights "
+        "(RandomState.choice) and converts each walker's log-probability to a Python float "
+        "one by one; chainyard's loop steps the same move objects with the same random draws "
+        "and leaves those out (the chains are bitwise equal, section 3). The store alone costs "
+        f"{pct(own['vec'])} / {pct(own['scalar'])} of wall time over that loop (the sampling "
+        f"thread's CPU: {pct(own_main['vec'])} / {pct(own_main['scalar'])}; the rest is "
+        "waiting, mostly for the final commit, which the caller waits for). Row copies into "
+        "the buffer are part of it: emcee's in-memory backend makes the same copies inside "
+        "the baseline.",
     ]
     loop_us = cpu_part("driver", "cy_none", "vec") * step["vec"]
     largest = guard["vec"] > (w_pc if on_main else loop_us)
@@ -1288,12 +1327,13 @@ def diagnosis(
         )
     paras.append(
         "3. From the sampling thread's CPU time in part 1 (process CPU in brackets, which "
-        "adds other threads' work): the EnsembleDriver's per-step work "
+        "adds other threads' work): chainyard's step loop instead of EnsembleSampler.sample "
         f"{pct(cpu_part('guard', 'driver', 'vec', True))} vectorised / "
         f"{pct(cpu_part('guard', 'driver', 'scalar', True))} not "
         f"({pct(cpu_part('guard', 'driver', 'vec'))} / "
-        f"{pct(cpu_part('guard', 'driver', 'scalar'))}); the run loop with uncompressed "
-        f"writes, checksums and commits {pct(cpu_part('driver', 'cy_none', 'vec', True))} / "
+        f"{pct(cpu_part('guard', 'driver', 'scalar'))}); the run loop with row copies, "
+        "uncompressed writes, checksums and commits "
+        f"{pct(cpu_part('driver', 'cy_none', 'vec', True))} / "
         f"{pct(cpu_part('driver', 'cy_none', 'scalar', True))} "
         f"({pct(cpu_part('driver', 'cy_none', 'vec'))} / "
         f"{pct(cpu_part('driver', 'cy_none', 'scalar'))}); pcodec instead of no compression "
@@ -1346,10 +1386,10 @@ def interpretation(
         paras.append(
             f"{MODE_LABEL[mode].capitalize()}: of the {pct(over[mode])} wall-time overhead "
             f"({pct(cpu(mode, 'cy_default'))} in CPU time), {pct(eng_w)} ({pct(eng_c)} CPU) "
-            "is there before any byte is stored (emcee driven through chainyard's model guard "
-            f"and EnsembleDriver, no store) and {pct(over[mode] - eng_w)} "
+            "is there before any byte is stored (chainyard's model guard and step loop over "
+            f"emcee's moves, no store) and {pct(over[mode] - eng_w)} "
             f"({pct(cpu(mode, 'cy_default') - eng_c)} CPU) is the run loop with the store "
-            "(buffering, checksums, zarr writes and compression, commits). Turning fsync off "
+            "(row copies, checksums, encoding and writes, commits). Turning fsync off "
             f"gives {pct(wall(mode, 'cy_nofsync'))}, zstd instead of pcodec "
             f"{pct(wall(mode, 'cy_zstd'))}, no compression and no fsync "
             f"{pct(wall(mode, 'cy_none'))}."
