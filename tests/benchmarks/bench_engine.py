@@ -1067,8 +1067,9 @@ def report(
         "between consecutive configurations of part 1, as wall / CPU share of bare-emcee time "
         "(medians of the per-pair ratios) and wall microseconds per step (medians of the "
         "per-pair time differences). Small parts are within the noise and can come out "
-        "negative. The aside row is not part of the sum: it compares the default run with "
-        "the same run committing on a background thread.\n"
+        "negative. The aside rows are not part of the sum: one compares the default run with "
+        "chainyard's store-less loop (what the store alone costs), the other with the same "
+        "run committing on a background thread.\n"
     )
     out.append(md_table(["part", MODE_LABEL["vec"], MODE_LABEL["scalar"]], rows_dec) + "\n")
     rows_eval, rows_write = micro_rows(r5, t1, steps)
@@ -1384,7 +1385,7 @@ def interpretation(
     for mode in ("vec", "scalar"):
         eng_w, eng_c = wall(mode, "driver"), cpu(mode, "driver")
         paras.append(
-            f"{MODE_LABEL[mode].capitalize()}: of the {pct(over[mode])} wall-time overhead "
+            f"{MODE_LABEL[mode].capitalize()}: of the {pct(over[mode])} wall-time difference "
             f"({pct(cpu(mode, 'cy_default'))} in CPU time), {pct(eng_w)} ({pct(eng_c)} CPU) "
             "is there before any byte is stored (chainyard's model guard and step loop over "
             f"emcee's moves, no store) and {pct(over[mode] - eng_w)} "

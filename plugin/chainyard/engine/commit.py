@@ -9,7 +9,7 @@ the commit process (:mod:`chainyard.engine.commit_process`), so both write the s
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass, fields
 from typing import Any
 
 from numpy.typing import NDArray
@@ -51,8 +51,9 @@ class CommitJob:
     fsync: bool
 
     def to_json(self) -> dict[str, Any]:
-        """The job as JSON values."""
-        return asdict(self)
+        """The job as JSON values (shallow: the fields already are; ``dataclasses.asdict``
+        would deep-copy the 624-word RNG key element by element on the sampling thread)."""
+        return {f.name: getattr(self, f.name) for f in fields(self)}
 
     @classmethod
     def from_json(cls, data: Mapping[str, Any]) -> CommitJob:
