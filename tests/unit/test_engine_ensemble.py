@@ -58,10 +58,16 @@ MOVES: dict[str, list[dict[str, Any]]] = {
     "de_snooker": [{"kind": "de_snooker"}],
     "gaussian_vector": [{"kind": "gaussian", "proposal_sd": [0.5, 0.3, 0.4], "update": "vector"}],
     "gaussian_random": [{"kind": "gaussian", "proposal_sd": 0.4, "update": "random"}],
+    "gaussian_sequential": [{"kind": "gaussian", "proposal_sd": 0.4, "update": "sequential"}],
     "mix": [
         {"kind": "stretch", "weight": 0.5},
         {"kind": "differential_evolution", "weight": 0.3},
         {"kind": "de_snooker", "weight": 0.2},
+    ],
+    "mix_all": [
+        {"kind": "walk", "weight": 1.0},
+        {"kind": "gaussian", "proposal_sd": 0.3, "weight": 2.0},
+        {"kind": "stretch", "weight": 3.0},
     ],
 }
 
