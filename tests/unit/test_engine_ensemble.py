@@ -20,7 +20,7 @@ import chainyard
 from chainyard.engine.ensemble import EnsembleDriver, build_moves
 from chainyard.errors import ConfigError, ModelError
 from chainyard.model import load_model
-from chainyard.streams import random_state_to_json, states_equal
+from chainyard.streams import random_state_from_json, random_state_to_json, states_equal
 
 WALKERS, NDIM, STEPS = 16, 3, 150
 
@@ -140,14 +140,8 @@ def _compare(cfg: Any, model: Any, bare: Any, vectorized: bool, n_blobs: int) ->
     assert 0 < accepted.sum() < STEPS * WALKERS
     # the RNG state after the last step: an exact resume starts from here
     after = np.random.RandomState()
-    after.set_state(tuple(_state_tuple(driver.random_state())))
+    after.set_state(random_state_from_json(driver.random_state()))
     assert states_equal(after.get_state(), sampler.random_state)
-
-
-def _state_tuple(record: dict[str, Any]) -> tuple[Any, ...]:
-    from chainyard.streams import random_state_from_json
-
-    return random_state_from_json(record)
 
 
 @pytest.mark.parametrize("moves", list(MOVES), ids=list(MOVES))
@@ -177,8 +171,9 @@ def test_dependent_start_is_a_config_error(tmp_path: Path) -> None:
     pos = np.tile(np.array([[0.1, 0.2, 0.3]]), (WALKERS, 1))
     rs = random_state_to_json(np.random.RandomState(1).get_state())
     lp = model(pos)
-    driver = EnsembleDriver(model, cfg.sampler.moves, pos, lp, np.empty((WALKERS, 0)), rs,
-                            check_start=True)
+    driver = EnsembleDriver(
+        model, cfg.sampler.moves, pos, lp, np.empty((WALKERS, 0)), rs, check_start=True
+    )
     with pytest.raises(ConfigError, match="not linearly independent"):
         next(driver.steps(1))
 
@@ -190,8 +185,9 @@ def test_non_finite_proposal_is_a_model_error(tmp_path: Path) -> None:
     lp = model(pos)
     pos[3, 1] = np.inf
     rs = random_state_to_json(np.random.RandomState(1).get_state())
-    driver = EnsembleDriver(model, cfg.sampler.moves, pos, lp, np.empty((WALKERS, 0)), rs,
-                            check_start=False)
+    driver = EnsembleDriver(
+        model, cfg.sampler.moves, pos, lp, np.empty((WALKERS, 0)), rs, check_start=False
+    )
     with pytest.raises(ModelError, match="non-finite position"):
         for _ in driver.steps(5):
             pass

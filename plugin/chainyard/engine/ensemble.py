@@ -199,6 +199,7 @@ class EnsembleDriver:
             u = rng.random_sample()  # RandomState.choice(moves, p=weights) draws exactly this
             move = moves[0] if single else moves[int(cdf.searchsorted(u, side="right"))]
             state, accepted = move.propose(model, state)  # updates ``state`` in place
+            self._state = state
             if guard.error is not None:
                 raise guard.error
             yield StepRows(
