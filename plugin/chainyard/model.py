@@ -8,11 +8,9 @@ non-vectorised models are looped over walkers.
 
 from __future__ import annotations
 
-import csv
 import hashlib
 import importlib
 import importlib.util
-import json
 import sys
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -23,6 +21,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from chainyard.config import RunConfig
+from chainyard.datafiles import read_data_file
 from chainyard.errors import ConfigError, ModelError
 
 __all__ = [
@@ -120,35 +119,6 @@ def load_function(ref: str, base_dir: Path, field: str) -> Callable[..., Any]:
     return func  # type: ignore[no-any-return]
 
 
-def _read_csv(path: Path) -> dict[str, NDArray[Any]]:
-    with open(path, newline="") as f:
-        rows = list(csv.reader(f))
-    if not rows:
-        raise ConfigError(f"model.data: {path} is empty (a header row is required)")
-    header, body = rows[0], [r for r in rows[1:] if r]
-    columns: dict[str, NDArray[Any]] = {}
-    for j, name in enumerate(header):
-        name = name.strip()
-        values = [r[j].strip() if j < len(r) else "" for r in body]
-        try:
-            columns[name] = np.array([float(v) for v in values], dtype=np.float64)
-        except ValueError:
-            columns[name] = np.array(values, dtype=str)
-    return columns
-
-
-def _jsonify_arrays(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {k: _jsonify_arrays(v) for k, v in value.items()}
-    if (
-        isinstance(value, list)
-        and value
-        and all(isinstance(v, int | float) and not isinstance(v, bool) for v in value)
-    ):
-        return np.asarray(value, dtype=np.float64)
-    return value
-
-
 def load_data(config: RunConfig) -> Any:
     """Load the configured data file (None when none is configured).
 
@@ -173,23 +143,7 @@ def load_data(config: RunConfig) -> Any:
             raise ConfigError(
                 f"model.data_loader: failed on {path}: {type(exc).__name__}: {exc}"
             ) from None
-    suffix = path.suffix.lower()
-    try:
-        if suffix == ".csv":
-            return _read_csv(path)
-        if suffix == ".npz":
-            with np.load(path, allow_pickle=False) as npz:
-                return {k: npz[k] for k in npz.files}
-        if suffix == ".json":
-            return _jsonify_arrays(json.loads(path.read_text()))
-    except ConfigError:
-        raise
-    except Exception as exc:
-        raise ConfigError(f"model.data: cannot read {path}: {type(exc).__name__}: {exc}") from None
-    raise ConfigError(
-        f"model.data: {path.name}: unsupported file type {suffix!r}; allowed: .csv, .npz, "
-        ".json, or set model.data_loader"
-    )
+    return read_data_file(path)
 
 
 @dataclass

@@ -1,0 +1,87 @@
+"""Shared counters and helpers of the reliability suite.
+
+Every reliability test reports what it did through the ``tally`` fixture; at the end of the
+session one summary line is printed (kills survived, faults injected, inputs tried, data lost)
+and the counts are written to ``tests/reliability/.last_tally.json`` (not committed) so that
+``RESULTS.md`` can quote a real run.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+
+TALLY_FILE = Path(__file__).with_name(".last_tally.json")
+
+
+class Tally:
+    """Counts of one test session (module-level, shared by every reliability test)."""
+
+    def __init__(self) -> None:
+        self.kills = 0
+        self.faults = 0
+        self.inputs = 0
+        self.lost = 0
+
+    def killed(self, n: int = 1) -> None:
+        """``n`` processes were killed and the data survived (call after checking)."""
+        self.kills += n
+
+    def fault(self, n: int = 1) -> None:
+        """``n`` faults (model, storage, corruption) were injected."""
+        self.faults += n
+
+    def input(self, n: int = 1) -> None:
+        """``n`` bad or untrusted inputs were tried."""
+        self.inputs += n
+
+    def assert_intact(self, before: dict[str, str], path: Path, what: str = "") -> None:
+        """Assert that the files hashed in ``before`` are byte-identical now; count a loss."""
+        after = snapshot(path)
+        changed = sorted(k for k in before if after.get(k) != before[k])
+        if changed:
+            self.lost += 1
+        assert not changed, f"{what or path}: committed files changed or vanished: {changed[:5]}"
+
+    def line(self) -> str:
+        return (
+            f"reliability: kills survived {self.kills}, faults injected {self.faults}, "
+            f"inputs tried {self.inputs}, data lost: {self.lost}"
+        )
+
+
+TALLY = Tally()
+
+
+def snapshot(path: Path) -> dict[str, str]:
+    """SHA-256 of every file under ``path`` (or of ``path`` itself), keyed by relative path."""
+    path = Path(path)
+    if path.is_file():
+        return {".": hashlib.sha256(path.read_bytes()).hexdigest()}
+    out = {}
+    for p in sorted(path.rglob("*")):
+        if p.is_file() and not p.is_symlink():
+            out[str(p.relative_to(path))] = hashlib.sha256(p.read_bytes()).hexdigest()
+    return out
+
+
+@pytest.fixture
+def tally() -> Iterator[Tally]:
+    """The session's reliability counters."""
+    yield TALLY
+
+
+def pytest_terminal_summary(terminalreporter: pytest.TerminalReporter) -> None:
+    t = TALLY
+    if t.kills or t.faults or t.inputs or t.lost:
+        terminalreporter.write_line(t.line())
+        TALLY_FILE.write_text(
+            json.dumps(
+                {"kills": t.kills, "faults": t.faults, "inputs": t.inputs, "lost": t.lost}
+            )
+            + "\n"
+        )
