@@ -10,10 +10,14 @@ from __future__ import annotations
 __all__ = [
     "ChainyardError",
     "ConfigError",
+    "LimitExceededError",
     "ModelError",
+    "StorageFaultError",
     "StoreConflictError",
     "StoreError",
     "StoreLockedError",
+    "TargetsNotMetError",
+    "UnsafeInputError",
     "VerificationError",
 ]
 
@@ -28,6 +32,13 @@ class ChainyardError(Exception):
     """
 
     exit_code: int = 1
+
+
+class TargetsNotMetError(ChainyardError):
+    """The run's convergence/precision targets are not met (``diagnose --strict``,
+    ``sample --until-targets`` when its budget is spent)."""
+
+    exit_code = 1
 
 
 class ConfigError(ChainyardError):
@@ -84,3 +95,24 @@ class VerificationError(ChainyardError):
     """
 
     exit_code = 7
+
+
+class UnsafeInputError(StoreError):
+    """A store or pack from elsewhere is malformed or unsafe (a path escaping its folder, a
+    symlink member, a member missing from the manifest); nothing was written."""
+
+    exit_code = 4
+
+
+class LimitExceededError(StoreError):
+    """A store, pack or config declares or holds more than a documented limit allows
+    (see :mod:`chainyard.limits`); the message names the limit and how to raise it."""
+
+    exit_code = 4
+
+
+class StorageFaultError(ChainyardError):
+    """The file system refused a write or read (disk full, read-only, file-size limit, I/O
+    error). The last commit is intact; the message names the path and the system error."""
+
+    exit_code = 8

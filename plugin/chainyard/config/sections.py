@@ -58,6 +58,24 @@ class ModelSpec(_Strict):
         ),
     )
 
+    call_time_limit_seconds: float | None = Field(
+        default=None,
+        gt=0,
+        description=(
+            "Optional limit on the wall time of one call of log_prob (seconds). A call that "
+            "takes longer stops the run with a model error naming the step and walker; the "
+            "finished steps stay committed. None: no limit. Does not change the draws."
+        ),
+    )
+    check_deterministic: bool = Field(
+        default=True,
+        description=(
+            "At the first commit, evaluate log_prob again at a few stored positions and stop "
+            "if the results differ bitwise (a model that draws random numbers or reads the "
+            "clock cannot be resumed exactly). Does not change the draws."
+        ),
+    )
+
     @field_validator("log_prob", "data_loader")
     @classmethod
     def _function_reference(cls, value: str | None) -> str | None:
