@@ -42,7 +42,14 @@ from chainyard.diagnostics._validation import MIN_DRAWS
 from chainyard.diagnostics.pooled import pooled_summary
 from chainyard.store import Store
 
-__all__ = ["WHAT_IS_COMPARED", "diagnose", "format_table", "read_column"]
+__all__ = [
+    "WHAT_IS_COMPARED",
+    "ArrayReplica",
+    "diagnose",
+    "diagnose_arrays",
+    "format_table",
+    "read_column",
+]
 
 FloatArray = npt.NDArray[np.float64]
 
@@ -51,6 +58,94 @@ WHAT_IS_COMPARED = (
     "of every replica as a chain. tau: per replica, walkers averaged; largest reported. "
     "mESS: walker-mean traces of all replicas."
 )
+
+
+class ArrayReplica:
+    """One replica's draws held in memory, read through the same interface as a store.
+
+    Used by :func:`diagnose_arrays` (simulation studies, tests) so that in-memory draws go
+    through exactly the code path of :func:`diagnose`.
+
+    Parameters
+    ----------
+    draws : ndarray, shape (steps, walkers, params)
+    accepted : ndarray of bool, shape (steps, walkers), optional
+        Acceptance flags; all True if not given (no acceptance information).
+    names : sequence of str
+    replica : int
+    """
+
+    chunk_steps = 1 << 30  # one "chunk": the array is already in memory
+
+    def __init__(
+        self,
+        draws: FloatArray,
+        accepted: npt.NDArray[np.bool_] | None,
+        names: Sequence[str],
+        replica: int,
+    ) -> None:
+        self._draws = draws
+        self._accepted = accepted
+        self.param_names = tuple(names)
+        self.replica = replica
+        self.steps_done = int(draws.shape[0])
+        self.walkers = int(draws.shape[1])
+
+    def column(self, param: int, start: int = 0, stop: int | None = None) -> FloatArray:
+        """One parameter, shape (steps, walkers)."""
+        return self._draws[start:stop, :, param]
+
+    def accepted(self, start: int = 0, stop: int | None = None) -> npt.NDArray[np.bool_]:
+        """Acceptance flags, shape (steps, walkers)."""
+        if self._accepted is None:
+            stop = self.steps_done if stop is None else stop
+            return np.ones((stop - start, self.walkers), dtype=bool)
+        return self._accepted[start:stop]
+
+
+def diagnose_arrays(
+    draws: FloatArray,
+    targets: TargetsSpec | None = None,
+    *,
+    accepted: npt.NDArray[np.bool_] | None = None,
+    names: Sequence[str] | None = None,
+) -> dict[str, Any]:
+    """:func:`diagnose` on draws held in memory (same code, same result dict).
+
+    Parameters
+    ----------
+    draws : ndarray, shape (replicas, steps, walkers, params)
+        float64 draws of every replica (after burn-in).
+    targets : TargetsSpec, optional
+        Defaults to ``TargetsSpec()`` (the config defaults).
+    accepted : ndarray of bool, shape (replicas, steps, walkers), optional
+        Acceptance flags; if not given the acceptance checks see every proposal accepted.
+    names : sequence of str, optional
+        Parameter names (default ``x0, x1, ...``).
+
+    Returns
+    -------
+    dict
+        As :func:`diagnose`.
+    """
+    draws = np.asarray(draws, dtype=np.float64)
+    if draws.ndim != 4:
+        raise ValueError(
+            f"draws must have shape (replicas, steps, walkers, params), got {draws.shape}"
+        )
+    n_params = draws.shape[3]
+    names = tuple(names) if names is not None else tuple(f"x{j}" for j in range(n_params))
+    if len(names) != n_params:
+        raise ValueError(f"{len(names)} names given for {n_params} parameters")
+    if accepted is not None:
+        accepted = np.asarray(accepted, dtype=bool)
+        if accepted.shape != draws.shape[:3]:
+            raise ValueError(f"accepted must have shape {draws.shape[:3]}, got {accepted.shape}")
+    replicas = [
+        ArrayReplica(draws[r], None if accepted is None else accepted[r], names, r)
+        for r in range(draws.shape[0])
+    ]
+    return diagnose(replicas, targets or TargetsSpec())  # type: ignore[arg-type]
 
 
 def _finite(value: float) -> float | None:
