@@ -1,8 +1,12 @@
-"""Derived stores: a source store with burn-in discarded and/or thinned, never resumable."""
+"""Derived stores: a source store with burn-in discarded and/or thinned, never resumable.
+
+A derived store is written to a temporary sibling and then swapped in under the output's
+single-writer lock (see :mod:`chainyard.analysis.outputs`), so a kill at any instant leaves
+either the previous derived store or the new one, complete.
+"""
 
 from __future__ import annotations
 
-import shutil
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -10,6 +14,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from chainyard.analysis.outputs import publish_derived
 from chainyard.analysis.records import input_identity
 from chainyard.errors import StoreError
 from chainyard.provenance import utc_now
@@ -33,7 +38,9 @@ def derive_store(
     source : Store
         The store to derive from (read one chunk at a time).
     out : str or Path
-        The new store's directory; an existing one there is replaced.
+        The new store's directory. Only a derived chainyard store there is replaced; the
+        source, a folder holding it or the current folder, a path inside any store and
+        anything else already at ``out`` are refused.
     discard : int
         Burn-in steps dropped from the start.
     factor : int
@@ -47,6 +54,13 @@ def derive_store(
     Store
         The derived store; its ``attrs["derived"]`` names the source (path and digest), the
         step mapping and the records.
+
+    Raises
+    ------
+    StoreError
+        If ``out`` is refused (exit 4) or the step range is empty.
+    StoreLockedError
+        If another process is writing ``out`` (exit 6).
     """
     if not 0 <= discard < source.steps_done:
         raise StoreError(
@@ -55,8 +69,15 @@ def derive_store(
     if factor < 1:
         raise StoreError(f"thinning factor must be >= 1, got {factor}")
     out = Path(out)
-    if out.exists():
-        shutil.rmtree(out)
+    with publish_derived(out, source=Path(source.path)) as tmp:
+        _write_derived(source, tmp, discard=discard, factor=factor, records=records)
+    return Store.open(out)
+
+
+def _write_derived(
+    source: Store, out: Path, *, discard: int, factor: int, records: Sequence[Path]
+) -> None:
+    """Write the derived store at ``out`` (a fresh temporary folder)."""
     kept = np.arange(discard, source.steps_done, factor)
     n = int(kept.size)
     attrs = source.attrs
@@ -109,4 +130,3 @@ def derive_store(
         derived.write_rows(a, rows, fsync=False)
     commit.update(steps_done=n, checksums=checksums, updated_utc=utc_now())
     derived.commit(commit, fsync=True)
-    return Store.open(out)
