@@ -90,7 +90,7 @@ def test_second_writer_gets_lock_error(tmp_path: Path) -> None:
         assert res.returncode == 6
         assert res.stderr.strip() == (
             "chainyard: error: s.zarr: another process is writing this store (lock "
-            ".s.zarr.lock is held); wait for it to finish or stop it"
+            f"{tmp_path.resolve()}/.s.zarr.lock is held); wait for it to finish or stop it"
         )
     finally:
         first.terminate()

@@ -1,42 +1,163 @@
-"""The single-writer lock of a store."""
+"""The single-writer lock of a store.
+
+The lock is an OS file lock on a sibling file ``.<name>.lock`` of the store's *real* location:
+the store path is resolved first (every symlink, ``..`` and relative part), so every alias of
+one store folder (a symlink to the store, a symlink to a parent folder, a relative or ``..``
+path) takes the same lock. When the store path itself is a symlink, the lock guards the store
+it points to and sits beside that target (a dangling symlink is followed to where the store
+would be created). Two different mounts of one folder (bind mounts, network paths) are not
+recognised as aliases.
+
+The kernel releases the lock when its holder dies, so a killed writer never leaves a stale
+lock behind. The lock belongs to the open file, so a helper process that inherits the lock's
+file descriptor (:attr:`StoreLock.fd`) keeps the store locked as long as it runs.
+"""
 
 from __future__ import annotations
 
+import errno
+import os
+import sys
 from pathlib import Path
+from types import TracebackType
+from typing import Any
 
-from filelock import FileLock, Timeout
+from chainyard.errors import StorageFaultError, StoreLockedError
 
-from chainyard.errors import StoreLockedError
-
-__all__ = ["lock_path", "writer_lock"]
+__all__ = ["StoreLock", "lock_path", "real_store_path", "writer_lock"]
 
 
-def lock_path(store_path: Path) -> Path:
-    """The lock file guarding ``store_path``: a sibling ``.<name>.lock``.
+def real_store_path(store_path: str | Path) -> Path:
+    """The store's real location: ``store_path`` made absolute with every symlink resolved."""
+    return Path(os.path.realpath(Path(store_path)))
 
-    It sits beside the store so that discarding or renaming the store never drops the lock.
-    The lock is an OS file lock: the kernel releases it when the holder dies, so a killed
-    writer never leaves a stale lock behind.
+
+def lock_path(store_path: str | Path) -> Path:
+    """The lock file guarding ``store_path``: ``.<name>.lock`` beside its real location.
+
+    It sits beside the store (not inside it) so that discarding or renaming the store never
+    drops the lock.
     """
-    return store_path.parent / f".{store_path.name}.lock"
+    real = real_store_path(store_path)
+    return real.parent / f".{real.name}.lock"
 
 
-def writer_lock(store_path: Path) -> FileLock:
-    """Acquire the write lock of a store without waiting.
+class StoreLock:
+    """The write lock of one store, taken by ``with`` exactly once and always released.
 
-    Raises
-    ------
-    StoreLockedError
-        If another process holds it.
+    Parameters
+    ----------
+    store_path : str or Path
+        The store, as the user typed it (used in messages; the lock itself is keyed by the
+        real location, see :func:`lock_path`).
+
+    Attributes
+    ----------
+    path : Path
+        The lock file.
+    fd : int or None
+        While held: the OS file descriptor that holds the lock (a child process that
+        inherits it keeps the store locked); None when not held.
     """
-    path = lock_path(store_path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    lock = FileLock(path, timeout=0)
-    try:
-        lock.acquire()
-    except Timeout:
-        raise StoreLockedError(
-            f"{store_path}: another process is writing this store (lock {path} is held); "
-            "wait for it to finish or stop it"
-        ) from None
-    return lock
+
+    def __init__(self, store_path: str | Path) -> None:
+        self.store_path = Path(store_path)
+        self.path = lock_path(store_path)
+        self.fd: int | None = None
+        self._fallback: Any = None
+
+    @property
+    def held(self) -> bool:
+        """True between a successful :meth:`acquire` and :meth:`release`."""
+        return self.fd is not None or self._fallback is not None
+
+    def acquire(self) -> None:
+        """Take the lock without waiting.
+
+        Raises
+        ------
+        StoreLockedError
+            If another process (or another lock object of this process) holds it.
+        StorageFaultError
+            If the lock file cannot be created (read-only or full file system, no permission).
+        RuntimeError
+            If this object already holds the lock (a lock is taken once).
+        """
+        if self.held:
+            raise RuntimeError(f"{self.path}: this lock is already held by this object")
+        try:
+            self.path.parent.mkdir(parents=True, exist_ok=True)
+            if sys.platform == "win32":  # pragma: no cover - no fcntl there
+                self._acquire_fallback()
+                return
+            import fcntl
+
+            fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        except OSError as exc:
+            raise StorageFaultError(
+                f"{self.path}: cannot create the store's lock file "
+                f"({exc.strerror or exc}); nothing was written"
+            ) from None
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError as exc:
+            os.close(fd)
+            if exc.errno in (errno.EWOULDBLOCK, errno.EAGAIN, errno.EACCES):
+                raise self._locked() from None
+            raise StorageFaultError(
+                f"{self.path}: cannot lock the store ({exc.strerror or exc}); nothing was written"
+            ) from None
+        self.fd = fd
+
+    def _acquire_fallback(self) -> None:  # pragma: no cover - Windows only
+        from filelock import FileLock, Timeout
+
+        lock = FileLock(self.path, timeout=0)
+        try:
+            lock.acquire()
+        except Timeout:
+            raise self._locked() from None
+        self._fallback = lock
+
+    def _locked(self) -> StoreLockedError:
+        return StoreLockedError(
+            f"{self.store_path}: another process is writing this store (lock {self.path} is "
+            "held); wait for it to finish or stop it"
+        )
+
+    def release(self) -> None:
+        """Give the lock up (nothing happens if it is not held)."""
+        fd, self.fd = self.fd, None
+        if fd is not None:
+            os.close(fd)  # closing the last descriptor of the open file drops the flock
+        fallback, self._fallback = self._fallback, None
+        if fallback is not None:  # pragma: no cover - Windows only
+            fallback.release(force=True)
+
+    def __enter__(self) -> StoreLock:
+        self.acquire()
+        return self
+
+    def __exit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        tb: TracebackType | None,
+    ) -> None:
+        self.release()
+
+    def __del__(self) -> None:
+        if self.fd is not None:
+            self.release()
+
+
+def writer_lock(store_path: str | Path) -> StoreLock:
+    """The write lock of a store, to be taken with ``with``::
+
+        with writer_lock(path) as lock:   # acquired here, once; StoreLockedError if held
+            ...                           # lock.fd: the descriptor a helper may inherit
+        # released here, on any exit
+
+    Nothing is acquired until the ``with`` block is entered.
+    """
+    return StoreLock(store_path)
