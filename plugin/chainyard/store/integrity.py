@@ -34,6 +34,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 if TYPE_CHECKING:  # pragma: no cover
+    from chainyard.errors import StoreError
     from chainyard.store.zarr_store import Store
 
 __all__ = [
@@ -42,6 +43,7 @@ __all__ = [
     "array_metadata",
     "bytes_checksum",
     "canonical_sha256",
+    "check_resume_base",
     "chunk_checksum",
     "chunk_key_from_metadata",
     "keyed_hashes",
@@ -201,3 +203,133 @@ def seal_record(
     }
     block["self"] = self_hash(block)
     return {**body, INTEGRITY_KEY: block}
+
+
+#: attributes an extension rewrites (``Store.update_attrs``) just before it re-seals: a kill
+#: between the two leaves them ahead of the seal, which the next resume re-seals anyway
+_REFRESHED_ATTRS = ("config", "config_hash")
+
+
+def _damaged(store: Store, what: str) -> StoreError:
+    from chainyard.errors import StoreError
+
+    return StoreError(
+        f"{store.path}: {what}: the store is damaged; `chainyard verify` names every problem; "
+        "--restart discards it"
+    )
+
+
+def _steps(lo: int, hi: int) -> str:
+    return f"step {lo}" if hi - lo == 1 else f"steps {lo}-{hi - 1}"
+
+
+def _check_seal(store: Store, record: dict[str, Any], block: dict[str, Any]) -> None:
+    """The commit record, attributes and array metadata against the seal (metadata only)."""
+    if block.get("format_version") != INTEGRITY_VERSION:
+        raise _damaged(store, f"commit.json integrity format {block.get('format_version')!r}")
+    if self_hash(block) != block.get("self"):
+        raise _damaged(store, "commit.json integrity block was edited (its SHA-256 differs)")
+    body = {k: v for k, v in record.items() if k != INTEGRITY_KEY}
+    sealed = block.get("record")
+    current = keyed_hashes(body)
+    if not isinstance(sealed, dict):
+        raise _damaged(store, "commit.json integrity block has no 'record' hashes")
+    for key in sorted(set(sealed) | set(current)):
+        if sealed.get(key) != current.get(key):
+            raise _damaged(store, f"commit.json field '{key}' differs from the commit's seal")
+    attrs = store.attrs
+    sealed = block.get("attrs")
+    if not isinstance(sealed, dict):
+        raise _damaged(store, "commit.json integrity block has no 'attrs' hashes")
+    current = keyed_hashes(attrs)
+    refreshed = canonical_sha256(attrs.get("config")) == attrs.get("config_hash")
+    for key in sorted(set(sealed) | set(current)):
+        if sealed.get(key) != current.get(key) and not (refreshed and key in _REFRESHED_ATTRS):
+            raise _damaged(
+                store, f"zarr.json attribute chainyard '{key}' differs from the commit's seal"
+            )
+    sealed = block.get("arrays")
+    if not isinstance(sealed, dict):
+        raise _damaged(store, "commit.json integrity block has no 'arrays' hashes")
+    for node, meta in array_metadata(store).items():
+        if meta is None:
+            raise _damaged(store, f"{node}/zarr.json is missing")
+        if sealed.get(node) != canonical_sha256(metadata_without_shape(meta)):
+            raise _damaged(store, f"{node}/zarr.json differs from the commit's seal")
+
+
+def _check_last_chunk(store: Store, name: str, block: dict[str, Any]) -> None:
+    """The chunk of ``draws/<name>`` holding the last committed row, against the record."""
+    n, size = store.steps_done, store.chunk_steps
+    i = (n - 1) // size
+    lo, hi = i * size, n
+    where = f"draws/{name} chunk {i} ({_steps(lo, min((i + 1) * size, n))})"
+    column = (block.get("files") or {}).get(name)
+    if not isinstance(column, list) or len(column) <= i:
+        raise _damaged(store, f"commit.json records no checksum for {where}")
+    want = column[i]
+    data = store.read_bytes(store.chunk_key(name, i))
+    if data is None:
+        if want is None:
+            return  # every value equals the fill value: zarr wrote no file
+        raise _damaged(store, f"{where} is missing")
+    if want is not None and bytes_checksum(data) == want:
+        return
+    # a partial last chunk may hold rows past the commit from an interrupted run: compare the
+    # decoded committed rows with the record's checksum instead
+    rows_sum = ((store.commit_record.get("checksums") or {}).get(name) or [None] * (i + 1))[i:]
+    if hi % size and rows_sum:
+        try:
+            rows = store.read_rows(name, lo, hi)
+        except Exception:  # any decode failure of an untrusted chunk means it is damaged
+            raise _damaged(store, f"{where} cannot be decoded") from None
+        if chunk_checksum(rows) == rows_sum[0]:
+            return
+    raise _damaged(store, f"{where} does not match its recorded checksum")
+
+
+def _check_start(store: Store, block: dict[str, Any]) -> None:
+    """Every start-state array exists and its chunk matches the recorded checksum."""
+    start = block.get("start")
+    if not isinstance(start, dict):
+        raise _damaged(store, "commit.json integrity block records no start-state checksums")
+    for name in store.start_names():
+        where = f"start/{name}"
+        want = start.get(name)
+        if not isinstance(want, dict):
+            raise _damaged(store, f"commit.json records no checksum for {where}")
+        data = store.read_bytes(store.start_chunk_key(name))
+        if data is None:
+            if want.get("file") is None:
+                continue
+            raise _damaged(store, f"{where} chunk 0 (state before step 0) is missing")
+        if bytes_checksum(data) != want.get("file"):
+            raise _damaged(
+                store, f"{where} chunk 0 (state before step 0) does not match its checksum"
+            )
+
+
+def check_resume_base(store: Store) -> None:
+    """Check what a resume or extension of ``store`` builds on; raise if it is damaged.
+
+    Checked: the commit record's integrity block against itself, the commit record, the
+    ``zarr.json`` attributes and every array's metadata (the seal); the chunk of every
+    per-step array holding the last committed row (stored bytes against the recorded
+    checksum; for a partial chunk, the decoded committed rows when the bytes differ); and the
+    start-state arrays. Only the last chunk of each array is read, so the cost does not grow
+    with the store's length (the rest is for ``chainyard verify``).
+
+    Raises
+    ------
+    StoreError
+        Naming the first problem found (exit status 4).
+    """
+    record = store.commit_record
+    block = record.get(INTEGRITY_KEY)
+    if not isinstance(block, dict):
+        raise _damaged(store, "commit.json has no integrity block")
+    _check_seal(store, record, block)
+    _check_start(store, block)
+    if store.steps_done > 0:
+        for name in store.array_names():
+            _check_last_chunk(store, name, block)
