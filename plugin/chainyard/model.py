@@ -1,9 +1,9 @@
-"""Loading the user's log-probability function, data and loader; the guarded evaluator.
+"""Loading the user's log-probability function, data and loader.
 
-The evaluator wraps the user's function so that the sampler only ever sees well-formed
-output: parameters outside their bounds get -inf without calling the model, NaN results and
-exceptions become a :class:`~chainyard.errors.ModelError` naming the parameter values, and
-non-vectorised models are looped over walkers.
+Importing user code is guarded like calling it: anything the module does instead of
+importing (an exception, ``sys.exit``, ``KeyboardInterrupt`` raised by the code itself) is a
+:class:`~chainyard.errors.ConfigError` naming the file. The guarded evaluator that calls the
+model lives in :mod:`chainyard.evaluator` (:class:`LoadedModel`, re-exported here).
 """
 
 from __future__ import annotations
@@ -13,19 +13,19 @@ import importlib
 import importlib.util
 import sys
 from collections.abc import Callable
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
-from numpy.typing import NDArray
 
 from chainyard.config import RunConfig
 from chainyard.datafiles import read_data_file
-from chainyard.errors import ConfigError, ModelError
+from chainyard.errors import ConfigError
+from chainyard.evaluator import LoadedModel, _is_real_ctrl_c, _is_stop_signal, describe_exception
 
 __all__ = [
     "LoadedModel",
+    "check_extra_sources",
     "file_sha256",
     "load_data",
     "load_function",
@@ -82,6 +82,8 @@ def load_function(ref: str, base_dir: Path, field: str) -> Callable[..., Any]:
     if is_file:
         path = resolve_source(ref, base_dir)
         assert path is not None
+        if path.is_dir():
+            raise ConfigError(f"{field}: {path} is a directory; expected a Python file")
         if not path.is_file():
             raise ConfigError(f"{field}: model file not found: {path}")
         digest = hashlib.sha256(str(path.resolve()).encode()).hexdigest()[:16]
@@ -95,21 +97,17 @@ def load_function(ref: str, base_dir: Path, field: str) -> Callable[..., Any]:
         try:
             sys.modules[unique] = module
             spec.loader.exec_module(module)
-        except Exception as exc:  # the user's module failed to import
+        except BaseException as exc:  # the user's module failed to import
             sys.modules.pop(unique, None)
-            raise ConfigError(
-                f"{field}: importing {path} failed: {type(exc).__name__}: {exc}"
-            ) from None
+            raise _import_error(exc, f"{field}: importing {path} failed") from None
         finally:
             sys.path.remove(str(path.parent))
         where = str(path)
     else:
         try:
             module = importlib.import_module(module_name)
-        except Exception as exc:
-            raise ConfigError(
-                f"{field}: cannot import module {module_name!r}: {type(exc).__name__}: {exc}"
-            ) from None
+        except BaseException as exc:
+            raise _import_error(exc, f"{field}: cannot import module {module_name!r}") from None
         where = module_name
     func = getattr(module, func_name, None)
     if func is None:
@@ -119,13 +117,23 @@ def load_function(ref: str, base_dir: Path, field: str) -> Callable[..., Any]:
     return func  # type: ignore[no-any-return]
 
 
+def _import_error(exc: BaseException, prefix: str) -> ConfigError:
+    """The one-line error for user code that did not import; re-raise chainyard's stop
+    signal and a real Ctrl-C."""
+    if _is_stop_signal(exc) or _is_real_ctrl_c(exc):
+        raise exc
+    what, hint = describe_exception(exc)
+    if isinstance(exc, SystemExit | KeyboardInterrupt):
+        hint = hint.replace("a model must return a value, not exit", "user code must not exit")
+    return ConfigError(f"{prefix}: {what}" + (f" ({hint})" if hint else ""))
+
+
 def load_data(config: RunConfig) -> Any:
     """Load the configured data file (None when none is configured).
 
-    CSV: a header row, then rows; returns a dict of column name -> 1-D array (float64 where
-    every value parses as a number, else str). NPZ: dict of name -> array (no pickle).
-    JSON: the parsed document, with numeric lists turned into float64 arrays.
-    A configured ``data_loader`` is called as ``loader(path)`` instead.
+    The formats and their rules are those of :func:`chainyard.datafiles.read_data_file`.
+    A configured ``data_loader`` is called as ``loader(path)`` instead; anything it raises
+    (including ``sys.exit``) is a ConfigError naming the file.
     """
     spec = config.model
     if spec.data is None:
@@ -133,184 +141,17 @@ def load_data(config: RunConfig) -> Any:
             raise ConfigError("model.data_loader: set but model.data is not")
         return None
     path = config.resolve(spec.data)
+    if path.is_dir():
+        raise ConfigError(f"model.data: {path} is a directory; expected a data file")
     if not path.is_file():
         raise ConfigError(f"model.data: data file not found: {path}")
     if spec.data_loader is not None:
         loader = load_function(spec.data_loader, config.base_dir, "model.data_loader")
         try:
             return loader(path)
-        except Exception as exc:
-            raise ConfigError(
-                f"model.data_loader: failed on {path}: {type(exc).__name__}: {exc}"
-            ) from None
+        except BaseException as exc:
+            raise _import_error(exc, f"model.data_loader: failed on {path}") from None
     return read_data_file(path)
-
-
-@dataclass
-class LoadedModel:
-    """A user's model made safe to call on a whole ensemble.
-
-    Attributes
-    ----------
-    func : callable
-        The user's log-probability function.
-    data : object
-        What was loaded from the data file (None if no file).
-    vectorized : bool
-        Whether ``func`` takes (walkers, params) at once.
-    lower, upper : ndarray, shape (params,)
-        Bounds (-inf / +inf where open).
-    param_names : tuple of str
-        For error messages.
-    n_blobs : int
-        Number of scalar values returned after the log-probability.
-    """
-
-    func: Callable[..., Any]
-    data: Any
-    vectorized: bool
-    lower: NDArray[np.float64]
-    upper: NDArray[np.float64]
-    param_names: tuple[str, ...]
-    n_blobs: int
-
-    def _describe(self, theta: NDArray[np.float64]) -> str:
-        return ", ".join(f"{n}={v:.6g}" for n, v in zip(self.param_names, theta, strict=True))
-
-    def _fail(self, theta: NDArray[np.float64], what: str) -> ModelError:
-        return ModelError(f"log_prob {what} at {self._describe(theta)}")
-
-    def _split_scalar(self, out: Any, theta: NDArray[np.float64]) -> tuple[float, list[float]]:
-        if self.n_blobs:
-            if not isinstance(out, tuple | list) or len(out) != 1 + self.n_blobs:
-                raise self._fail(
-                    theta,
-                    f"must return a tuple (log_prob, {self.n_blobs} blob value(s)); "
-                    f"got {type(out).__name__}",
-                )
-            lp, blobs = out[0], list(out[1:])
-        else:
-            lp, blobs = out, []
-        try:
-            value = float(lp)
-            blob_values = [float(b) for b in blobs]
-        except (TypeError, ValueError):
-            raise self._fail(theta, f"returned a non-number ({_short(lp)})") from None
-        return value, blob_values
-
-    def __call__(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
-        """Evaluate every walker.
-
-        Parameters
-        ----------
-        thetas : ndarray, shape (walkers, params)
-
-        Returns
-        -------
-        ndarray, shape (walkers,) or (walkers, 1 + n_blobs)
-            Log-probability (and blobs, NaN for walkers outside the bounds).
-        """
-        if self.n_blobs == 0 and not self.bounded:
-            lp = (
-                self._call_vectorized_plain(thetas) if self.vectorized else self._loop_plain(thetas)
-            )
-            # a sum that is NaN or +inf flags any NaN or +inf (or a finite overflow) in one
-            # cheap pass; the exact check runs only then
-            if not np.add.reduce(lp) < np.inf and not (lp < np.inf).all():
-                self._raise_bad(thetas, lp)
-            return lp
-        n = thetas.shape[0]
-        inside = np.all((thetas >= self.lower) & (thetas <= self.upper), axis=1)
-        out = np.full((n, 1 + self.n_blobs), np.nan)
-        out[:, 0] = -np.inf
-        idx = np.flatnonzero(inside)
-        if idx.size:
-            if self.vectorized:
-                self._call_vectorized(thetas, idx, out)
-            else:
-                for i in idx:
-                    theta = thetas[i]
-                    try:
-                        result = self.func(theta, self.data)
-                    except ModelError:
-                        raise
-                    except Exception as exc:
-                        raise self._fail(theta, f"raised {type(exc).__name__}: {exc}") from None
-                    out[i, 0], out[i, 1:] = self._split_scalar(result, theta)
-        if not (out[:, 0] < np.inf).all():
-            self._raise_bad(thetas, out[:, 0])
-        return out[:, 0] if self.n_blobs == 0 else out
-
-    def __post_init__(self) -> None:
-        self.bounded = bool(np.isfinite(self.lower).any() or np.isfinite(self.upper).any())
-        """Whether any parameter has a finite bound (outside them: -inf, model not called)."""
-
-    def _raise_bad(self, thetas: NDArray[np.float64], lp: NDArray[np.float64]) -> None:
-        nan = np.flatnonzero(np.isnan(lp))
-        if nan.size:
-            raise self._fail(thetas[nan[0]], "returned NaN")
-        raise self._fail(thetas[np.flatnonzero(lp == np.inf)[0]], "returned +inf")
-
-    def _loop_plain(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
-        """Fast path: one call per walker, no bounds, no blobs."""
-        f, data = self.func, self.data
-        lp = np.empty(thetas.shape[0])
-        for i in range(thetas.shape[0]):
-            theta = thetas[i]
-            try:
-                value = f(theta, data)
-            except Exception as exc:
-                raise self._fail(theta, f"raised {type(exc).__name__}: {exc}") from None
-            try:
-                lp[i] = value
-            except (TypeError, ValueError):
-                raise self._fail(theta, f"returned a non-number ({_short(value)})") from None
-        return lp
-
-    def _call_vectorized_plain(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
-        """Fast path: all walkers in one call, no bounds, no blobs."""
-        try:
-            result = self.func(thetas, self.data)
-        except Exception as exc:
-            raise self._fail(thetas[0], f"raised {type(exc).__name__}: {exc}") from None
-        try:
-            lp = np.asarray(result, dtype=np.float64).reshape(-1)
-        except (TypeError, ValueError):
-            raise self._fail(thetas[0], "returned a non-numeric array") from None
-        if lp.shape != (thetas.shape[0],):
-            raise self._fail(
-                thetas[0],
-                f"(vectorized) must return shape ({thetas.shape[0]},), got {np.shape(result)}",
-            )
-        return lp
-
-    def _call_vectorized(
-        self, thetas: NDArray[np.float64], idx: NDArray[np.intp], out: NDArray[np.float64]
-    ) -> None:
-        sub = thetas[idx]
-        try:
-            result = self.func(sub, self.data)
-        except Exception as exc:
-            raise self._fail(sub[0], f"raised {type(exc).__name__}: {exc}") from None
-        parts = list(result) if self.n_blobs and isinstance(result, tuple | list) else [result]
-        if len(parts) != 1 + self.n_blobs:
-            raise self._fail(sub[0], f"must return {1 + self.n_blobs} arrays (log_prob and blobs)")
-        for j, part in enumerate(parts):
-            try:
-                arr = np.asarray(part, dtype=np.float64).reshape(-1)
-            except (TypeError, ValueError):
-                raise self._fail(sub[0], "returned a non-numeric array") from None
-            if arr.shape != (idx.size,):
-                raise self._fail(
-                    sub[0],
-                    f"(vectorized) must return shape ({idx.size},), got {np.shape(part)}",
-                )
-            out[idx, j] = arr
-
-
-def _short(value: Any) -> str:
-    text = repr(value)
-    return text if len(text) <= 40 else text[:37] + "..."
 
 
 def load_model(config: RunConfig) -> LoadedModel:
@@ -322,6 +163,7 @@ def load_model(config: RunConfig) -> LoadedModel:
         If a file, module or function is missing or fails to load.
     """
     func = load_function(config.model.log_prob, config.base_dir, "model.log_prob")
+    check_extra_sources(config)
     data = load_data(config)
     lower = np.array(
         [
@@ -345,4 +187,25 @@ def load_model(config: RunConfig) -> LoadedModel:
         upper=upper,
         param_names=config.param_names,
         n_blobs=len(config.sampler.blobs),
+        walkers=config.sampler.walkers,
+        call_time_limit=config.model.call_time_limit_seconds,
+        blob_names=tuple(config.sampler.blobs),
     )
+
+
+def check_extra_sources(config: RunConfig) -> None:
+    """Every ``model.extra_sources`` entry must be an existing file (its hash is recorded).
+
+    Raises
+    ------
+    ConfigError
+        Naming the entry and the path it resolved to.
+    """
+    for k, src in enumerate(config.model.extra_sources):
+        path = config.resolve(src)
+        if path.is_dir():
+            raise ConfigError(
+                f"model.extra_sources[{k}] = {src!r}: {path} is a directory; list files"
+            )
+        if not path.is_file():
+            raise ConfigError(f"model.extra_sources[{k}] = {src!r}: file not found: {path}")

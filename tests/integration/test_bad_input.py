@@ -248,21 +248,24 @@ CASES: list[tuple[str, Callable[[Cfg], None] | str, str | None, int, str]] = [
         lambda cfg: None,
         NAN_MODEL,
         3,
-        r"log_prob returned NaN at x=[-0-9.e]+, y=[-0-9.e]+",
+        r"model\.log_prob returned NaN "
+        r"at (step \d+, )?(walker \d+|proposal \d+ of \d+) \(x=[-0-9.e]+, y=[-0-9.e]+\)",
     ),
     (
         "log-prob-raises",
         lambda cfg: None,
         RAISING_MODEL,
         3,
-        r"log_prob raised ZeroDivisionError: tau is zero at x=[-0-9.e]+, y=[-0-9.e]+",
+        r"model\.log_prob raised ZeroDivisionError: tau is zero "
+        r"at (step \d+, )?(walker \d+|proposal \d+ of \d+) \(x=[-0-9.e]+, y=[-0-9.e]+\)",
     ),
     (
         "log-prob-raises-mid-run",
         lambda cfg: None,
         LATE_FAILURE_MODEL,
         3,
-        r"log_prob raised RuntimeError: solver diverged at x=[-0-9.e]+, y=[-0-9.e]+",
+        r"model\.log_prob raised RuntimeError: solver diverged "
+        r"at (step \d+, )?(walker \d+|proposal \d+ of \d+) \(x=[-0-9.e]+, y=[-0-9.e]+\)",
     ),
     (
         "all-walkers-minus-inf",
