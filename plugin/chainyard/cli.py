@@ -1,19 +1,32 @@
 """The ``chainyard`` command line.
 
 User mistakes print one line per problem (``chainyard: error: ...``) and exit non-zero without
-a traceback; see :mod:`chainyard.errors` for the exit codes.
+a traceback; see :mod:`chainyard.errors` for the exit codes. Usage mistakes print one line
+ending in ``(see chainyard COMMAND --help)`` and exit 2. Anything unexpected is a chainyard
+bug: one line ``chainyard: internal error: TYPE: MESSAGE (...)``, exit 70, and the traceback
+with ``chainyard --traceback ...`` or ``CHAINYARD_TRACEBACK=1``. The file system refusing a
+write (disk full, quota, file-size limit, read-only, I/O error) that escapes the engine and
+store ends in one line and exit 8; a reader closing stdout (``| head``) ends quietly.
 """
 
 from __future__ import annotations
 
 import argparse
+import errno
 import json
+import math
+import os
+import select
 import sys
-from collections.abc import Sequence
+import traceback
+from collections.abc import Callable, Sequence
 from pathlib import Path
-from typing import Any
+from typing import Any, NoReturn
 
-from chainyard.errors import ChainyardError
+from chainyard.errors import ChainyardError, ConfigError, TargetsNotMetError
+
+INTERNAL_ERROR = 70
+STORAGE_FAULT = 8
 
 __all__ = ["main"]
 
@@ -52,21 +65,38 @@ def _cmd_schema(args: argparse.Namespace) -> int:
 
     text = json.dumps(json_schema(), indent=2, sort_keys=False)
     if args.output:
-        Path(args.output).write_text(text + "\n")
+        out = Path(args.output)
+        if out.is_dir():
+            raise ConfigError(f"{out}: --output is a folder; give a file name")
+        try:
+            out.write_text(text + "\n")
+        except OSError as exc:
+            if exc.filename is None:
+                exc.filename = str(out)
+            raise
     else:
         sys.stdout.write(text + "\n")
     return 0
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
+    import numpy as np
+
     from chainyard.config import load_config
+    from chainyard.engine.initial import initial_state
     from chainyard.model import load_model
 
     config = load_config(args.config)
-    load_model(config)
+    model = load_model(config)
+    _, log_prob, _, redraws = initial_state(config, model, 0)
+    finite = log_prob[np.isfinite(log_prob)]
+    seen = f"from {finite.min():.6g} to {finite.max():.6g}" if finite.size else "none finite"
+    again = f"; {redraws} walker(s) redrawn from -inf" if redraws else ""
     print(
         f"{args.config}: valid ({len(config.parameters)} parameters, "
-        f"{config.sampler.walkers} walkers, {config.sampler.steps:,} steps)"
+        f"{config.sampler.walkers} walkers, {config.sampler.steps:,} steps); "
+        f"model evaluated at replica 0's {config.sampler.walkers} initial positions: "
+        f"log_prob {seen}{again}"
     )
     return 0
 
@@ -83,8 +113,10 @@ def _run_config(args: argparse.Namespace, first_store: str) -> Any:
 
 def _cmd_decide(args: argparse.Namespace) -> int:
     from chainyard.analysis import decide_burn_in, decide_thinning, write_record
+    from chainyard.analysis.outputs import check_record_path
     from chainyard.analysis.replicas import open_replicas
 
+    check_record_path(Path(args.out), "--out")
     stores = open_replicas(args.stores)
     config = _run_config(args, args.stores[0])
     if args.what == "burn-in":
@@ -122,34 +154,85 @@ def _cmd_diagnose(args: argparse.Namespace) -> int:
     from chainyard.analysis import diagnose, format_table, write_record
     from chainyard.analysis.replicas import open_replicas
 
+    if args.json:
+        from chainyard.analysis.outputs import check_record_path
+
+        check_record_path(Path(args.json), "--json")
     stores = open_replicas(args.stores)
     config = _run_config(args, args.stores[0])
     result = diagnose(stores, config.targets)
     if args.json:
         write_record(args.json, "chainyard.diagnostics", result, stores)
     print(format_table(result, title=args.title or ""))
-    if args.strict and not result["verdict"]["ok"]:
-        return 1
+    verdict = result["verdict"]
+    if args.strict and not verdict["ok"]:
+        sys.stdout.flush()
+        failed = [name for name, c in verdict["params"].items() if not c["ok"]]
+        which = f" ({', '.join(failed)})" if failed else " (the multivariate check)"
+        more = verdict.get("more_steps")
+        hint = f"; about {more:,} more steps needed" if more else ""
+        raise TargetsNotMetError(
+            f"targets not met for {len(failed)} of {len(verdict['params'])} "
+            f"parameters{which}{hint}; see the table above (--strict)"
+        )
     return 0
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-line usage errors: ``chainyard: error: MSG (see PROG --help)``."""
+
+    def error(self, message: str) -> NoReturn:
+        sys.stderr.write(f"chainyard: error: {message} (see {self.prog} --help)\n")
+        raise SystemExit(2)
+
+
+def _int_at_least(low: int) -> Callable[[str], int]:
+    """An argparse type: a whole number >= ``low``."""
+
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(
+                f"must be a whole number >= {low}, got {text!r}"
+            ) from None
+        if value < low:
+            raise argparse.ArgumentTypeError(f"must be >= {low}, got {value}")
+        return value
+
+    parse.__name__ = f"whole number >= {low}"
+    return parse
+
+
+def _positive_seconds(text: str) -> float:
+    """An argparse type: a finite number of seconds > 0."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"must be a number of seconds, got {text!r}") from None
+    if not math.isfinite(value) or value <= 0:
+        raise argparse.ArgumentTypeError(f"must be a finite number of seconds > 0, got {text}")
+    return value
 
 
 def _parser() -> argparse.ArgumentParser:
     from chainyard import __version__
 
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="chainyard",
         description="Reproducible, resumable MCMC sampling steps for data pipelines.",
     )
     parser.add_argument("--version", action="version", version=f"chainyard {__version__}")
+    parser.add_argument("--traceback", action="store_true", help=_TRACEBACK_HELP)
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     p = sub.add_parser("sample", help="create, resume or extend one replica's store")
     p.add_argument("config", help="run configuration (YAML)")
     p.add_argument("--out", required=True, help="store directory to create or continue")
-    p.add_argument("--replica", type=int, default=0, help="replica index (default 0)")
+    p.add_argument("--replica", type=_int_at_least(0), default=0, help="replica index (default 0)")
     p.add_argument(
         "--steps",
-        type=int,
+        type=_int_at_least(1),
         default=None,
         help="override sampler.steps (e.g. to extend a finished run)",
     )
@@ -169,7 +252,7 @@ def _parser() -> argparse.ArgumentParser:
     )
     p.add_argument(
         "--progress-interval",
-        type=float,
+        type=_positive_seconds,
         default=10.0,
         metavar="SECONDS",
         help="seconds between progress log lines (default 10)",
@@ -204,7 +287,11 @@ def _parser() -> argparse.ArgumentParser:
     )
     p.set_defaults(func=_cmd_diagnose)
 
-    p = sub.add_parser("check", help="validate a run configuration and load its model")
+    p = sub.add_parser(
+        "check",
+        help="validate a run configuration, load its data and evaluate the model once at "
+        "replica 0's initial positions",
+    )
     p.add_argument("config")
     p.set_defaults(func=_cmd_check)
 
@@ -215,29 +302,133 @@ def _parser() -> argparse.ArgumentParser:
     from chainyard.provenance.commands import add_commands
 
     add_commands(sub)  # verify, inspect, pack, unpack, export-prov
+    for command in sub.choices.values():  # also accepted after the command
+        command.add_argument(
+            "--traceback", action="store_true", default=argparse.SUPPRESS, help=_TRACEBACK_HELP
+        )
     return parser
 
 
-def main(argv: Sequence[str] | None = None) -> int:
-    """Run the command line; returns the exit status."""
-    from chainyard.engine import Interrupted
+_TRACEBACK_HELP = (
+    "on an internal error, print the traceback (also: environment CHAINYARD_TRACEBACK=1)"
+)
 
+#: errno -> what the file system refused (the safety net for faults the store did not name)
+_STORAGE_ERRNOS = {
+    errno.ENOSPC: ("no space left on the device", "free some space and rerun"),
+    errno.EDQUOT: ("disk quota exceeded", "free some of your quota and rerun"),
+    errno.EFBIG: ("file too large for the file-size limit", "raise `ulimit -f` and rerun"),
+    errno.EROFS: ("read-only file system", "write somewhere writable"),
+    errno.EIO: ("input/output error", "check the disk"),
+    errno.EACCES: ("permission denied", "check the permissions"),
+    errno.EPERM: ("operation not permitted", "check the permissions"),
+}
+
+
+def _say(line: str) -> None:
+    """Print one line to stderr (never raises)."""
+    try:
+        sys.stderr.write(line.replace("\n", " ") + "\n")
+        sys.stderr.flush()
+    except (OSError, ValueError):
+        pass
+
+
+def _stdout_broken() -> bool:
+    """True if the reader of stdout has gone (the write end of a pipe reports an error)."""
+    try:
+        poller = select.poll()
+        poller.register(sys.stdout.fileno(), select.POLLOUT)
+        return any(ev & (select.POLLERR | select.POLLHUP) for _, ev in poller.poll(0))
+    except (OSError, ValueError, AttributeError):
+        return False
+
+
+def _quiet_exit_on_broken_pipe() -> int:
+    """Point stdout at /dev/null so that the interpreter's final flush stays quiet."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError, AttributeError):
+        pass
+    return 0
+
+
+def _os_error(exc: OSError) -> int | None:
+    """One line and exit status for a file-system refusal that escaped; None if not one."""
+    known = _STORAGE_ERRNOS.get(exc.errno or 0)
+    if known is None:
+        return None
+    what, hint = known
+    name = errno.errorcode.get(exc.errno or 0, str(exc.errno))
+    where = f"{os.fsdecode(exc.filename)}: " if exc.filename is not None else ""
+    if exc.errno in (errno.EACCES, errno.EPERM) and exc.filename is not None:
+        path = Path(os.fsdecode(exc.filename))
+        if path.exists() and not os.access(path, os.R_OK):  # a read, not a write
+            _say(f"chainyard: error: {where}cannot read it: {what} ({name}); {hint}")
+            return 4
+    _say(f"chainyard: error: {where}the file system refused: {what} ({name}); {hint}")
+    return STORAGE_FAULT
+
+
+def _internal(exc: BaseException, command: str, show: bool) -> int:
+    """Report a chainyard bug in one line (the traceback first when asked for)."""
+    if show:
+        traceback.print_exception(type(exc), exc, exc.__traceback__, file=sys.stderr)
+    text = (str(exc).strip().splitlines() or [""])[0]
+    _say(
+        f"chainyard: internal error: {type(exc).__name__}: {text} "
+        f"(in 'chainyard {command}'; run with --traceback or CHAINYARD_TRACEBACK=1 "
+        "for the traceback)"
+    )
+    return INTERNAL_ERROR
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; returns the exit status (see :mod:`chainyard.errors`)."""
     parser = _parser()
     args = parser.parse_args(argv)
-    if getattr(args, "replica", 0) is not None and getattr(args, "replica", 0) < 0:
-        parser.error("--replica must be >= 0")
-    if getattr(args, "steps", None) is not None and args.steps < 1:
-        parser.error("--steps must be >= 1")
+    show = bool(getattr(args, "traceback", False)) or os.environ.get(
+        "CHAINYARD_TRACEBACK", ""
+    ) not in ("", "0")
+    command = str(getattr(args, "command", ""))
     try:
-        return int(args.func(args))
+        from chainyard.engine import Interrupted
+
+        try:
+            code = int(args.func(args))
+            sys.stdout.flush()
+            return code
+        except Interrupted as exc:
+            return 128 + exc.signum
     except ChainyardError as exc:
+        if show:
+            traceback.print_exception(type(exc), exc, exc.__traceback__, file=sys.stderr)
         for line in str(exc).splitlines() or [type(exc).__name__]:
-            print(f"chainyard: error: {line}", file=sys.stderr)
+            _say(f"chainyard: error: {line}")
         return exc.exit_code
-    except Interrupted as exc:
-        return 128 + exc.signum
     except KeyboardInterrupt:
         return 130
+    except BrokenPipeError as exc:
+        if _stdout_broken():
+            return _quiet_exit_on_broken_pipe()
+        return _internal(exc, command, show)
+    except MemoryError as exc:
+        if show:
+            traceback.print_exception(type(exc), exc, exc.__traceback__, file=sys.stderr)
+        detail = f": {exc}" if str(exc) else ""
+        _say(
+            f"chainyard: error: 'chainyard {command}' ran out of memory (MemoryError{detail}); "
+            "free memory or lower the sizes involved (steps, walkers, chunk_steps)"
+        )
+        return INTERNAL_ERROR
+    except OSError as exc:
+        if show:
+            traceback.print_exception(type(exc), exc, exc.__traceback__, file=sys.stderr)
+        code = _os_error(exc)
+        return code if code is not None else _internal(exc, command, False)
+    except Exception as exc:
+        return _internal(exc, command, show)
 
 
 if __name__ == "__main__":  # pragma: no cover
