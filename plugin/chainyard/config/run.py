@@ -7,7 +7,6 @@ import json
 from pathlib import Path
 from typing import Any
 
-import yaml
 from pydantic import (
     Field,
     PrivateAttr,
@@ -24,7 +23,17 @@ from chainyard.config.policies import (
     TargetsSpec,
     ThinningSpec,
 )
-from chainyard.config.sections import GaussianMove, ModelSpec, Parameter, SamplerSpec, StorageSpec
+from chainyard.config.sections import (
+    DESnookerMove,
+    DifferentialEvolutionMove,
+    GaussianMove,
+    ModelSpec,
+    Parameter,
+    SamplerSpec,
+    StorageSpec,
+    WalkMove,
+)
+from chainyard.config.yamlfile import read_yaml_file
 from chainyard.errors import ConfigError
 
 # --------------------------------------------------------------------------- run
@@ -87,12 +96,8 @@ class RunConfig(_Strict):
         if blob_dupes:
             raise ValueError(f"sampler.blobs must be unique; repeated: {', '.join(blob_dupes)}")
         for i, move in enumerate(self.sampler.moves):
-            sd = move.proposal_sd if isinstance(move, GaussianMove) else None
-            if isinstance(sd, tuple) and len(sd) != n:
-                raise ValueError(
-                    f"sampler.moves[{i}].proposal_sd has {len(sd)} values; "
-                    f"need 1 or {n} (one per parameter)"
-                )
+            _check_move(i, move, n, self.sampler.walkers)
+        _check_chunk_size(self)
         return self
 
     # ------------------------------------------------------------------ helpers
@@ -144,6 +149,45 @@ class RunConfig(_Strict):
         data = self.model_dump()
         data["sampler"]["steps"] = steps
         return parse_config(data, base_dir=self._base_dir, source=self._source)
+
+
+def _check_move(i: int, move: Any, n_params: int, walkers: int) -> None:
+    """Move settings that depend on the parameter and walker counts."""
+    where = f"sampler.moves[{i}]"
+    sd = move.proposal_sd if isinstance(move, GaussianMove) else None
+    if isinstance(sd, tuple) and len(sd) != n_params:
+        raise ValueError(
+            f"{where}.proposal_sd has {len(sd)} values; need 1 or {n_params} (one per parameter)"
+        )
+    half = walkers // 2  # the complementary half of the ensemble a move draws from
+    if isinstance(move, WalkMove) and move.subset_size is not None and move.subset_size > half:
+        raise ValueError(
+            f"{where}.subset_size = {move.subset_size}: at most walkers // 2 = {half} (the "
+            "walkers of the complementary half)"
+        )
+    if isinstance(move, DifferentialEvolutionMove | DESnookerMove) and walkers < 4:
+        raise ValueError(
+            f"{where} ({move.kind}) needs at least 4 walkers; sampler.walkers = {walkers}"
+        )
+
+
+def _check_chunk_size(config: RunConfig) -> None:
+    """The decoded size of one stored chunk must stay within the ``chunk_bytes`` limit."""
+    from chainyard import limits
+
+    steps = config.storage.chunk_steps
+    walkers = config.sampler.walkers
+    row = len(config.parameters) + 2 + len(config.sampler.blobs)
+    size = steps * walkers * row * 8
+    limit = limits.value("chunk_bytes")
+    if size > limit:
+        env = limits.LIMITS["chunk_bytes"].env
+        raise ValueError(
+            f"storage.chunk_steps = {steps:,}: one chunk would hold {steps:,} steps x "
+            f"{walkers:,} walkers x {row} values x 8 bytes = {size:,} bytes, above the "
+            f"chunk_bytes limit of {limit:,}; use fewer steps per chunk (or raise the limit "
+            f"with {env})"
+        )
 
 
 def config_hash(settings: dict[str, Any]) -> str:
@@ -210,6 +254,11 @@ def parse_config(data: Any, *, base_dir: Path | None = None, source: str = "<con
     ConfigError
         With one line per problem.
     """
+    if data is None:
+        raise ConfigError(
+            f"{source}: the config is empty; it needs at least model, parameters, sampler "
+            "and seed (see `chainyard schema`)"
+        )
     if not isinstance(data, dict):
         raise ConfigError(f"{source}: must be a mapping of settings, got {type(data).__name__}")
     try:
@@ -235,18 +284,7 @@ def load_config(path: str | Path) -> RunConfig:
         If the file cannot be read or any setting is invalid.
     """
     path = Path(path)
-    try:
-        text = path.read_text()
-    except FileNotFoundError:
-        raise ConfigError(f"{path}: config file not found") from None
-    except OSError as exc:
-        raise ConfigError(f"{path}: cannot read config file ({exc.strerror})") from None
-    try:
-        data = yaml.safe_load(text)
-    except yaml.YAMLError as exc:
-        mark = getattr(exc, "problem_mark", None)
-        where = f" at line {mark.line + 1}" if mark is not None else ""
-        raise ConfigError(f"{path}: not valid YAML{where}") from None
+    data = read_yaml_file(path, "config file")
     return parse_config(data, base_dir=path.parent, source=str(path))
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from typing import Annotated, Any, Literal
 
 from pydantic import (
@@ -14,6 +15,9 @@ from pydantic import (
 )
 
 from chainyard.config._base import _Strict
+
+#: names of parameters and blobs (also used as store array names)
+_NAME_PATTERN = r"^[A-Za-z_][A-Za-z0-9_.\-]*$"
 
 # --------------------------------------------------------------------------- model
 
@@ -139,10 +143,14 @@ InitSpec = Annotated[
 ]
 
 
+#: a bound may be infinite (an open side, like null); NaN is refused by the validator
+_Bound = Annotated[float, Field(allow_inf_nan=True)]
+
+
 class Parameter(_Strict):
     """One model parameter, in the order theta holds them."""
 
-    name: str = Field(pattern=r"^[A-Za-z_][A-Za-z0-9_.\-]*$", description="Parameter name.")
+    name: str = Field(pattern=_NAME_PATTERN, description="Parameter name.")
     init: InitSpec | None = Field(
         default=None,
         description=(
@@ -150,11 +158,11 @@ class Parameter(_Strict):
             "'initial_positions' file is given."
         ),
     )
-    bounds: tuple[float | None, float | None] | None = Field(
+    bounds: tuple[_Bound | None, _Bound | None] | None = Field(
         default=None,
         description=(
-            "Optional [low, high] support (either may be null). Outside it log_prob is -inf "
-            "and the model is not called."
+            "Optional [low, high] support (either may be null, or -inf/+inf, for an open "
+            "side). Outside it log_prob is -inf and the model is not called."
         ),
     )
     unit: str | None = Field(default=None, description="Unit for labels in plots and tables.")
@@ -167,6 +175,8 @@ class Parameter(_Strict):
     ) -> tuple[float | None, float | None] | None:
         if value is not None:
             low, high = value
+            if any(b is not None and math.isnan(b) for b in value):
+                raise ValueError("NaN is not a bound; use a number, or null for an open side")
             if low is not None and high is not None and not high > low:
                 raise ValueError(f"high ({high}) must be greater than low ({low})")
         return value
@@ -224,6 +234,20 @@ class GaussianMove(_Move):
         description="Update all coordinates at once, one random coordinate, or cycle.",
     )
 
+    @field_validator("proposal_sd", mode="before")
+    @classmethod
+    def _positive_sd(cls, value: Any) -> Any:
+        values = list(value) if isinstance(value, list | tuple) else [value]
+        ok = bool(values) and all(
+            isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v) and v > 0
+            for v in values
+        )
+        if not ok:
+            raise ValueError(
+                "must be a positive finite number, or a list of them (one per parameter)"
+            )
+        return value
+
 
 MoveSpec = Annotated[
     StretchMove | WalkMove | DifferentialEvolutionMove | DESnookerMove | GaussianMove,
@@ -240,7 +264,7 @@ class SamplerSpec(_Strict):
         default=(StretchMove(kind="stretch"),),
         description="Proposal moves with weights. Default: one stretch move with scale 2.",
     )
-    blobs: tuple[str, ...] = Field(
+    blobs: tuple[Annotated[str, Field(pattern=_NAME_PATTERN)], ...] = Field(
         default=(),
         description=(
             "Names of extra scalar values log_prob returns after the log-probability, "
@@ -286,7 +310,15 @@ class StorageSpec(_Strict):
             "(raw: 80); zstd about 32 and faster to write; none stores raw bytes."
         ),
     )
-    level: int | None = Field(default=None, ge=0, le=22, description="Codec level; None: default.")
+    level: int | None = Field(
+        default=None,
+        ge=0,
+        le=22,
+        description=(
+            "Codec level; None: the codec's default. Allowed: pcodec 0-12, zstd 0-22, "
+            "blosc_zstd and lz4 0-9; none takes no level."
+        ),
+    )
     fsync: bool = Field(
         default=True,
         description="Flush every commit to disk before it counts (survives power loss).",
@@ -300,3 +332,24 @@ class StorageSpec(_Strict):
             "of at least 5,000 more steps, else the thread. The stored bytes are the same."
         ),
     )
+
+    @model_validator(mode="after")
+    def _level_for_codec(self) -> StorageSpec:
+        if self.level is None:
+            return self
+        top = _CODEC_MAX_LEVEL[self.codec]
+        if top is None:
+            raise ValueError(f"level = {self.level}: codec 'none' takes no level (use null)")
+        if self.level > top:
+            raise ValueError(f"level = {self.level}: codec {self.codec!r} allows levels 0-{top}")
+        return self
+
+
+#: highest level each codec accepts (None: the codec takes no level)
+_CODEC_MAX_LEVEL: dict[str, int | None] = {
+    "pcodec": 12,
+    "zstd": 22,
+    "blosc_zstd": 9,
+    "lz4": 9,
+    "none": None,
+}

@@ -7,7 +7,6 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-import yaml
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
 from chainyard.config import (
@@ -16,6 +15,7 @@ from chainyard.config import (
     format_validation_error,
     parse_config,
 )
+from chainyard.config.yamlfile import read_yaml_file
 from chainyard.errors import ConfigError
 
 __all__ = ["RunEntry", "WorkflowConfig", "load_workflow_config", "workflow_json_schema"]
@@ -33,7 +33,7 @@ class WorkflowConfig(BaseModel):
             "relative to that file)."
         )
     )
-    results: str = Field(default="results", description="Folder for all outputs.")
+    results: str = Field(default="results", min_length=1, description="Folder for all outputs.")
     sample_runtime_minutes: int = Field(
         default=60, ge=1, description="Runtime of a sampling job (minutes), times the attempt."
     )
@@ -49,9 +49,7 @@ class WorkflowConfig(BaseModel):
             raise ValueError("at least one run is required")
         for name in value:
             if not name.replace("_", "").replace("-", "").isalnum():
-                raise ValueError(
-                    f"run name {name!r}: use letters, digits, '_' and '-' only"
-                )
+                raise ValueError(f"run name {name!r}: use letters, digits, '_' and '-' only")
         return value
 
 
@@ -114,29 +112,46 @@ def load_workflow_config(config: dict[str, Any], source: str = "config") -> dict
     ConfigError
         One line per problem, naming the key (e.g. ``runs.cooling.sampler.walkerz``).
     """
+    if not isinstance(config, dict):
+        raise ConfigError(f"{source}: must be a mapping, got {type(config).__name__}")
     section = config.get("chainyard", config)
+    if not isinstance(section, dict):
+        raise ConfigError(
+            f"{source}: chainyard: must be a mapping (with 'runs'), got {type(section).__name__}"
+        )
+    runs = section.get("runs")
+    for name in runs if isinstance(runs, dict) else ():
+        if not isinstance(name, str) or not name.replace("_", "").replace("-", "").isalnum():
+            raise ConfigError(
+                f"{source}: runs: run name {name!r}: use letters, digits, '_' and '-' only"
+            )
+    # the runs are checked one by one below (a union error would say everything twice)
+    shell = {**section, "runs": dict.fromkeys(runs, "-")} if isinstance(runs, dict) else section
     try:
-        wf = WorkflowConfig.model_validate(section)
+        WorkflowConfig.model_validate(shell)
     except ValidationError as exc:
         raise ConfigError(format_validation_error(exc, source)) from None
+    assert isinstance(runs, dict)
     entries: dict[str, RunEntry] = {}
     problems: list[str] = []
-    for name, run in wf.runs.items():
-        if isinstance(run, str):
-            path = Path(run)
-            try:
-                data = yaml.safe_load(path.read_text())
+    for name, run in runs.items():
+        where = f"{source}: runs.{name}"
+        try:
+            if isinstance(run, str):
+                path = Path(run)
+                data = read_yaml_file(path, "run config file")
                 cfg = parse_config(data, base_dir=path.parent, source=str(path))
-            except FileNotFoundError:
-                problems.append(f"{source}: runs.{name} = {run!r}: run config file not found")
-                continue
-            except ConfigError as exc:
-                problems.extend(exc.problems)
-                continue
-            entries[name] = RunEntry(name, cfg, str(path.parent))
-        else:
-            cfg = parse_config(run.model_dump(), base_dir=Path.cwd(), source=f"runs.{name}")
-            entries[name] = RunEntry(name, cfg, ".")
+                entries[name] = RunEntry(name, cfg, str(path.parent))
+            elif isinstance(run, dict):
+                cfg = parse_config(run, base_dir=Path.cwd(), source=where)
+                entries[name] = RunEntry(name, cfg, ".")
+            else:
+                problems.append(
+                    f"{where} = {run!r}: must be a run config (a mapping) or the path of a "
+                    "run config file"
+                )
+        except ConfigError as exc:
+            problems.extend(exc.located(where).problems if isinstance(run, str) else exc.problems)
     if problems:
         raise ConfigError(problems)
     return entries
