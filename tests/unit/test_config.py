@@ -28,7 +28,7 @@ def test_defaults_are_filled_and_documented() -> None:
     assert norm["sampler"]["moves"] == [{"kind": "stretch", "scale": 2.0, "weight": 1.0}]
     assert norm["storage"]["codec"] == "pcodec"
     assert norm["storage"]["fsync"] is True
-    assert norm["targets"]["max_rhat"] == 1.01
+    assert norm["targets"]["max_nested_rhat"] == 1.01
     assert norm["replicas"] == 1
 
 
