@@ -384,6 +384,15 @@ def _internal(exc: BaseException, command: str, show: bool) -> int:
     return INTERNAL_ERROR
 
 
+def _interrupted_class() -> type[BaseException]:
+    """The engine's stop-on-signal exception, imported without emcee where possible."""
+    try:
+        from chainyard.engine.stopping import Interrupted
+    except ImportError:  # pragma: no cover - older engine layout
+        from chainyard.engine import Interrupted
+    return Interrupted
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit status (see :mod:`chainyard.errors`)."""
     parser = _parser()
@@ -393,7 +402,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     ) not in ("", "0")
     command = str(getattr(args, "command", ""))
     try:
-        from chainyard.engine import Interrupted
+        Interrupted = _interrupted_class()
 
         try:
             code = int(args.func(args))
