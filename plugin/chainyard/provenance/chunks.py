@@ -2,13 +2,16 @@
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 from typing import Any
 
 from chainyard.errors import StoreError
 from chainyard.provenance.checks import Finding, steps_label
 from chainyard.store import Store, chunk_checksum
+from chainyard.store.files import iter_stored, read_stored, stored_size
 from chainyard.store.integrity import INTEGRITY_KEY, bytes_checksum
+from chainyard.store.packed import UnsafeMemberError, declared_chunk_bytes, most_chunk_file_bytes
 
 __all__ = ["check_chain", "check_chunks", "check_input", "check_start", "is_file_reference"]
 
@@ -49,6 +52,32 @@ def _judge(
     return "problem", "checksum mismatch of the stored bytes (decoded values still match)"
 
 
+def _chunk_file_bound(store: Store, array: str) -> tuple[int, Finding | None]:
+    """Largest acceptable chunk file of ``array`` (e.g. ``draws/position``), after checking
+    its declared chunk against the ``chunk_bytes`` limit; or a problem finding."""
+    key = f"{array}/zarr.json"
+    try:
+        raw = read_stored(store, key, "metadata_bytes")
+        if raw is None:
+            return 0, Finding("problem", array, f"{key} missing")
+        meta = json.loads(raw)
+        if not isinstance(meta, dict):
+            raise ValueError("not a JSON object")
+        return most_chunk_file_bytes(declared_chunk_bytes(meta, f"{store.path}: {key}")), None
+    except ValueError as exc:
+        return 0, Finding("problem", array, f"{key}: {exc}")
+
+
+def _read_chunk_file(store: Store, key: str) -> bytes | None:
+    """A chunk file's bytes (size already checked), None if missing or unreadable."""
+    try:
+        if stored_size(store, key) is None:
+            return None
+        return b"".join(iter_stored(store, key))
+    except (UnsafeMemberError, OSError):
+        return None
+
+
 def check_chunks(store: Store) -> tuple[list[Finding], int]:
     """Every committed chunk of every per-step array; returns the findings and chunks read."""
     record = store.commit_record
@@ -58,6 +87,10 @@ def check_chunks(store: Store) -> tuple[list[Finding], int]:
     out: list[Finding] = []
     count = 0
     for name in store.array_names():
+        most, problem = _chunk_file_bound(store, f"draws/{name}")
+        if problem is not None:
+            out.append(problem)
+            continue
         for i in range(-(-n // size)):
             lo, hi = i * size, min((i + 1) * size, n)
             want_rows = (sums.get(name) or [None] * (i + 1))[i:][:1]
@@ -65,7 +98,15 @@ def check_chunks(store: Store) -> tuple[list[Finding], int]:
             if files is not None:
                 column = files.get(name) or []
                 want_file = column[i] if i < len(column) else "absent"
-            data = store.read_bytes(store.chunk_key(name, i))
+            key = store.chunk_key(name, i)
+            stored = stored_size(store, key)
+            if stored is not None and stored > most:
+                where = f"draws/{name} chunk {i} ({steps_label(lo, hi)})"
+                message = f"chunk file is {stored:,} bytes, more than a chunk can hold ({most:,})"
+                out.append(Finding("problem", where, message))
+                count += 1
+                continue
+            data = _read_chunk_file(store, key)
             error, rows_ok = None, None
             try:
                 rows = store.read_rows(name, lo, hi)
@@ -95,7 +136,17 @@ def check_start(store: Store) -> list[Finding]:
         if want is None:
             out.append(Finding("problem", where, "no checksum recorded"))
             continue
-        data = store.read_bytes(store.start_chunk_key(name))
+        most, problem = _chunk_file_bound(store, f"start/{name}")
+        if problem is not None:
+            out.append(problem)
+            continue
+        key = store.start_chunk_key(name)
+        stored = stored_size(store, key)
+        if stored is not None and stored > most:
+            message = f"chunk file is {stored:,} bytes, more than a chunk can hold ({most:,})"
+            out.append(Finding("problem", where, message))
+            continue
+        data = _read_chunk_file(store, key)
         error, rows_ok = None, None
         try:
             rows_ok = chunk_checksum(store.start_array(name)) == want.get("rows")

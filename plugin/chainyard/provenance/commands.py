@@ -13,7 +13,7 @@ import sys
 from pathlib import Path
 from typing import Any
 
-from chainyard.errors import VerificationError
+from chainyard.errors import ChainyardError, VerificationError
 
 __all__ = ["add_commands"]
 
@@ -32,19 +32,45 @@ def _replay_steps(text: str) -> int | None:
     return n
 
 
+def _check_replay_allowed(args: argparse.Namespace) -> None:
+    """Refuse (exit 2) to replay a pack without --run-pack-code, before anything is read."""
+    from chainyard.provenance.replay import require_pack_consent
+    from chainyard.store import Store
+
+    path = Path(args.target)
+    if args.run_pack_code or (path.is_file() and path.suffix.lower() in (".json", ".png")):
+        return
+    try:
+        store = Store.open(path)
+    except ChainyardError:
+        return  # verify reports it
+    try:
+        require_pack_consent(store, False)
+    finally:
+        store.close()
+
+
 def _cmd_verify(args: argparse.Namespace) -> int:
     from chainyard.provenance.replay import replay
     from chainyard.provenance.verify import verify
 
+    wants_replay = args.replay is not False or args.replay_segment is not None
+    if wants_replay:
+        _check_replay_allowed(args)
     report = verify(args.target, chain=not args.no_chain)
     out: dict[str, Any] = {"verify": report.to_dict(), "replay": None}
     if not args.json:
         print("\n".join(report.lines()), flush=True)
-    wants_replay = args.replay is not False or args.replay_segment is not None
     result = None
     if wants_replay and report.ok and report.kind != "record":
         steps = None if args.replay is False else args.replay
-        result = replay(args.target, steps, segment=args.replay_segment, sources=args.sources)
+        result = replay(
+            args.target,
+            steps,
+            segment=args.replay_segment,
+            sources=args.sources,
+            run_pack_code=args.run_pack_code,
+        )
         out["replay"] = result.to_dict()
         if not args.json:
             print(result.line(), flush=True)
@@ -113,7 +139,9 @@ def add_commands(sub: Any) -> None:
         default=False,
         type=_replay_steps,
         metavar="N",
-        help="also rerun the first N steps (default all) and compare them bitwise",
+        help="also rerun the first N steps (default all) and compare them bitwise; this "
+        "imports and runs the model (a store's own config names it; for a pack, see "
+        "--run-pack-code)",
     )
     p.add_argument(
         "--replay-segment",
@@ -128,6 +156,12 @@ def add_commands(sub: Any) -> None:
         metavar="DIR",
         help="directory holding the model and data for a replay (default: the pack's copies, "
         "else where the config was)",
+    )
+    p.add_argument(
+        "--run-pack-code",
+        action="store_true",
+        help="allow --replay on a pack (packed or unpacked): it imports and runs the model "
+        "code and config that came with the pack; only for packs from people you trust",
     )
     p.add_argument(
         "--no-chain", action="store_true", help="do not check the inputs a store or record names"

@@ -13,8 +13,11 @@ for byte), so :func:`chainyard.open_store` reads it directly, plus a folder ``pa
     pack/records/N-NAME.json   decision and diagnostics records
 
 Packing refuses a store that fails verification, or whose model or data files no longer
-match their recorded hashes (``include_sources=False`` leaves them out). Unpacking checks
-every member against the manifest and refuses unsafe member names.
+match their recorded hashes (``include_sources=False`` leaves them out), and an output that is
+the store itself, inside it or inside any other store, an existing folder, or an existing file
+that is not a chainyard pack (an existing pack is replaced atomically). Every reader applies
+the safety rules of :func:`chainyard.store.packed.open_pack` first; unpacking then copies each
+member in blocks, checking it against the manifest.
 """
 
 from __future__ import annotations
@@ -29,18 +32,27 @@ from dataclasses import dataclass
 from pathlib import Path, PurePosixPath
 from typing import Any
 
-from chainyard.errors import StoreError, VerificationError
+from chainyard import testhooks
+from chainyard.errors import StoreError, UnsafeInputError, VerificationError
 from chainyard.provenance import utc_now
 from chainyard.provenance.checks import Finding
 from chainyard.provenance.chunks import is_file_reference
 from chainyard.provenance.record import file_digest, provenance_record, store_digest
 from chainyard.store import Store
+from chainyard.store.files import iter_stored, read_stored, stored_size
+from chainyard.store.layout import COMMIT_FILE
+from chainyard.store.packed import (
+    MANIFEST,
+    PACK_FORMAT,
+    PACK_VERSION,
+    UnsafeMemberError,
+    iter_member,
+    name_problem,
+    open_pack,
+)
 
 __all__ = ["PACK_FORMAT", "PACK_VERSION", "PackInfo", "check_pack", "pack_store", "unpack_store"]
 
-PACK_FORMAT = "chainyard.pack"
-PACK_VERSION = 1
-MANIFEST = "pack/manifest.json"
 _FIXED_TIME = (1980, 1, 1, 0, 0, 0)
 
 
@@ -140,6 +152,74 @@ def _store_files(store: Store) -> list[tuple[str, Path]]:
     return out
 
 
+def _is_store_dir(path: Path) -> bool:
+    """Whether ``path`` is a chainyard (or any zarr) store folder."""
+    return (path / COMMIT_FILE).is_file() or (path / "zarr.json").is_file()
+
+
+def _is_chainyard_pack(path: Path) -> bool:
+    """Whether the existing file ``path`` is a pack (zip with a chainyard pack manifest)."""
+    try:
+        with zipfile.ZipFile(path) as z:
+            info = z.getinfo(MANIFEST)
+            if info.file_size > 2**20 * 64:
+                return False
+            manifest = json.loads(z.read(info))
+    except (OSError, KeyError, ValueError, zipfile.BadZipFile, EOFError):
+        return False
+    return isinstance(manifest, dict) and manifest.get("format") == PACK_FORMAT
+
+
+def check_output(store_path: Path, out: Path) -> bool:
+    """Refuse a pack output that would damage something; True if it replaces a pack.
+
+    Refused (:class:`~chainyard.errors.UnsafeInputError`, exit 4): the store itself, a path
+    inside it or inside any other store, an existing folder, an existing file that is not a
+    chainyard pack.
+    """
+    src, dst = store_path.resolve(), out.resolve()
+    if dst == src:
+        raise UnsafeInputError(f"{out}: is the store being packed; write the pack elsewhere")
+    if dst.is_relative_to(src):
+        raise UnsafeInputError(
+            f"{out}: is inside the store being packed ({store_path}); write the pack elsewhere"
+        )
+    for parent in dst.parents:
+        if _is_store_dir(parent):
+            raise UnsafeInputError(
+                f"{out}: is inside the store {parent}; write the pack outside any store"
+            )
+    if dst.is_dir():
+        raise UnsafeInputError(f"{out}: is an existing folder; give a file name for the pack")
+    if os.path.lexists(out):
+        if dst.is_file() and _is_chainyard_pack(dst):
+            return True
+        raise UnsafeInputError(
+            f"{out}: exists and is not a chainyard pack; remove it or choose another name"
+        )
+    return False
+
+
+def _copy_hashed(src: Path, dst: Any) -> tuple[str, int]:
+    """Copy file ``src`` into the open writable ``dst`` in blocks; (sha256, size)."""
+    h, size = hashlib.sha256(), 0
+    with open(src, "rb") as f:
+        for block in iter(lambda: f.read(1 << 20), b""):
+            h.update(block)
+            size += len(block)
+            if dst is not None:
+                dst.write(block)
+    return h.hexdigest(), size
+
+
+def _zip_info(name: str) -> zipfile.ZipInfo:
+    info = zipfile.ZipInfo(name, date_time=_FIXED_TIME)
+    text = name.endswith((".json", ".py", ".csv", ".yaml"))
+    info.compress_type = zipfile.ZIP_DEFLATED if text else zipfile.ZIP_STORED
+    info.external_attr = 0o100644 << 16
+    return info
+
+
 def pack_store(
     store_path: str | Path,
     out: str | Path,
@@ -149,17 +229,25 @@ def pack_store(
 ) -> PackInfo:
     """Write a store, its records, provenance, config and sources into one zip file.
 
+    The pack is written to a temporary file beside ``out`` and renamed over it at the end.
+
     Parameters
     ----------
     store_path : str or Path
         A store directory (sampled or derived).
     out : str or Path
-        The archive to write (replaced atomically).
+        The archive to write: a new file, or an existing chainyard pack (replaced).
     records : sequence of path
         Further JSON records to include (e.g. diagnostics); the decision records a derived
         store names are included when found with a matching hash.
     include_sources : bool
         Include the model source(s) and data files (checked against their recorded hashes).
+
+    Raises
+    ------
+    UnsafeInputError
+        If ``out`` is the store, inside it or inside another store, an existing folder, or an
+        existing file that is not a chainyard pack.
     """
     from chainyard.provenance.prov_json import prov_json
     from chainyard.provenance.verify import verify_store
@@ -167,6 +255,8 @@ def pack_store(
     store = Store.open(store_path)
     if store.packed:
         raise StoreError(f"{store.path}: is already a packed store")
+    out = Path(out)
+    check_output(store.path, out)
     report = verify_store(store, chain=False)
     if not report.ok:
         raise VerificationError(
@@ -183,9 +273,11 @@ def pack_store(
     recs = _records(store, records)
     for entry, data in [*sources, *recs]:
         extras[entry["member"]] = data
-    files = _store_files(store)
-    members = {name: path.read_bytes() for name, path in files}
-    members.update(extras)
+    files = dict(_store_files(store))
+    listing = {n: {"sha256": _sha(d), "size": len(d)} for n, d in extras.items()}
+    for name, path in files.items():
+        sha, size = _copy_hashed(path, None)
+        listing[name] = {"sha256": sha, "size": size}
     manifest = {
         "format": PACK_FORMAT,
         "format_version": PACK_VERSION,
@@ -197,55 +289,73 @@ def pack_store(
             "replica": store.replica,
             "kind": record["subject"]["kind"],
         },
-        "members": {n: {"sha256": _sha(d), "size": len(d)} for n, d in sorted(members.items())},
+        "members": dict(sorted(listing.items())),
         "sources": [e for e, _ in sources],
         "records": [e for e, _ in recs],
     }
-    members[MANIFEST] = json.dumps(manifest, indent=1, sort_keys=True).encode()
-    out = Path(out)
+    extras[MANIFEST] = json.dumps(manifest, indent=1, sort_keys=True).encode()
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp = out.with_name(f".{out.name}.{os.getpid()}.tmp")
-    with zipfile.ZipFile(tmp, "w") as z:
-        for name in sorted(members):
-            info = zipfile.ZipInfo(name, date_time=_FIXED_TIME)
-            text = name.endswith((".json", ".py", ".csv", ".yaml"))
-            info.compress_type = zipfile.ZIP_DEFLATED if text else zipfile.ZIP_STORED
-            info.external_attr = 0o644 << 16
-            z.writestr(info, members[name])
-    os.replace(tmp, out)
-    return PackInfo(out, file_digest(out), len(members), manifest["store"]["digest"])
-
-
-def _safe(name: str) -> bool:
-    p = PurePosixPath(name)
-    return not (p.is_absolute() or ".." in p.parts or "\\" in name or ":" in name or not name)
-
-
-def _manifest(archive: zipfile.ZipFile, where: Path) -> dict[str, Any]:
     try:
-        manifest = json.loads(archive.read(MANIFEST))
-    except KeyError:
-        raise StoreError(f"{where}: not a chainyard pack (no {MANIFEST})") from None
-    except ValueError as exc:
-        raise VerificationError(f"{where}: {MANIFEST} is not JSON ({exc})") from None
-    if manifest.get("format") != PACK_FORMAT or manifest.get("format_version") != PACK_VERSION:
-        raise StoreError(f"{where}: pack format {manifest.get('format_version')} not supported")
-    return manifest
+        with zipfile.ZipFile(tmp, "w") as z:
+            for name in sorted([*files, *extras]):
+                big = name in files and listing[name]["size"] > 2**30
+                with z.open(_zip_info(name), "w", force_zip64=big) as dst:
+                    if name in extras:
+                        dst.write(extras[name])
+                        continue
+                    sha, _ = _copy_hashed(files[name], dst)
+                    if sha != listing[name]["sha256"]:
+                        raise StoreError(f"{files[name]}: changed while it was being packed")
+        with open(tmp, "rb") as f:
+            os.fsync(f.fileno())
+        testhooks.instant("pack-before-publish")
+        os.replace(tmp, out)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    return PackInfo(out, file_digest(out), len(files) + len(extras), manifest["store"]["digest"])
+
+
+def _stream_sha(store: Store, name: str) -> str:
+    h = hashlib.sha256()
+    for block in iter_stored(store, name):
+        h.update(block)
+    return h.hexdigest()
 
 
 def check_pack(store: Store) -> list[Finding]:
-    """A packed (or unpacked) store's members against its manifest; [] if it is no pack."""
-    raw = store.read_bytes(MANIFEST)
-    if raw is None:
-        return []
-    members = json.loads(raw).get("members", {})
+    """A packed (or unpacked) store's members against its manifest; [] if it is no pack.
+
+    Members are hashed in blocks (memory does not grow with their size).
+    """
+    try:
+        raw = read_stored(store, MANIFEST, "metadata_bytes")
+        if raw is None:
+            return []
+        manifest = json.loads(raw)
+        members = manifest.get("members")
+        if not isinstance(members, dict):
+            raise ValueError("'members' is not an object")
+    except (ValueError, AttributeError) as exc:
+        return [Finding("problem", MANIFEST, f"not a valid manifest ({exc})")]
     out = []
     for name, want in sorted(members.items()):
-        data = store.read_bytes(name)
-        if data is None:
-            out.append(Finding("problem", f"pack member {name}", "missing"))
-        elif _sha(data) != want.get("sha256"):
-            out.append(Finding("problem", f"pack member {name}", "differs from the manifest"))
+        where = f"pack member {name}"
+        problem = name_problem(name)
+        if problem:
+            out.append(Finding("problem", where, problem))
+            continue
+        if stored_size(store, name) is None:
+            out.append(Finding("problem", where, "missing"))
+            continue
+        try:
+            got = _stream_sha(store, name)
+        except (UnsafeMemberError, OSError) as exc:
+            out.append(Finding("problem", where, getattr(exc, "rule", None) or str(exc)))
+            continue
+        if not isinstance(want, dict) or got != want.get("sha256"):
+            out.append(Finding("problem", where, "differs from the manifest"))
     if not out:
         out.append(Finding("ok", "pack", f"{len(members)} member(s) match the manifest"))
     return out
@@ -254,41 +364,45 @@ def check_pack(store: Store) -> list[Finding]:
 def unpack_store(pack: str | Path, out: str | Path) -> Path:
     """Extract a pack into the directory ``out`` (a store, with the extras under ``pack/``).
 
+    The pack passes :func:`~chainyard.store.packed.open_pack` first; members are copied in
+    blocks into a temporary folder beside ``out``, renamed to ``out`` once all match.
+
     Raises
     ------
     StoreError
-        If ``pack`` is not a chainyard pack or ``out`` already exists.
+        If ``pack`` is not a chainyard pack or ``out`` already exists (exit 4).
+    UnsafeInputError, LimitExceededError
+        If the pack breaks a safety rule or a limit (exit 4); nothing is written.
     VerificationError
-        If a member is unsafe, missing or differs from the manifest.
+        If a member differs from the manifest (exit 7); nothing is left behind.
     """
     pack, out = Path(pack), Path(out)
-    if not zipfile.is_zipfile(pack):
-        raise StoreError(f"{pack}: not a zip file (not a chainyard pack)")
-    if out.exists():
+    if os.path.lexists(out):
         raise StoreError(f"{out}: already exists; unpack into a new directory")
+    archive, index = open_pack(pack)
     tmp = out.with_name(f".{out.name}.{os.getpid()}.partial")
-    with zipfile.ZipFile(pack) as archive:
-        manifest = _manifest(archive, pack)
-        names = [n for n in archive.namelist() if not n.endswith("/")]
-        bad = [n for n in names if not _safe(n)]
-        if bad:
-            raise VerificationError(f"{pack}: unsafe member name {bad[0]!r}; not unpacking")
-        members = manifest.get("members", {})
-        extra = sorted(set(names) - set(members) - {MANIFEST})
-        if extra:
-            raise VerificationError(f"{pack}: member {extra[0]} is not in the manifest")
-        try:
-            for name in sorted(members):
-                data = archive.read(name) if name in names else None
-                if data is None or _sha(data) != members[name].get("sha256"):
-                    state = "missing" if data is None else "differs from the manifest"
-                    raise VerificationError(f"{pack}: member {name} {state}; not unpacking")
+    root = tmp.resolve()
+    try:
+        with archive:
+            for name in sorted(index.manifest["members"]):
                 dest = tmp / name
+                if not dest.resolve().is_relative_to(root):  # the rules make this impossible
+                    raise UnsafeMemberError(pack, name, "would land outside the target")
                 dest.parent.mkdir(parents=True, exist_ok=True)
-                dest.write_bytes(data)
-            (tmp / MANIFEST).write_bytes(archive.read(MANIFEST))
-        except BaseException:
-            shutil.rmtree(tmp, ignore_errors=True)
-            raise
-    os.replace(tmp, out)
+                h = hashlib.sha256()
+                with open(dest, "xb") as f:
+                    for block in iter_member(archive, index.infos[name], pack):
+                        h.update(block)
+                        f.write(block)
+                if h.hexdigest() != index.manifest["members"][name]["sha256"]:
+                    raise VerificationError(
+                        f"{pack}: member {name} differs from the manifest; not unpacking"
+                    )
+            with open(tmp / MANIFEST, "xb") as f:
+                for block in iter_member(archive, index.infos[MANIFEST], pack):
+                    f.write(block)
+        os.replace(tmp, out)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
     return out

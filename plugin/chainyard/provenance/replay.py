@@ -26,11 +26,12 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from chainyard.errors import ConfigError, VerificationError
+from chainyard.errors import ConfigError, UnsafeInputError, VerificationError
 from chainyard.store import Store
+from chainyard.store.files import iter_stored, read_stored, stored_size
 from chainyard.store.integrity import INTEGRITY_KEY
 
-__all__ = ["ReplayResult", "replay"]
+__all__ = ["RUN_PACK_CODE", "ReplayResult", "pack_code", "replay", "require_pack_consent"]
 
 PACK_MANIFEST = "pack/manifest.json"
 
@@ -93,24 +94,87 @@ class ReplayResult:
         }
 
 
-def _materialise_pack_sources(store: Store, into: Path) -> Path | None:
-    """Write a pack's model/data files at their recorded relative paths below ``into``."""
-    raw = store.read_bytes(PACK_MANIFEST)
+#: the command-line option that allows replaying a pack (running its code)
+RUN_PACK_CODE = "--run-pack-code"
+
+
+def _pack_manifest(store: Store) -> dict[str, Any] | None:
+    """The pack manifest a packed or unpacked store holds (None for a plain store)."""
+    raw = read_stored(store, PACK_MANIFEST, "metadata_bytes")
     if raw is None:
         return None
-    sources = json.loads(raw).get("sources", [])
-    depth = max((Path(s["path"]).parts.count("..") for s in sources), default=0)
+    try:
+        manifest = json.loads(raw)
+    except ValueError:
+        manifest = None
+    if not isinstance(manifest, dict):
+        raise UnsafeInputError(f"{store.path}: {PACK_MANIFEST} is not a JSON object")
+    return manifest
+
+
+def pack_code(store: Store) -> str | None:
+    """What replaying ``store`` would import and run if it is a pack (packed or unpacked);
+    None for a store that is not a pack (its config's model files are the user's own)."""
+    manifest = _pack_manifest(store)
+    if manifest is None:
+        return None
+    model = (store.attrs.get("config") or {}).get("model") or {}
+    code = [f"model {model.get('log_prob')}"]
+    if model.get("data_loader"):
+        code.append(f"data loader {model.get('data_loader')}")
+    files = [
+        str(s.get("member"))
+        for s in manifest.get("sources") or []
+        if isinstance(s, dict) and str(s.get("member", "")).endswith(".py")
+    ]
+    return ", ".join(code) + (f" (bundled {', '.join(files)})" if files else "")
+
+
+def require_pack_consent(store: Store, allowed: bool) -> None:
+    """Refuse to replay a pack unless running its code was allowed explicitly.
+
+    Raises
+    ------
+    ConfigError
+        (exit 2) naming what would run and the option that allows it.
+    """
+    if allowed:
+        return
+    what = pack_code(store)
+    if what is not None:
+        raise ConfigError(
+            f"{store.path}: replaying this pack would import and run code that came with it: "
+            f"{what}; add {RUN_PACK_CODE} if you trust where the pack came from"
+        )
+
+
+def _materialise_pack_sources(store: Store, into: Path) -> Path | None:
+    """Write a pack's model/data files at their recorded relative paths below ``into``
+    (copied in blocks; paths that would leave ``into`` are skipped)."""
+    manifest = _pack_manifest(store)
+    if manifest is None:
+        return None
+    sources = [
+        s
+        for s in manifest.get("sources") or []
+        if isinstance(s, dict) and isinstance(s.get("path"), str) and s["path"]
+    ]
+    ups = [Path(s["path"]).parts.count("..") for s in sources]
+    depth = min(max(ups, default=0), 16)
     base = into.joinpath(*(["d"] * depth)) if depth else into
     base.mkdir(parents=True, exist_ok=True)
+    root = into.resolve()
     for s in sources:
-        data = store.read_bytes(s["member"])
-        if data is None or Path(s["path"]).is_absolute():
+        member = str(s.get("member"))
+        if Path(s["path"]).is_absolute() or stored_size(store, member) is None:
             continue
         dest = (base / s["path"]).resolve()
-        if not dest.is_relative_to(into.resolve()):
+        if not dest.is_relative_to(root):
             continue
         dest.parent.mkdir(parents=True, exist_ok=True)
-        dest.write_bytes(data)
+        with open(dest, "wb") as f:
+            for block in iter_stored(store, member):
+                f.write(block)
     return base
 
 
@@ -262,6 +326,7 @@ def replay(
     *,
     segment: int | None = None,
     sources: str | Path | None = None,
+    run_pack_code: bool = False,
 ) -> ReplayResult:
     """Rerun recorded steps of a store and compare them bitwise with the stored draws.
 
@@ -276,14 +341,21 @@ def replay(
     sources : str or Path, optional
         Directory the recorded model/data paths are resolved against (default: the pack's
         copies, else the directory of the original config).
+    run_pack_code : bool
+        Allow replaying a pack (packed or unpacked): this imports and runs the model code and
+        the stored config that came with it. A store that is not a pack runs its config's
+        model files (the user's own) either way.
 
     Raises
     ------
+    ConfigError
+        If ``target`` is a pack and ``run_pack_code`` is false (nothing is imported).
     VerificationError
         If the model or data no longer match their recorded hashes, or nothing can be
         compared. A replay that runs but differs is returned, not raised.
     """
     store = target if isinstance(target, Store) else Store.open(target)
+    require_pack_consent(store, run_pack_code)
     attrs = store.attrs
     if store.steps_done == 0:
         raise VerificationError(f"{store.path}: no committed steps to replay")

@@ -23,6 +23,7 @@ from chainyard.provenance.checks import Finding, check_consistency, check_counte
 from chainyard.provenance.chunks import check_chain, check_chunks, check_input, check_start
 from chainyard.provenance.pack import check_pack
 from chainyard.store import Store
+from chainyard.store.packed import UnsafeMemberError
 
 __all__ = ["Finding", "VerifyReport", "verify", "verify_metadata"]
 
@@ -157,7 +158,13 @@ def verify(target: str | Path | Store, *, chain: bool = True) -> VerifyReport:
     path = Path(target)
     if path.is_file() and path.suffix.lower() in (".json", ".png"):
         return verify_record(path)
-    store = Store.open(path)
+    try:
+        store = Store.open(path)
+    except UnsafeMemberError as exc:
+        report = VerifyReport(str(path), "packed_store")
+        where = f"pack member {exc.member}" if exc.member else "pack"
+        report.findings.append(Finding("problem", where, exc.rule))
+        return report
     try:
         return verify_store(store, chain=chain)
     finally:
