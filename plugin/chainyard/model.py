@@ -21,7 +21,13 @@ import numpy as np
 from chainyard.config import RunConfig
 from chainyard.datafiles import read_data_file
 from chainyard.errors import ConfigError
-from chainyard.evaluator import LoadedModel, _is_real_ctrl_c, _is_stop_signal, describe_exception
+from chainyard.evaluator import (
+    LoadedModel,
+    _is_real_ctrl_c,
+    _is_stop_signal,
+    describe_exception,
+    watch_sigint,
+)
 
 __all__ = [
     "LoadedModel",
@@ -77,6 +83,7 @@ def load_function(ref: str, base_dir: Path, field: str) -> Callable[..., Any]:
     ConfigError
         If the file or module is missing, fails to import, or lacks the function.
     """
+    watch_sigint()  # a real Ctrl-C stays one; the module's own KeyboardInterrupt is an error
     module_name, func_name = _split_reference(ref)
     is_file = module_name.endswith(".py") or "/" in module_name or "\\" in module_name
     if is_file:
@@ -123,9 +130,11 @@ def _import_error(exc: BaseException, prefix: str) -> ConfigError:
     if _is_stop_signal(exc) or _is_real_ctrl_c(exc):
         raise exc
     what, hint = describe_exception(exc)
-    if isinstance(exc, SystemExit | KeyboardInterrupt):
-        hint = hint.replace("a model must return a value, not exit", "user code must not exit")
-    return ConfigError(f"{prefix}: {what}" + (f" ({hint})" if hint else ""))
+    if isinstance(exc, SystemExit):
+        hint = "user code must not exit"
+    elif isinstance(exc, KeyboardInterrupt):
+        hint = "user code must not raise KeyboardInterrupt"
+    return ConfigError(f"{prefix}: {what}" + (f"; {hint}" if hint else ""))
 
 
 def load_data(config: RunConfig) -> Any:
@@ -162,6 +171,7 @@ def load_model(config: RunConfig) -> LoadedModel:
     ConfigError
         If a file, module or function is missing or fails to load.
     """
+    watch_sigint()
     func = load_function(config.model.log_prob, config.base_dir, "model.log_prob")
     check_extra_sources(config)
     data = load_data(config)
