@@ -32,6 +32,7 @@ __all__ = ["main"]
 
 
 def _cmd_sample(args: argparse.Namespace) -> int:
+    from chainyard.analysis.until import REPLICA_FIELD, replica_paths
     from chainyard.config import load_config
     from chainyard.engine import sample
 
@@ -39,21 +40,33 @@ def _cmd_sample(args: argparse.Namespace) -> int:
     if args.steps is not None:
         config = config.with_steps(args.steps)
     kwargs = dict(
-        replica=args.replica,
         restart=args.restart,
         progress=args.progress,
         progress_interval=args.progress_interval,
     )
+    templated = REPLICA_FIELD in args.out
     if not args.until_targets:
-        sample(config, args.out, **kwargs)
+        out = args.out.replace(REPLICA_FIELD, str(args.replica))
+        sample(config, out, replica=args.replica, **kwargs)
         return 0
     from chainyard.analysis.until import sample_until_targets
 
-    store, met = sample_until_targets(config, args.out, **kwargs)
+    if templated:  # every replica of the run, extended in turn, judged together
+        paths = replica_paths(args.out, config.replicas)
+        indices = list(range(config.replicas))
+    elif config.replicas > 1:
+        raise ConfigError(
+            f"--until-targets judges the whole run ({config.replicas} replicas): give --out "
+            f"with {REPLICA_FIELD} (e.g. --out run/r{REPLICA_FIELD}.zarr) so that every "
+            "replica is extended and diagnosed together"
+        )
+    else:
+        paths, indices = [Path(args.out)], [args.replica]
+    store, met = sample_until_targets(config, paths, indices, **kwargs)
     if not met:
         print(
             f"chainyard: targets not met after {store.steps_done:,} steps (budget spent); "
-            f"see {args.out}/target_checks.json",
+            f"see {paths[0]}/target_checks.json",
             file=sys.stderr,
         )
         return 1
@@ -239,7 +252,9 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument(
         "--until-targets",
         action="store_true",
-        help="extend until the per-replica targets hold (see extend_until_targets)",
+        help="extend until the run's targets hold (see extend_until_targets); with "
+        "replicas > 1 give --out with {replica} (run/r{replica}.zarr): every replica is "
+        "extended in turn and the verdict is diagnose's, across all replicas",
     )
     p.add_argument(
         "--restart", action="store_true", help="discard an existing store at --out and start over"

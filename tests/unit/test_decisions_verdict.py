@@ -8,13 +8,16 @@ import numpy as np
 import pytest
 
 from chainyard.decisions import Targets, assess
+from chainyard.decisions.targets import steps_needed
 from chainyard.diagnostics import (
     ensemble_to_chains,
     ess_bulk,
     ess_tail,
+    integrated_time,
     integrated_time_report,
     rhat,
 )
+from chainyard.diagnostics.nested import nested_rhat
 
 
 def diagnose(replicas: list[np.ndarray]) -> dict[str, float]:
@@ -22,11 +25,14 @@ def diagnose(replicas: list[np.ndarray]) -> dict[str, float]:
     chains = ensemble_to_chains(replicas)
     pooled = ensemble_to_chains(replicas, mode="walkers")
     tau = integrated_time_report(replicas[0].T)
+    half = replicas[0].shape[0] // 2
     return {
+        "rhat_nested": nested_rhat(pooled, len(replicas)),
         "rhat": rhat(chains),
         "ess_bulk": ess_bulk(pooled),
         "ess_tail": ess_tail(pooled),
         "steps_per_tau": tau.steps_per_tau,
+        "tau_growth": tau.tau / integrated_time(replicas[0][:half].T),
     }
 
 
@@ -39,8 +45,8 @@ def test_iid_replicas_pass() -> None:
     assert verdict.lines[0].startswith("Overall: ok")
 
 
-def test_shifted_replica_fails_with_number_in_message() -> None:
-    """A replica shifted by 1 sd fails on R-hat and the line shows the value vs 1.01."""
+def test_shifted_replica_fails_mixing_with_number_in_message() -> None:
+    """A replica shifted by 1 sd fails nested R-hat (mixing) and the line shows value vs 1.01."""
     rng = np.random.default_rng(1)
     reps = [rng.standard_normal((2_000, 16)) for _ in range(4)]
     reps[2] = reps[2] + 1.0
@@ -48,30 +54,92 @@ def test_shifted_replica_fails_with_number_in_message() -> None:
     verdict = assess({"m": diag})
     assert not verdict.ok
     check = verdict.params["m"]
-    assert not check.ok and check.failures[0].startswith("rhat ")
-    assert f"{diag['rhat']:.3g}" in verdict.lines[1] and "> 1.01" in verdict.lines[1]
+    assert not check.ok and check.failures[0].startswith("rhat_nested ")
+    assert check.checks == {"mixing": False, "tau": True, "precision": True}
+    assert verdict.checks["mixing"] is False
+    assert f"{diag['rhat_nested']:.4f}" in verdict.lines[1] and "> 1.01" in verdict.lines[1]
+    assert any("more steps may not help" in line for line in verdict.lines)
+
+
+def test_classic_rhat_reported_but_gates_only_when_set() -> None:
+    """Classic R-hat 1.03 fails only with max_rhat set (default None: reported, not gating)."""
+    diag = {
+        "rhat_nested": 1.001,
+        "rhat": 1.03,
+        "ess_bulk": 1e4,
+        "ess_tail": 1e4,
+        "steps_per_tau": 100.0,
+        "tau_growth": 1.05,
+    }
+    assert assess({"a": diag}).ok
+    strict = assess({"a": diag}, Targets(max_rhat=1.01))
+    assert strict.params["a"].failures == ("rhat 1.0300 > 1.01",)
+    assert strict.params["a"].checks["mixing"] is False
 
 
 def test_each_target_reports_its_failing_number() -> None:
-    """Low ESS and too few steps per tau each produce a 'value < limit' failure."""
+    """Low ESS, too few steps per tau and a growing tau each produce a failure line."""
     verdict = assess(
-        {"a": {"rhat": 1.001, "ess_bulk": 120.0, "ess_tail": 390.0, "tau": 40.0, "draws": 1000}}
+        {
+            "a": {
+                "rhat_nested": 1.001,
+                "ess_bulk": 120.0,
+                "ess_tail": 390.0,
+                "tau": 40.0,
+                "draws": 1000,
+                "tau_growth": 1.6,
+            }
+        }
     )
     fails = verdict.params["a"].failures
-    assert fails == ("ess_bulk 120 < 400", "ess_tail 390 < 400", "steps_per_tau 25 < 50")
+    assert fails == (
+        "steps_per_tau 25 < 50",
+        "tau_growth 1.60 > 1.3",
+        "ess_bulk 120 < 400",
+        "ess_tail 390 < 400",
+    )
+    assert verdict.params["a"].checks == {"mixing": True, "tau": False, "precision": False}
+    assert "tau: still growing or too few steps per tau: run longer." in verdict.lines
+
+
+def test_steps_needed_from_ess_and_tau() -> None:
+    """ESS in proportion to steps: 120 of 400 at 1,000 steps needs 3,334; 50 x tau 40 = 2,000."""
+    targets = Targets()
+    diag = {"ess_bulk": 120.0, "ess_tail": 390.0, "tau": 40.0}
+    # 1000 * 400 / 120 = 3333.3 -> 3334 (ceil); arithmetic by hand
+    assert steps_needed(diag, targets, 1000, {"ess_bulk", "ess_tail"}) == 3334
+    assert steps_needed(diag, targets, 1000, {"steps_per_tau"}) == 2000
+    assert steps_needed(diag, targets, 1000, {"tau_growth"}) == 2000  # at least double
+    assert steps_needed(diag, targets, 1000, {"rhat_nested"}) is None  # mixing: no estimate
+    verdict = assess({"a": {**diag, "rhat_nested": 1.0, "steps_per_tau": 25.0}}, steps=1000)
+    assert verdict.params["a"].steps_needed == 3334
+    assert verdict.more_steps == 2334
+    assert verdict.to_dict()["more_steps"] == 2334
+    assert any("about 2,334 more" in line for line in verdict.lines)
 
 
 def test_missing_or_nan_fails_and_none_disables() -> None:
     """A missing or NaN diagnostic fails; a target set to None is skipped."""
-    v = assess({"a": {"rhat": float("nan"), "ess_bulk": 500.0, "ess_tail": 500.0}})
-    assert v.params["a"].failures == ("rhat is nan", "steps_per_tau missing")
-    relaxed = Targets(min_steps_per_tau=None, max_rhat=None)
+    v = assess(
+        {"a": {"rhat_nested": float("nan"), "ess_bulk": 500.0, "ess_tail": 500.0}},
+        Targets(max_tau_growth=None),
+    )
+    assert v.params["a"].failures == ("rhat_nested is nan", "steps_per_tau missing")
+    relaxed = Targets(min_steps_per_tau=None, max_nested_rhat=None, max_tau_growth=None)
     assert assess({"a": {"ess_bulk": 500.0, "ess_tail": 500.0}}, relaxed).ok
 
 
 def test_multivariate_ess_target() -> None:
     """mESS below min_ess(p, alpha, eps) fails; above passes (Vats et al. 2019)."""
-    diag = {"a": {"rhat": 1.0, "ess_bulk": 1e4, "ess_tail": 1e4, "steps_per_tau": 100.0}}
+    diag = {
+        "a": {
+            "rhat_nested": 1.0,
+            "ess_bulk": 1e4,
+            "ess_tail": 1e4,
+            "steps_per_tau": 100.0,
+            "tau_growth": 1.0,
+        }
+    }
     targets = Targets(mess_eps=0.05)
     assert not assess(diag, targets, multivariate_ess=5_000.0).ok  # need 6147 for p = 1
     assert assess(diag, targets, multivariate_ess=7_000.0).ok

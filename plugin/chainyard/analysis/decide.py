@@ -38,6 +38,7 @@ from chainyard.decisions import (
     thin_to_target,
 )
 from chainyard.diagnostics import autocorrelation, integrated_time
+from chainyard.errors import StoreError
 from chainyard.store import Store
 
 __all__ = ["decide_burn_in", "decide_thinning", "tau_per_param"]
@@ -79,13 +80,31 @@ def _combine(decisions: list[BurnInDecision], steps: int) -> BurnInDecision:
     )
 
 
+def _too_short(what: str, steps: int, error: ValueError) -> StoreError:
+    """One-line error for a store too short for the policy's method (names the minimum)."""
+    return StoreError(f"cannot decide {what} on {steps} steps: {error}")
+
+
 def decide_burn_in(stores: Sequence[Store], spec: BurnInSpec) -> BurnInDecision:
     """The burn-in cut (steps to discard from every replica) under ``spec``.
 
     Data-driven policies are applied to each replica's walker-mean log-prob trace; the largest
     cut over replicas is taken so that every replica keeps the same steps.
+
+    Raises
+    ------
+    StoreError
+        If the stores are too short for the policy's method (the message names the minimum,
+        e.g. "MSER-5 needs at least 4 batches (20 steps)").
     """
     steps = min(s.steps_done for s in stores)
+    try:
+        return _decide_burn_in(stores, spec, steps)
+    except ValueError as e:
+        raise _too_short("burn-in", steps, e) from None
+
+
+def _decide_burn_in(stores: Sequence[Store], spec: BurnInSpec, steps: int) -> BurnInDecision:
     if isinstance(spec, FixedBurnIn):
         return burn_in_fixed(spec.steps, steps)
     if isinstance(spec, FractionBurnIn):
@@ -114,8 +133,21 @@ def decide_burn_in(stores: Sequence[Store], spec: BurnInSpec) -> BurnInDecision:
 
 
 def decide_thinning(stores: Sequence[Store], spec: ThinningSpec) -> ThinningDecision:
-    """The thinning factor under ``spec`` for (already trimmed) replica stores."""
+    """The thinning factor under ``spec`` for (already trimmed) replica stores.
+
+    Raises
+    ------
+    StoreError
+        If the stores are too short for the policy's method (the message names the minimum).
+    """
     steps = min(s.steps_done for s in stores)
+    try:
+        return _decide_thinning(stores, spec, steps)
+    except ValueError as e:
+        raise _too_short("thinning", steps, e) from None
+
+
+def _decide_thinning(stores: Sequence[Store], spec: ThinningSpec, steps: int) -> ThinningDecision:
     if isinstance(spec, NoThinning):
         return thin_none()
     if isinstance(spec, FixedThinning):

@@ -28,9 +28,11 @@ import numpy as np
 import numpy.typing as npt
 
 from chainyard.config import TargetsSpec
-from chainyard.decisions import Targets, assess
+from chainyard.decisions import assess
+from chainyard.decisions.targets import WHAT_EACH_CHECK_COMPARES
 from chainyard.diagnostics import (
     acceptance_report,
+    integrated_time,
     integrated_time_report,
     min_ess,
     multivariate_ess,
@@ -39,7 +41,10 @@ from chainyard.diagnostics import (
     rhat_folded,
 )
 from chainyard.diagnostics._validation import MIN_DRAWS
+from chainyard.diagnostics.acceptance import acceptance_band
+from chainyard.diagnostics.nested import nested_rhat_folded_inplace, nested_rhat_of_scores
 from chainyard.diagnostics.pooled import pooled_summary
+from chainyard.errors import StoreError
 from chainyard.store import Store
 
 __all__ = [
@@ -54,9 +59,10 @@ __all__ = [
 FloatArray = npt.NDArray[np.float64]
 
 WHAT_IS_COMPARED = (
-    "R-hat: one chain per independent replica (its walker-mean trace). ESS/MCSE: every walker "
-    "of every replica as a chain. tau: per replica, walkers averaged; largest reported. "
-    "mESS: walker-mean traces of all replicas."
+    "nested R-hat: replicas as superchains, walkers as chains (replica-mean spread vs posterior "
+    "sd). R-hat: one chain per replica (its walker-mean trace). ESS/MCSE: every walker of every "
+    "replica as a chain. tau: per replica, walkers averaged; largest reported; growth: whole "
+    "run vs its first half. mESS: walker-mean traces of all replicas."
 )
 
 
@@ -109,6 +115,7 @@ def diagnose_arrays(
     *,
     accepted: npt.NDArray[np.bool_] | None = None,
     names: Sequence[str] | None = None,
+    move_kinds: Sequence[str] | None = None,
 ) -> dict[str, Any]:
     """:func:`diagnose` on draws held in memory (same code, same result dict).
 
@@ -122,6 +129,8 @@ def diagnose_arrays(
         Acceptance flags; if not given the acceptance checks see every proposal accepted.
     names : sequence of str, optional
         Parameter names (default ``x0, x1, ...``).
+    move_kinds : sequence of str, optional
+        The run's move kinds for the acceptance band (default: ensemble moves).
 
     Returns
     -------
@@ -145,7 +154,11 @@ def diagnose_arrays(
         ArrayReplica(draws[r], None if accepted is None else accepted[r], names, r)
         for r in range(draws.shape[0])
     ]
-    return diagnose(replicas, targets or TargetsSpec())  # type: ignore[arg-type]
+    return diagnose(
+        replicas,  # type: ignore[arg-type]
+        targets or TargetsSpec(),
+        move_kinds=move_kinds,
+    )
 
 
 def _finite(value: float) -> float | None:
@@ -202,8 +215,32 @@ def read_column(
         row += walkers
 
 
+def _tau_growth(x: FloatArray, stores: Sequence[Any], steps: int) -> float | None:
+    """tau of the whole run / tau of its first half, both averaged over replicas."""
+    half = steps // 2
+    if half < MIN_DRAWS:
+        return None
+    whole = first = 0.0
+    row = 0
+    for s in stores:
+        rows = x[row : row + s.walkers]
+        whole += integrated_time(rows)
+        first += integrated_time(rows[:, :half])
+        row += s.walkers
+    if not (np.isfinite(whole) and np.isfinite(first)) or first <= 0:
+        return None
+    return float(whole / first)
+
+
+def _nested_groups(stores: Sequence[Any]) -> int | None:
+    """Superchains for nested R-hat: the replicas (equal walkers), or 1 (halves of the run)."""
+    if len({s.walkers for s in stores}) != 1:
+        return None
+    return len(stores)
+
+
 def _param_diagnostics(
-    stores: Sequence[Store],
+    stores: Sequence[Any],
     j: int,
     steps: int,
     min_steps_per_tau: float,
@@ -213,9 +250,10 @@ def _param_diagnostics(
 ) -> dict[str, Any]:
     """Diagnostics of parameter ``j``; ``x`` and ``work`` are reused buffers (one column each).
 
-    Memory: ``x`` (the draws of all walkers of all replicas), ``work`` and, during the rank
+    Memory: ``x`` (the draws of all walkers of all replicas), ``work`` and, during each rank
     normalisation, one index array of the same length: three columns, plus blocks of a few
-    MiB (see :mod:`chainyard.diagnostics.pooled`).
+    MiB (see :mod:`chainyard.diagnostics.pooled`). The column is read twice: the folded
+    nested R-hat needs the raw draws after the pooled summary has overwritten them.
     """
     read_column(stores, j, steps, x, walker_means)
     replica_chains = np.ascontiguousarray(walker_means)  # (replicas, steps), small
@@ -227,14 +265,23 @@ def _param_diagnostics(
         )
         row += s.walkers
     tau = max(r.tau for r in reports)
+    growth = _tau_growth(x, stores, steps)
     draws_total = x.size
     pooled = pooled_summary(x, work, overwrite=True)  # x holds normal scores afterwards
+    groups = _nested_groups(stores)
+    nested = None
+    if groups is not None and np.isfinite(pooled["ess_bulk"]):
+        bulk = nested_rhat_of_scores(x, groups)  # x: normal scores of the split chains
+        read_column(stores, j, steps, x, walker_means)
+        folded = nested_rhat_folded_inplace(x, work, groups)
+        nested = _finite(max(bulk, folded))
     out = {
         "mean": pooled["mean"],
         "sd": pooled["sd"],
         "q05": pooled["q05"],
         "q50": pooled["q50"],
         "q95": pooled["q95"],
+        "rhat_nested": nested,
         "rhat": _finite(rhat(replica_chains)),
         "rhat_bulk": _finite(rhat_bulk(replica_chains)),
         "rhat_folded": _finite(rhat_folded(replica_chains)),
@@ -242,24 +289,42 @@ def _param_diagnostics(
         "ess_tail": _finite(pooled["ess_tail"]),
         "ess_tau": float(draws_total / tau) if tau > 0 else None,
         "mcse_mean": _finite(pooled["mcse_mean"]),
+        "mcse_sd": _finite(pooled["mcse_sd"]),
         "mcse_q05": _finite(pooled["mcse_q05"]),
         "mcse_q95": _finite(pooled["mcse_q95"]),
-        "tau": float(tau),
-        "tau_per_replica": [float(r.tau) for r in reports],
+        "tau": _finite(tau),
+        "tau_per_replica": [_finite(r.tau) for r in reports],
         "steps_per_tau": float(steps / tau) if tau > 0 else None,
+        "tau_growth": growth,
         "tau_reliable": all(r.reliable for r in reports),
         "tau_messages": [r.message for r in reports if r.message],
     }
     return out
 
 
-def diagnose(stores: Sequence[Store], targets: TargetsSpec | None = None) -> dict[str, Any]:
+#: Fewest steps (after burn-in) diagnose accepts: split chains need two halves of 2 draws.
+MIN_STEPS = MIN_DRAWS
+
+
+def _move_kinds(stores: Sequence[Any]) -> list[str] | None:
+    try:
+        return [m.kind for m in stores[0].config.sampler.moves]
+    except AttributeError:  # in-memory replicas carry no config
+        return None
+
+
+def diagnose(
+    stores: Sequence[Store],
+    targets: TargetsSpec | None = None,
+    *,
+    move_kinds: Sequence[str] | None = None,
+) -> dict[str, Any]:
     """Diagnostics per parameter, acceptance per replica, mESS, and the verdict.
 
     Bounded memory: one parameter at a time, read from the stores a few chunks at a time,
     into two reused buffers of one *column* each (one parameter of every walker of every
     replica: ``steps x walkers x replicas`` float64), plus an index array of one column
-    during the rank normalisation, so the peak is about three columns above the process's
+    during each rank normalisation, so the peak is about three columns above the process's
     baseline, whatever the number of parameters. Held across parameters: the walker-mean
     traces of all parameters (the mESS input, ``raw size / walkers``).
 
@@ -269,31 +334,43 @@ def diagnose(stores: Sequence[Store], targets: TargetsSpec | None = None) -> dic
         The replicas of one run (after burn-in), same parameters and walkers.
     targets : TargetsSpec, optional
         Targets for the verdict (default: the first store's config targets).
+    move_kinds : sequence of str, optional
+        Move kinds for the acceptance band (default: from the first store's config).
 
     Returns
     -------
     dict
-        JSON-ready: ``params``, ``acceptance``, ``multivariate``, ``verdict``, ``steps``,
-        ``walkers``, ``replicas``, ``what_is_compared``.
+        JSON-ready: ``params``, ``acceptance``, ``multivariate``, ``verdict`` (``ok``,
+        ``checks`` per question, ``more_steps``, per-parameter ``checks``/``failures``),
+        ``steps``, ``walkers``, ``replicas``, ``what_is_compared``, ``what_each_check_compares``.
+
+    Raises
+    ------
+    StoreError
+        If the shortest replica has fewer than :data:`MIN_STEPS` steps.
     """
     targets = targets or stores[0].config.targets
     steps = min(s.steps_done for s in stores)
-    if steps < MIN_DRAWS:
-        raise ValueError(f"shortest replica has {steps} steps; at least {MIN_DRAWS} are required")
+    if steps < MIN_STEPS:
+        raise StoreError(
+            f"diagnose needs at least {MIN_STEPS} steps per replica after burn-in (split-chain "
+            f"R-hat and ESS use two halves of at least 2 steps); the shortest replica has {steps}"
+        )
     names = stores[0].param_names
     chains = sum(s.walkers for s in stores)
     means = np.empty((len(stores), steps, len(names)))  # walker-mean traces, for mESS
     x = np.empty((chains, steps))
     work = np.empty(x.size)
     params = {}
+    min_spt = targets.min_steps_per_tau or 50.0
     for j, name in enumerate(names):
-        params[name] = _param_diagnostics(
-            stores, j, steps, targets.min_steps_per_tau, x, work, means[:, :, j]
-        )
+        params[name] = _param_diagnostics(stores, j, steps, min_spt, x, work, means[:, :, j])
     del x, work
+    kinds = list(move_kinds) if move_kinds is not None else _move_kinds(stores)
+    band = acceptance_band(kinds, len(names))
     acceptance = []
     for s in stores:
-        rep = acceptance_report(s.accepted(0, steps))
+        rep = acceptance_report(s.accepted(0, steps), band)
         acceptance.append({"replica": s.replica, **rep.to_dict()})
         acceptance[-1]["messages"] = [f"replica {s.replica}: {m}" for m in rep.messages]
     try:
@@ -309,23 +386,13 @@ def diagnose(stores: Sequence[Store], targets: TargetsSpec | None = None) -> dic
             else None
         ),
     }
+    keys = ("rhat_nested", "rhat", "ess_bulk", "ess_tail", "steps_per_tau", "tau_growth", "tau")
     verdict = assess(
-        {
-            n: {
-                k: (np.nan if params[n][k] is None else params[n][k])
-                for k in ("rhat", "ess_bulk", "ess_tail", "steps_per_tau")
-            }
-            for n in names
-        },
-        Targets(
-            max_rhat=targets.max_rhat,
-            min_ess_bulk=targets.min_ess_bulk,
-            min_ess_tail=targets.min_ess_tail,
-            min_steps_per_tau=targets.min_steps_per_tau,
-            mess_eps=targets.relative_precision,
-        ),
+        {n: {k: (np.nan if params[n][k] is None else params[n][k]) for k in keys} for n in names},
+        targets.to_targets(),
         multivariate_ess=multivariate["ess"],
         n_params=len(names),
+        steps=steps,
     )
     bad_acceptance = [a for a in acceptance if a["messages"]]
     return {
@@ -337,8 +404,10 @@ def diagnose(stores: Sequence[Store], targets: TargetsSpec | None = None) -> dic
         "acceptance_warnings": [m for a in bad_acceptance for m in a["messages"]],
         "multivariate": multivariate,
         "verdict": verdict.to_dict(),
+        "more_steps": verdict.more_steps,
         "targets": targets.model_dump(mode="json"),
         "what_is_compared": WHAT_IS_COMPARED,
+        "what_each_check_compares": dict(WHAT_EACH_CHECK_COMPARES),
     }
 
 
@@ -346,11 +415,25 @@ def _num(value: Any, fmt: str) -> str:
     return "-" if value is None else format(value, fmt)
 
 
+def _questions(check: dict[str, Any]) -> str:
+    """``ok`` or the failed questions of one parameter, e.g. ``FAIL tau,precision``."""
+    failed = [q for q, ok in check.get("checks", {}).items() if not ok]
+    if check["ok"]:
+        return "ok"
+    return "FAIL " + ",".join(failed) if failed else "FAIL"
+
+
 def format_table(result: dict[str, Any], title: str = "") -> str:
-    """A plain-text table of the diagnostics with the verdict (for terminals and logs)."""
+    """A plain-text table of the diagnostics with the verdict (for terminals and logs).
+
+    Columns: nested R-hat (mixing), classic R-hat (reported), tau growth and steps per tau
+    (tau), bulk/tail ESS (precision); under the table the verdict, the steps still needed,
+    and one line per check saying what it compares.
+    """
     head = (
-        f"{'parameter':<16}{'mean':>12}{'sd':>11}{'MCSE':>10}{'R-hat':>8}"
-        f"{'ESS bulk':>10}{'ESS tail':>10}{'tau':>8}{'steps/tau':>10}  check"
+        f"{'parameter':<16}{'mean':>11}{'sd':>10}{'MCSE':>9}{'nR-hat':>8}{'R-hat':>7}"
+        f"{'ESS bulk':>9}{'ESS tail':>9}{'tau':>8}{'steps/tau':>10}{'growth':>7}"
+        f"{'steps needed':>13}  check"
     )
     lines = []
     if title:
@@ -363,16 +446,22 @@ def format_table(result: dict[str, Any], title: str = "") -> str:
     lines.append("-" * len(head))
     checks = result["verdict"]["params"]
     for name, d in result["params"].items():
-        ok = checks[name]["ok"]
+        c = checks[name]
         lines.append(
-            f"{name[:15]:<16}{_num(d['mean'], '12.5g')}{_num(d['sd'], '11.4g')}"
-            f"{_num(d['mcse_mean'], '10.3g')}{_num(d['rhat'], '8.3f')}"
-            f"{_num(d['ess_bulk'], '10.0f')}{_num(d['ess_tail'], '10.0f')}"
-            f"{_num(d['tau'], '8.1f')}{_num(d['steps_per_tau'], '10.1f')}  "
-            + ("ok" if ok else "FAIL")
+            f"{name[:15]:<16}{_num(d['mean'], '11.5g')}{_num(d['sd'], '10.4g')}"
+            f"{_num(d['mcse_mean'], '9.3g')}{_num(d.get('rhat_nested'), '8.4f')}"
+            f"{_num(d['rhat'], '7.3f')}"
+            f"{_num(d['ess_bulk'], '9.0f')}{_num(d['ess_tail'], '9.0f')}"
+            f"{_num(d['tau'], '8.1f')}{_num(d['steps_per_tau'], '10.1f')}"
+            f"{_num(d.get('tau_growth'), '7.2f')}{_num(c.get('steps_needed'), '13,d')}  "
+            + _questions(c)
         )
     lines.append("")
     lines.extend(result["verdict"]["lines"])
     lines.extend(f"warning: {m}" for m in result["acceptance_warnings"])
+    lines.append("What each check compares:")
+    lines.extend(
+        f"  {key}: {text}" for key, text in result.get("what_each_check_compares", {}).items()
+    )
     lines.append("Diagnostics can show non-convergence; they cannot prove convergence.")
     return "\n".join(lines)

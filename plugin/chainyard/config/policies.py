@@ -3,7 +3,7 @@ targets."""
 
 from __future__ import annotations
 
-from typing import Annotated, Literal
+from typing import Annotated, Any, Literal
 
 from pydantic import (
     Field,
@@ -15,13 +15,31 @@ from chainyard.config._base import _Strict
 
 
 class TargetsSpec(_Strict):
-    """Convergence targets the diagnose step checks (defaults: Vehtari et al. 2021)."""
+    """Convergence targets the verdict checks, in three questions (mixing, tau, precision).
 
-    max_rhat: float = Field(default=1.01, gt=1, description="Largest acceptable R-hat.")
-    min_ess_bulk: float = Field(default=400, gt=0, description="Smallest bulk ESS.")
-    min_ess_tail: float = Field(default=400, gt=0, description="Smallest tail ESS.")
-    min_steps_per_tau: float = Field(
+    Sources and the simulations behind the defaults: :mod:`chainyard.decisions.targets`.
+    """
+
+    max_nested_rhat: float | None = Field(
+        default=1.01,
+        gt=1,
+        description="Largest nested R-hat (replicas as superchains; Margossian et al. 2024).",
+    )
+    max_rhat: float | None = Field(
+        default=None,
+        gt=1,
+        description="If set, largest classic R-hat across the replicas' walker-mean traces "
+        "(always reported; not checked by default: it needs ~200 steps per tau on healthy runs).",
+    )
+    min_ess_bulk: float | None = Field(default=400, gt=0, description="Smallest bulk ESS.")
+    min_ess_tail: float | None = Field(default=400, gt=0, description="Smallest tail ESS.")
+    min_steps_per_tau: float | None = Field(
         default=50, gt=0, description="Smallest steps / autocorrelation time."
+    )
+    max_tau_growth: float | None = Field(
+        default=1.3,
+        gt=1,
+        description="Largest tau(whole run) / tau(first half): above it tau is still growing.",
     )
     relative_precision: float | None = Field(
         default=None,
@@ -29,6 +47,20 @@ class TargetsSpec(_Strict):
         lt=1,
         description="If set, multivariate ESS must reach the minimum for this precision.",
     )
+
+    def to_targets(self) -> Any:
+        """The :class:`chainyard.decisions.Targets` of these settings."""
+        from chainyard.decisions import Targets
+
+        return Targets(
+            max_nested_rhat=self.max_nested_rhat,
+            max_rhat=self.max_rhat,
+            min_ess_bulk=self.min_ess_bulk,
+            min_ess_tail=self.min_ess_tail,
+            min_steps_per_tau=self.min_steps_per_tau,
+            max_tau_growth=self.max_tau_growth,
+            mess_eps=self.relative_precision,
+        )
 
 
 # --------------------------------------------------------------------------- decisions

@@ -61,7 +61,11 @@ def geweke_z(
         raise ValueError(f"variance_from must be 'last' or 'separate'; got {variance_from!r}")
     n_a, n_b = int(first * y.size), int(last * y.size)
     if n_a < 4 or n_b < 4:
-        raise ValueError(f"series of {y.size} steps is too short for Geweke segments")
+        need = 4 * math.ceil(1.0 / min(first, last))
+        raise ValueError(
+            f"Geweke's test needs segments of at least 4 steps (about {need} steps with "
+            f"first={first:g}, last={last:g}); the series has {y.size} steps"
+        )
     a, b = y[:n_a], y[y.size - n_b :]
     s_b = _long_run_variance(b)
     s_a = s_b if variance_from == "last" else _long_run_variance(a)

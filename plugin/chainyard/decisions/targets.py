@@ -1,15 +1,31 @@
-"""Convergence targets and the pass/fail verdict.
+"""Convergence targets and the pass/fail verdict, in three separate questions.
 
-Defaults: ``max_rhat = 1.01`` and bulk/tail ESS >= 400 follow Vehtari,
-Gelman, Simpson, Carpenter and Buerkner (2021), Bayesian Analysis 16(2)
-(R-hat < 1.01; ESS > 100 per chain with 4 chains). ``min_steps_per_tau = 50``
-is the emcee tolerance (common practice for ensembles, no formal source).
-The optional multivariate-ESS target uses ``min_ess`` of Vats, Flegal and
-Jones (2019), Biometrika 106(2).
+1. **mixing** (did the replicas forget their start and agree?): nested R-hat
+   (Margossian et al. 2024, Bayesian Analysis; replicas as superchains, walkers as chains,
+   see :mod:`chainyard.diagnostics.nested`) at most ``max_nested_rhat`` (default 1.01, the
+   paper's ``delta = 0.01``, from memory; checked by simulation, see below). The classic
+   rank-normalised split R-hat on one walker-mean trace per replica (Vehtari et al. 2021,
+   Bayesian Analysis 16(2)) is always reported and gates only if ``max_rhat`` is set: its
+   within-chain variance is that of a walker *mean* (about sigma^2 / walkers), so on healthy
+   runs it exceeds 1.01 until about 200 steps per tau (measured: 89% of healthy 4 x 32 runs
+   failed at ~100 steps per tau).
+2. **tau** (can the autocorrelation estimate be trusted?): ``steps / tau >=
+   min_steps_per_tau`` (50: the emcee tolerance, common practice for ensembles, no formal
+   source) and the estimate has stopped growing: ``tau(whole) / tau(first half) <=
+   max_tau_growth``. The windowed estimator is biased low on short runs (Sokal 1997; the
+   emcee documentation advises running until the estimate stops changing), so a run whose
+   tau keeps growing as it gets longer has not yet seen its slowest behaviour.
+3. **precision** (are the numbers precise enough?): bulk and tail ESS (Vehtari et al. 2021;
+   400 = 100 per chain for 4 chains) and, if ``relative_precision`` is set, the multivariate
+   ESS against ``min_ess`` of Vats, Flegal and Jones (2019), Biometrika 106(2).
 
-A target set to ``None`` is not checked. A checked diagnostic that is
-missing from the input, or is NaN, counts as a failure: the run cannot be
-certified on a number nobody computed.
+A target set to ``None`` is not checked. A checked diagnostic that is missing from the
+input, or is NaN, counts as a failure: the run cannot be certified on a number nobody
+computed.
+
+When precision or tau fails, :func:`steps_needed` estimates how many steps would meet the
+targets, assuming ESS grows in proportion to the number of steps and tau stays at its current
+estimate (both hold for a stationary chain; a growing tau makes the estimate a lower bound).
 """
 
 from __future__ import annotations
@@ -22,27 +38,55 @@ from typing import Any
 from ..diagnostics._jsonable import to_builtin
 from ..diagnostics.multivariate import min_ess
 
+#: The three questions, in the order they are reported.
+QUESTIONS = ("mixing", "tau", "precision")
+
+#: What each check compares (one line each, printed under the table and in the records).
+WHAT_EACH_CHECK_COMPARES = {
+    "rhat_nested": "mixing: nested R-hat, spread of the replica means vs the posterior sd "
+    "(replicas as superchains, walkers as chains; Margossian et al. 2024)",
+    "rhat": "mixing (reported; gates only if max_rhat is set): split R-hat of one walker-mean "
+    "trace per replica (Vehtari et al. 2021)",
+    "steps_per_tau": "tau: steps after burn-in / largest per-replica tau (walkers averaged; "
+    "Foreman-Mackey et al. 2013)",
+    "tau_growth": "tau: tau of the whole run / tau of its first half (pooled over replicas); "
+    "above the limit tau is still growing",
+    "ess_bulk": "precision: bulk ESS, every walker of every replica as a chain",
+    "ess_tail": "precision: tail ESS (5% and 95% quantiles), every walker as a chain",
+    "mess": "precision: multivariate ESS of the replicas' walker-mean traces vs "
+    "min_ess (Vats, Flegal and Jones 2019)",
+}
+
 
 @dataclass(frozen=True)
 class Targets:
-    """Thresholds a run must meet. ``None`` disables a check."""
+    """Thresholds a run must meet. ``None`` disables a check (module docstring: sources)."""
 
-    max_rhat: float | None = 1.01
+    max_nested_rhat: float | None = 1.01
+    max_rhat: float | None = None
     min_ess_bulk: float | None = 400.0
     min_ess_tail: float | None = 400.0
     min_steps_per_tau: float | None = 50.0
+    max_tau_growth: float | None = 1.3
     mess_eps: float | None = None
     mess_alpha: float = 0.05
 
 
 @dataclass(frozen=True)
 class ParamCheck:
-    """Outcome for one parameter: ``failures`` lists each failing number."""
+    """Outcome for one parameter: ``failures`` lists each failing number.
+
+    ``checks`` maps each question (:data:`QUESTIONS`) to whether it passed;
+    ``steps_needed`` is the estimated total steps (after burn-in) meeting the precision and
+    tau targets, ``None`` when they are met or no estimate is possible.
+    """
 
     name: str
     ok: bool
     failures: tuple[str, ...]
     values: dict[str, float] = field(hash=False)
+    checks: dict[str, bool] = field(hash=False, default_factory=dict)
+    steps_needed: int | None = None
 
 
 @dataclass(frozen=True)
@@ -53,13 +97,25 @@ class Verdict:
     params: dict[str, ParamCheck] = field(hash=False)
     multivariate: dict[str, Any] | None = field(hash=False)
     lines: tuple[str, ...]
+    checks: dict[str, bool] = field(hash=False, default_factory=dict)
+    steps: int | None = None
+    more_steps: int | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """Return a JSON-serialisable dict."""
         return {
             "ok": self.ok,
+            "checks": dict(self.checks),
+            "steps": self.steps,
+            "more_steps": self.more_steps,
             "params": {
-                name: {"ok": c.ok, "failures": list(c.failures), "values": to_builtin(c.values)}
+                name: {
+                    "ok": c.ok,
+                    "checks": dict(c.checks),
+                    "failures": list(c.failures),
+                    "values": to_builtin(c.values),
+                    "steps_needed": c.steps_needed,
+                }
                 for name, c in self.params.items()
             },
             "multivariate": to_builtin(self.multivariate),
@@ -75,38 +131,110 @@ def _fmt(value: float) -> str:
     return f"{value:.3g}" if abs(value) >= 1.1 else f"{value:.4f}"
 
 
+def _fmt_key(key: str, value: float) -> str:
+    """R-hats with 4 decimals, the tau growth ratio with 2, other numbers by :func:`_fmt`."""
+    if math.isfinite(value) and key.startswith("rhat"):
+        return f"{value:.4f}"
+    if math.isfinite(value) and key == "tau_growth":
+        return f"{value:.2f}"
+    return _fmt(value)
+
+
 def _steps_per_tau(diag: Mapping[str, float]) -> float | None:
-    if "steps_per_tau" in diag:
+    if "steps_per_tau" in diag and diag["steps_per_tau"] is not None:
         return float(diag["steps_per_tau"])
     if "tau" in diag and "draws" in diag:
         return float(diag["draws"]) / float(diag["tau"])
     return None
 
 
-def _check_param(name: str, diag: Mapping[str, float], targets: Targets) -> ParamCheck:
-    failures: list[str] = []
-    values: dict[str, float] = {}
-    checks: list[tuple[str, float | None, float | None, bool]] = [
-        ("rhat", None if "rhat" not in diag else float(diag["rhat"]), targets.max_rhat, True),
-        ("ess_bulk", diag.get("ess_bulk"), targets.min_ess_bulk, False),
-        ("ess_tail", diag.get("ess_tail"), targets.min_ess_tail, False),
-        ("steps_per_tau", _steps_per_tau(diag), targets.min_steps_per_tau, False),
+def _get(diag: Mapping[str, Any], key: str) -> float | None:
+    value = diag.get(key)
+    return None if value is None else float(value)
+
+
+def _checks(diag: Mapping[str, Any], targets: Targets) -> list[tuple[str, str, Any, Any, bool]]:
+    """(question, key, value, limit, is_max) for every check of one parameter."""
+    return [
+        ("mixing", "rhat_nested", _get(diag, "rhat_nested"), targets.max_nested_rhat, True),
+        ("mixing", "rhat", _get(diag, "rhat"), targets.max_rhat, True),
+        ("tau", "steps_per_tau", _steps_per_tau(diag), targets.min_steps_per_tau, False),
+        ("tau", "tau_growth", _get(diag, "tau_growth"), targets.max_tau_growth, True),
+        ("precision", "ess_bulk", _get(diag, "ess_bulk"), targets.min_ess_bulk, False),
+        ("precision", "ess_tail", _get(diag, "ess_tail"), targets.min_ess_tail, False),
     ]
-    for key, value, limit, is_max in checks:
+
+
+def steps_needed(
+    diag: Mapping[str, Any], targets: Targets, steps: int, failed: set[str]
+) -> int | None:
+    """Estimated total steps (after burn-in) that would meet the failed precision/tau targets.
+
+    Assumptions (stated in the report): ESS grows in proportion to the steps (a stationary
+    chain: ESS = draws / tau); tau stays at its current estimate, so ``min_steps_per_tau x
+    tau`` steps meet the 50-tau rule; a tau that is still growing needs at least twice the
+    steps before the growth check can pass (its next estimate compares the current run with
+    one twice as long), and the estimate is then a lower bound.
+
+    Parameters
+    ----------
+    diag : mapping
+        ``ess_bulk``, ``ess_tail``, ``tau`` (steps) as available.
+    targets : Targets
+    steps : int
+        Steps per walker after burn-in the diagnostics were computed on.
+    failed : set of str
+        Keys of the failed checks.
+
+    Returns
+    -------
+    int or None
+        ``None`` if no failed check is a precision or tau check or none can be estimated.
+    """
+    need: list[float] = []
+    for key, limit in (("ess_bulk", targets.min_ess_bulk), ("ess_tail", targets.min_ess_tail)):
+        value = _get(diag, key)
+        if key in failed and limit is not None and value is not None and value > 0:
+            need.append(steps * limit / value)
+    tau = _get(diag, "tau")
+    if "steps_per_tau" in failed and targets.min_steps_per_tau and tau and math.isfinite(tau):
+        need.append(targets.min_steps_per_tau * tau)
+    if "tau_growth" in failed:
+        need.append(2.0 * steps)
+    need = [n for n in need if math.isfinite(n)]
+    if not need:
+        return None
+    return max(math.ceil(max(need)), steps + 1)
+
+
+def _check_param(
+    name: str, diag: Mapping[str, Any], targets: Targets, steps: int | None
+) -> ParamCheck:
+    failures: list[str] = []
+    failed: set[str] = set()
+    values: dict[str, float] = {}
+    checks = dict.fromkeys(QUESTIONS, True)
+    for question, key, value, limit, is_max in _checks(diag, targets):
         if limit is None:
             continue
         if value is None:
             failures.append(f"{key} missing")
-            continue
-        value = float(value)
-        values[key] = value
-        if math.isnan(value):
-            failures.append(f"{key} is nan")
-        elif is_max and not value <= limit:
-            failures.append(f"{key} {_fmt(value)} > {limit:g}")
-        elif not is_max and not value >= limit:
-            failures.append(f"{key} {_fmt(value)} < {limit:g}")
-    return ParamCheck(name, not failures, tuple(failures), values)
+        else:
+            values[key] = value
+            if math.isnan(value):
+                failures.append(f"{key} is nan")
+            elif is_max and not value <= limit:
+                failures.append(f"{key} {_fmt_key(key, value)} > {limit:g}")
+            elif not is_max and not value >= limit:
+                failures.append(f"{key} {_fmt_key(key, value)} < {limit:g}")
+            else:
+                continue
+        failed.add(key)
+        checks[question] = False
+    needed = None
+    if steps is not None and not (checks["precision"] and checks["tau"]):
+        needed = steps_needed(diag, targets, steps, failed)
+    return ParamCheck(name, not failures, tuple(failures), values, checks, needed)
 
 
 def _check_mess(
@@ -128,29 +256,50 @@ def _check_mess(
     return {"ok": ok, "value": value, "required": required, "p": n_params, "line": line}
 
 
+def _advice(checks: dict[str, bool], more_steps: int | None, steps: int | None) -> list[str]:
+    lines = []
+    if not checks["tau"]:
+        lines.append("tau: still growing or too few steps per tau: run longer.")
+    if more_steps is not None and steps is not None:
+        lines.append(
+            f"Estimated steps to meet the precision/tau targets: about {more_steps:,} more "
+            f"({steps + more_steps:,} after burn-in; assumes ESS grows in proportion to the "
+            "steps and tau stays at its estimate; a lower bound while tau is growing)."
+        )
+    if not checks["mixing"]:
+        lines.append(
+            "mixing: the replicas disagree (different starts not forgotten, modes held in "
+            "different shares, or stuck walkers); more steps may not help: look at the traces."
+        )
+    return lines
+
+
 def assess(
     diagnostics_per_param: Mapping[str, Mapping[str, float]],
     targets: Targets | None = None,
     *,
     multivariate_ess: float | None = None,
     n_params: int | None = None,
+    steps: int | None = None,
 ) -> Verdict:
-    """Check per-parameter diagnostics against targets.
+    """Check per-parameter diagnostics against targets, question by question.
 
-    Defaults follow Vehtari et al. (2021), Bayesian Analysis 16(2); the mESS
-    rule follows Vats, Flegal & Jones (2019), Biometrika 106(2).
+    Sources of the checks and defaults: module docstring.
 
     Parameters
     ----------
     diagnostics_per_param : mapping of str to mapping
-        ``{name: {"rhat": .., "ess_bulk": .., "ess_tail": .., "steps_per_tau": ..}}``;
-        ``steps_per_tau`` may instead be given as ``tau`` and ``draws``.
+        ``{name: {"rhat_nested": .., "rhat": .., "ess_bulk": .., "ess_tail": ..,
+        "steps_per_tau": .., "tau_growth": .., "tau": ..}}``; ``steps_per_tau`` may instead
+        be given as ``tau`` and ``draws``.
     targets : Targets, optional
         Defaults to ``Targets()``.
     multivariate_ess : float, optional
         mESS of the joint chain, checked if ``targets.mess_eps`` is set.
     n_params : int, optional
         Dimension for ``min_ess``; defaults to the number of parameters given.
+    steps : int, optional
+        Steps per walker after burn-in; enables the estimate of the steps still needed.
 
     Returns
     -------
@@ -160,14 +309,22 @@ def assess(
     if not diagnostics_per_param:
         raise ValueError("diagnostics_per_param is empty")
     params = {
-        str(name): _check_param(str(name), diag, targets)
+        str(name): _check_param(str(name), diag, targets, steps)
         for name, diag in diagnostics_per_param.items()
     }
     mess = _check_mess(multivariate_ess, n_params or len(params), targets)
+    checks = {q: all(c.checks[q] for c in params.values()) for q in QUESTIONS}
+    needed = [c.steps_needed for c in params.values() if c.steps_needed is not None]
+    if mess is not None and not mess["ok"]:
+        checks["precision"] = False
+        value = mess["value"]
+        if steps is not None and value is not None and math.isfinite(value) and value > 0:
+            needed.append(math.ceil(steps * mess["required"] / value))
+    more_steps = max(needed) - steps if needed and steps is not None else None
     lines: list[str] = []
     for check in params.values():
         if check.ok:
-            shown = ", ".join(f"{k} {_fmt(v)}" for k, v in check.values.items())
+            shown = ", ".join(f"{k} {_fmt_key(k, v)}" for k, v in check.values.items())
             lines.append(f"{check.name}: ok ({shown})" if shown else f"{check.name}: ok")
         else:
             lines.append(f"{check.name}: FAIL " + "; ".join(check.failures))
@@ -178,5 +335,7 @@ def assess(
     summary = f"Overall: {'ok' if ok else 'FAIL'} ({n_fail} of {len(params)} parameters failed"
     if mess is not None and not mess["ok"]:
         summary += "; multivariate ESS below target"
+    summary += "; " + ", ".join(f"{q} {'ok' if checks[q] else 'FAIL'}" for q in QUESTIONS)
     lines.insert(0, summary + ")")
-    return Verdict(ok, params, mess, tuple(lines))
+    lines.extend(_advice(checks, more_steps, steps))
+    return Verdict(ok, params, mess, tuple(lines), checks, steps, more_steps)

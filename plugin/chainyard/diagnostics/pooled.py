@@ -138,6 +138,24 @@ def rank_normalise_split(x: FloatArray, work: FloatArray) -> FloatArray:
     return x
 
 
+def _squared_deviation(mean: float) -> Any:
+    def sq(block: FloatArray) -> FloatArray:
+        out = block - mean
+        return np.square(out, out=out)
+
+    return sq
+
+
+def _refuse_non_finite(flat: FloatArray) -> None:
+    """Raise ``ValueError`` if ``flat`` holds NaN or infinite values (no full-size temporary)."""
+    if math.isfinite(float(flat.sum())):
+        return
+    step = 1 << 18
+    for a in range(0, flat.size, step):
+        if not np.isfinite(flat[a : a + step]).all():
+            raise ValueError("x contains NaN or infinite values; remove or impute them first")
+
+
 def pooled_summary(
     x: FloatArray, work: FloatArray | None = None, *, overwrite: bool = False
 ) -> dict[str, Any]:
@@ -161,8 +179,14 @@ def pooled_summary(
     -------
     dict
         ``mean``, ``sd``, ``q05``, ``q50``, ``q95``, ``ess_bulk``, ``ess_tail``,
-        ``ess_q05``, ``ess_q95``, ``ess_mean``, ``mcse_mean``, ``mcse_q05``, ``mcse_q95``
-        (floats; ESS / MCSE are ``nan`` for constant draws).
+        ``ess_q05``, ``ess_q95``, ``ess_mean``, ``ess_sd``, ``mcse_mean``, ``mcse_sd``,
+        ``mcse_q05``, ``mcse_q95`` (floats; ESS / MCSE are ``nan`` for constant draws).
+
+    Raises
+    ------
+    ValueError
+        If ``x`` is not (chains, >= 4 draws) or holds NaN or infinite values (like the
+        single-value functions).
     """
     if not overwrite or not (x.flags.c_contiguous and x.dtype == np.float64):
         x = np.array(x, dtype=float, order="C", copy=True)
@@ -172,15 +196,24 @@ def pooled_summary(
     if work is None:
         work = np.empty_like(flat)
     work = work[: flat.size]
+    _refuse_non_finite(flat)
     mean, sd = moments(flat, work)
+    # work holds the squared deviations: the moments of the delta-method MCSE of sd
+    m2 = float(work.sum() / flat.size)
+    m4 = float(np.dot(work, work) / flat.size)
     q05, q50, q95 = quantiles(flat, work)
     out: dict[str, Any] = {"mean": mean, "sd": sd, "q05": q05, "q50": q50, "q95": q95}
     nan = float("nan")
     if is_constant(x):
-        keys = ("ess_bulk", "ess_tail", "ess_q05", "ess_q95", "ess_mean")
+        keys = ("ess_bulk", "ess_tail", "ess_q05", "ess_q95", "ess_mean", "ess_sd")
         out.update(dict.fromkeys(keys, nan))
-        out.update(mcse_mean=nan, mcse_q05=nan, mcse_q95=nan)
+        out.update(mcse_mean=nan, mcse_sd=nan, mcse_q05=nan, mcse_q95=nan)
         return out
+    # MCSE of sd (delta method, as mcse_sd): ESS of the squared deviations, streamed
+    ess_sd = split_ess(x, _squared_deviation(mean))
+    out["ess_sd"] = ess_sd
+    var_of_var = (m4 - m2 * m2) / ess_sd if ess_sd > 0 else nan
+    out["mcse_sd"] = float(math.sqrt(var_of_var / m2 / 4.0)) if var_of_var >= 0 else nan
     # ESS of the mean and of the tail indicators, streamed over blocks of split chains.
     # (np.quantile's value at one probability does not depend on the others asked for.)
     ess_q = {q: split_ess(x, indicator(v)) for q, v in zip(TAILS, (q05, q95), strict=True)}

@@ -100,30 +100,61 @@ def trace_plot(stores: Sequence[Store], cut: int, path: str | Path) -> None:
     _save(fig, path, stores)
 
 
-def tau_history_plot(stores: Sequence[Store], path: str | Path) -> None:
-    """Autocorrelation time estimated on growing prefixes, against the N/50 line."""
+def tau_history_plot(
+    stores: Sequence[Store],
+    path: str | Path,
+    *,
+    cut: int = 0,
+    diagnostics: dict[str, Any] | None = None,
+) -> None:
+    """Autocorrelation time on growing prefixes of the steps the verdict uses, per replica.
+
+    Give the stores the verdict was computed on (after burn-in and thinning), or the raw
+    stores with ``cut`` (steps before it are left out). Each replica has its own colour and
+    legend entry; the dotted line is ``steps / 50`` (the 50-tau rule: trust tau where the
+    curve is flat and below it); with ``diagnostics`` the verdict's tau (largest over
+    replicas) is drawn as a dashed line with its growth ratio (whole run / first half).
+    """
     names = stores[0].param_names
     ncol = min(3, len(names))
     nrow = -(-len(names) // ncol)
     fig, axes = plt.subplots(nrow, ncol, figsize=(3.3 * ncol, 2.6 * nrow), squeeze=False)
+    steps = min(s.steps_done for s in stores)
+    params = (diagnostics or {}).get("params", {})
     for j, name in enumerate(names):
         ax = axes[j // ncol, j % ncol]
         longest = 0
         for i, s in enumerate(stores):
-            lengths, taus = integrated_time_history(s.column(j).T, n_points=12)
-            ax.loglog(lengths, taus, "o-", color=_colour(i), markersize=3, linewidth=1)
+            if steps - cut < 4:
+                break
+            lengths, taus = integrated_time_history(s.column(j, cut, steps).T, n_points=12)
+            ax.loglog(
+                lengths,
+                taus,
+                "o-",
+                color=_colour(i),
+                markersize=3,
+                linewidth=1,
+                label=f"replica {s.replica}",
+            )
             longest = max(longest, int(lengths[-1]))
         ref = np.geomspace(10, max(longest, 20), 20)
         ax.loglog(ref, ref / 50, color=INK, linestyle=":", linewidth=1, label="steps / 50")
+        used = params.get(name, {})
+        if used.get("tau"):
+            growth = used.get("tau_growth")
+            label = f"verdict tau {used['tau']:.3g}" + (f" (growth {growth:.2f})" if growth else "")
+            ax.axhline(used["tau"], color=CUT_COLOUR, linestyle="--", linewidth=0.9, label=label)
         ax.set_title(axis_label(stores[0], name, short=True), fontsize=8)
-        ax.set_xlabel("steps used", fontsize=8)
+        ax.set_xlabel("steps used (after burn-in)", fontsize=8)
         ax.set_ylabel("tau [steps]", fontsize=8)
         _style(ax)
-    axes[0, 0].legend(fontsize=7, frameon=False)
+        ax.legend(fontsize=6, frameon=False)
     for k in range(len(names), nrow * ncol):
         axes[k // ncol, k % ncol].set_visible(False)
     fig.suptitle(
-        "Autocorrelation time vs steps: trust tau where it is flat and below the dotted line",
+        "Autocorrelation time vs steps after burn-in, per replica: trust tau where it is flat "
+        "and below the dotted line",
         fontsize=9,
         y=1.03,
     )
@@ -167,9 +198,16 @@ def pairs_plot(
 def acceptance_plot(
     stores: Sequence[Store], path: str | Path, diagnostics: dict[str, Any] | None = None
 ) -> None:
-    """Acceptance fraction of every walker per replica, with the 0.2-0.5 band shaded."""
+    """Acceptance fraction of every walker per replica, with the informative band shaded.
+
+    The band is the one the diagnostics used for the run's moves
+    (:func:`chainyard.diagnostics.acceptance.acceptance_band`), if ``diagnostics`` is given.
+    """
     fig, ax = plt.subplots(figsize=(9, 2.8))
-    ax.axhspan(0.2, 0.5, color="#e8f1e4", label="0.2-0.5 (common practice)")
+    bands = [a.get("band") for a in (diagnostics or {}).get("acceptance", []) if a.get("band")]
+    if bands:
+        lo, hi = bands[0]
+        ax.axhspan(lo, hi, color="#e8f1e4", label=f"{lo:g}-{hi:g} (no warning)")
     stuck = {
         a["replica"]: set(a.get("stuck_walkers", []))
         for a in (diagnostics or {}).get("acceptance", [])
