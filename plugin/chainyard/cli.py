@@ -64,12 +64,10 @@ def _cmd_sample(args: argparse.Namespace) -> int:
         paths, indices = [Path(args.out)], [args.replica]
     store, met = sample_until_targets(config, paths, indices, **kwargs)
     if not met:
-        print(
-            f"chainyard: targets not met after {store.steps_done:,} steps (budget spent); "
-            f"see {paths[0]}/target_checks.json",
-            file=sys.stderr,
+        raise TargetsNotMetError(
+            f"targets not met after {store.steps_done:,} steps (budget spent); "
+            f"see {paths[0]}/target_checks.json"
         )
-        return 1
     return 0
 
 
