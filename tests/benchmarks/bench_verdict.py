@@ -273,6 +273,7 @@ def main() -> None:
                             "kept": r.steps_kept,
                             "warnings": r.warnings[:3],
                             "lines": r.lines[:12],
+                            "stats": r.stats,
                         }
                         for s, r in zip(c.seeds, c.runs, strict=True)
                     ],

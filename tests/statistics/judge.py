@@ -95,15 +95,43 @@ class Judgement:
     bias_detail: str
     covered: list[bool]
     lines: list[str] = field(default_factory=list)
-    params: dict[str, Any] = field(default_factory=dict)
+    stats: dict[str, float | None] = field(default_factory=dict)
+
+
+#: per-run extremes over parameters recorded for the study: (key, max or min)
+STATS = (
+    ("rhat_nested", max),
+    ("rhat", max),
+    ("tau_growth", max),
+    ("steps_per_tau", min),
+    ("ess_bulk", min),
+    ("ess_tail", min),
+)
+
+
+def _stats(result: dict[str, Any]) -> dict[str, float | None]:
+    out: dict[str, float | None] = {}
+    for key, pick in STATS:
+        values = [p.get(key) for p in result["params"].values()]
+        values = [float(v) for v in values if v is not None]
+        out[key] = pick(values) if values else None
+    more = result.get("more_steps")
+    out["more_steps"] = None if more is None else float(more)
+    return out
 
 
 def _diagnose(
-    draws: FloatArray, accepted: npt.NDArray[np.bool_], names: tuple[str, ...]
+    draws: FloatArray,
+    accepted: npt.NDArray[np.bool_],
+    names: tuple[str, ...],
+    move_kinds: tuple[str, ...] | None,
 ) -> dict[str, Any]:
     """``diagnose`` on arrays after burn-in, default targets (``diagnose_arrays``)."""
     mod = importlib.import_module("chainyard.analysis.diagnose")
-    return mod.diagnose_arrays(draws, TargetsSpec(), accepted=accepted, names=list(names))
+    kwargs: dict[str, Any] = {"accepted": accepted, "names": list(names)}
+    if move_kinds is not None:
+        kwargs["move_kinds"] = list(move_kinds)
+    return mod.diagnose_arrays(draws, TargetsSpec(), **kwargs)
 
 
 def judge(
@@ -111,24 +139,25 @@ def judge(
     draws: FloatArray,
     log_prob: FloatArray,
     accepted: npt.NDArray[np.bool_],
+    move_kinds: tuple[str, ...] | None = None,
 ) -> Judgement:
     """Judge one run: ``draws`` (replicas, steps, walkers, d), the others (replicas, steps,
-    walkers)."""
+    walkers); ``move_kinds`` as the run config names its moves (None: the stretch move)."""
     names = target.names
     full = [
         ArrayReplica(draws[k], log_prob[k], accepted[k], k, names) for k in range(draws.shape[0])
     ]
     try:
         cut = decide_burn_in(full, DefaultBurnIn(policy="default")).steps_discarded  # type: ignore[arg-type]
-        result = _diagnose(draws[:, cut:], accepted[:, cut:], names)
+        result = _diagnose(draws[:, cut:], accepted[:, cut:], names, move_kinds)
     except (ValueError, ChainyardError) as exc:  # too short for a method: the run is not ok
         return Judgement(False, {"refused"}, [], 0, 0, False, "", [], [f"refused: {exc}"])
     verdict = result["verdict"]
     checks: set[str] = set()
     for p in verdict["params"].values():
         checks.update(check_name(f) for f in p["failures"])
-    run_level = verdict.get("checks")  # {question: passed} in a newer verdict
-    if isinstance(run_level, dict):
+    run_level = verdict.get("checks")  # {question: passed}: named only if no failure line is
+    if isinstance(run_level, dict) and not checks:
         checks.update(f"run:{k}" for k, v in run_level.items() if v is False)
     mv = verdict.get("multivariate")
     if mv and not mv.get("ok", True):
@@ -165,5 +194,5 @@ def judge(
         bias_detail="; ".join(detail),
         covered=covered,
         lines=list(verdict.get("lines", [])),
-        params=result["params"],
+        stats=_stats(result),
     )

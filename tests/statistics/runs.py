@@ -53,6 +53,7 @@ class Family:
     target: Target
     healthy: bool
     what: str
+    move_kinds: tuple[str, ...] | None = None
 
 
 FAMILIES = {
@@ -89,6 +90,7 @@ FAMILIES = {
         False,
         f"correlated Gaussian from the target, Gaussian random-walk Metropolis per walker "
         f"with proposal sd {SMALL_STEP} x marginal sd",
+        ("gaussian",),
     ),
     "far_start": Family(
         "far_start",

@@ -112,7 +112,15 @@ def run_cell(
         runs = simulate(family, steps, chunk)
         for k, s in enumerate(chunk):
             cell.seeds.append(int(s))
-            cell.runs.append(judge(fam.target, runs.draws[k], runs.log_prob[k], runs.accepted[k]))
+            cell.runs.append(
+                judge(
+                    fam.target,
+                    runs.draws[k],
+                    runs.log_prob[k],
+                    runs.accepted[k],
+                    fam.move_kinds,
+                )
+            )
         del runs
         if progress:
             progress(f"{family} {cell.label}: {cell.n}/{len(seeds)} runs, {cell.failed} FAIL")
@@ -130,8 +138,21 @@ def describe(cell: Cell) -> str:
         f"{cell.failed / max(cell.n, 1):.0%} [{lo:.0%}, {hi:.0%}]  biased {cell.biased}"
         f"  biased-but-ok {len(cell.biased_ok)}  warned {cell.warned()}"
         f"  cover90 {cov}/{tot}  checks: {checks or '-'}  ({cell.seconds:.0f} s)"
+        f"\n    median/95%: rhat_nested {quantiles(cell, 'rhat_nested')}, rhat "
+        f"{quantiles(cell, 'rhat')}, tau_growth {quantiles(cell, 'tau_growth')}; "
+        f"median/5%: steps_per_tau {quantiles(cell, 'steps_per_tau', (0.5, 0.05))}, ess_bulk "
+        f"{quantiles(cell, 'ess_bulk', (0.5, 0.05))}"
     )
     return text
+
+
+def quantiles(cell: Cell, key: str, qs: tuple[float, ...] = (0.5, 0.95)) -> str:
+    """Quantiles over runs of one per-run statistic (see ``judge.STATS``), as text."""
+    v = [r.stats.get(key) for r in cell.runs]
+    v = [x for x in v if x is not None]
+    if not v:
+        return "-"
+    return "/".join(f"{np.quantile(v, q):.4g}" for q in qs)
 
 
 def mean_steps_kept(cell: Cell) -> float:
