@@ -315,9 +315,10 @@ def check_resume_base(store: Store) -> None:
     Checked: the commit record's integrity block against itself, the commit record, the
     ``zarr.json`` attributes and every array's metadata (the seal); the chunk of every
     per-step array holding the last committed row (stored bytes against the recorded
-    checksum; for a partial chunk, the decoded committed rows when the bytes differ); and the
-    start-state arrays. Only the last chunk of each array is read, so the cost does not grow
-    with the store's length (the rest is for ``chainyard verify``).
+    checksum; for a partial chunk, the decoded committed rows when the bytes differ); that
+    every other committed chunk file exists (one ``stat`` each); and the start-state arrays.
+    Only the last chunk of each array is read, so the cost barely grows with the store's
+    length; a changed byte in an earlier chunk is for ``chainyard verify`` to find.
 
     Raises
     ------
@@ -331,5 +332,10 @@ def check_resume_base(store: Store) -> None:
     _check_seal(store, record, block)
     _check_start(store, block)
     if store.steps_done > 0:
+        from chainyard.store.reading import check_present
+
         for name in store.array_names():
+            # every committed chunk file exists (one stat each) ...
+            check_present(store, f"draws/{name}", 0, store.steps_done)
+            # ... and the last one, which the resume rewrites, holds the recorded bytes
             _check_last_chunk(store, name, block)

@@ -54,6 +54,8 @@ from chainyard.store.layout import (
     START,
     codec_kwargs,
 )
+from chainyard.store.reading import read
+from chainyard.store.validate import ArrayInfo, check_commit, one_line, read_json, validate_store
 
 __all__ = ["Store", "atomic_write_json", "chunk_checksum"]
 
@@ -95,13 +97,18 @@ class Store:
         self._encoder_cache: dict[str, ChunkEncoder | None] | None = None
         self._chunk_meta: dict[str, dict[str, Any]] = {}
         self._chunk_steps: int | None = None
+        self._info: dict[str, ArrayInfo] = {}  # validated metadata by node (after open)
+        self._nodes: dict[str, zarr.Array] = {}  # opened arrays by node (after open)
+        self._keys: set[str] | None = None  # member names of a packed store
         attrs = dict(group.attrs).get(ATTRS_KEY)
         if not isinstance(attrs, dict) or attrs.get("format") != FORMAT_NAME:
-            raise StoreError(f"{path}: not a chainyard store (no '{ATTRS_KEY}' attributes)")
+            raise StoreError(
+                f"{path}/zarr.json: no '{ATTRS_KEY}' attributes; not a chainyard store"
+            )
         if attrs.get("format_version") != FORMAT_VERSION:
             raise StoreError(
-                f"{path}: store format version {attrs.get('format_version')} is not supported "
-                f"(this chainyard reads version {FORMAT_VERSION})"
+                f"{path}/zarr.json: store format version {attrs.get('format_version')} is not "
+                f"supported (this chainyard reads version {FORMAT_VERSION})"
             )
         self._attrs: dict[str, Any] = attrs
 
@@ -110,10 +117,15 @@ class Store:
     def open(cls, path: str | Path, *, writable: bool = False) -> Store:
         """Open an existing store (read-only unless ``writable``).
 
+        Every metadata file is checked before it is used (see :mod:`chainyard.store.validate`):
+        sizes against :mod:`chainyard.limits`, then types, the array shapes against the
+        attributes, data types and chunk shapes.
+
         Raises
         ------
         StoreError
-            If the path is missing or is not a readable chainyard store.
+            If the path is missing or is not a readable, undamaged chainyard store (one line
+            naming the file and the field).
         """
         path = Path(path)
         if not path.exists():
@@ -122,19 +134,33 @@ class Store:
             from chainyard.store.packed import open_packed
 
             commit, group, archive = open_packed(path, writable=writable)
-            return cls(path, group, commit, archive)
-        commit_path = path / COMMIT_FILE
+            check_commit(commit, f"{path}/{COMMIT_FILE}")
+            store = cls(path, group, commit, archive)
+        else:
+            if not (path / COMMIT_FILE).is_file():
+                raise StoreError(f"{path}: not a chainyard store (no {COMMIT_FILE})")
+            commit = read_json(path / COMMIT_FILE)
+            check_commit(commit, f"{path}/{COMMIT_FILE}")
+            if not (path / "zarr.json").is_file():
+                raise StoreError(
+                    f"{path}/zarr.json: missing; not a chainyard store (or a damaged one)"
+                )
+            root = read_json(path / "zarr.json")
+            if not isinstance(root, dict) or not isinstance(root.get("attributes"), dict):
+                raise StoreError(f"{path}/zarr.json: no attributes; not a chainyard store")
+            try:
+                group = zarr.open_group(path, mode="r+" if writable else "r")
+            except Exception as exc:
+                raise StoreError(
+                    f"{path}/zarr.json: cannot open as a zarr group ({one_line(exc)})"
+                ) from None
+            store = cls(path, group, commit)
         try:
-            commit = json.loads(commit_path.read_text())
-        except FileNotFoundError:
-            raise StoreError(f"{path}: not a chainyard store (no {COMMIT_FILE})") from None
-        except (OSError, ValueError) as exc:
-            raise StoreError(f"{path}/{COMMIT_FILE}: unreadable commit record ({exc})") from None
-        try:
-            group = zarr.open_group(path, mode="r+" if writable else "r")
-        except Exception as exc:
-            raise StoreError(f"{path}: cannot open as a zarr group ({exc})") from None
-        return cls(path, group, commit)
+            validate_store(store)
+        except BaseException:
+            store.close()
+            raise
+        return store
 
     def close(self) -> None:
         """Release the zip file of a packed store (nothing to do for a directory)."""
@@ -202,6 +228,11 @@ class Store:
 
     # ------------------------------------------------------------------ metadata
     @property
+    def archive(self) -> zipfile.ZipFile | None:
+        """The open zip file of a packed store (read-only use); None for a directory."""
+        return self._archive
+
+    @property
     def attrs(self) -> dict[str, Any]:
         """The store's chainyard attributes (a copy)."""
         return json.loads(json.dumps(self._attrs))
@@ -257,14 +288,23 @@ class Store:
         return parse_config(self._attrs["config"], base_dir=base, source=f"{self.path} (stored)")
 
     # ------------------------------------------------------------------ reading
-    def _array(self, name: str) -> zarr.Array:
-        node = self._group[f"{DRAWS}/{name}"]
-        assert isinstance(node, zarr.Array)
-        return node
+    def _node(self, node: str) -> zarr.Array:
+        """The opened zarr array ``node`` (e.g. ``draws/position``)."""
+        arr = self._nodes.get(node)
+        if arr is None:
+            found = self._group[node]
+            assert isinstance(found, zarr.Array)
+            arr = self._nodes[node] = found
+        return arr
 
-    def _rows(self, name: str, start: int, stop: int | None) -> NDArray[Any]:
+    def _array(self, name: str) -> zarr.Array:
+        return self._node(f"{DRAWS}/{name}")
+
+    def _rows(
+        self, name: str, start: int, stop: int | None, column: int | None = None
+    ) -> NDArray[Any]:
         start, stop, _ = slice(start, stop).indices(self.steps_done)
-        return np.asarray(self._array(name)[start : max(start, stop)])
+        return read(self, f"{DRAWS}/{name}", start, max(start, stop), column=column)
 
     def draws(self, start: int = 0, stop: int | None = None) -> NDArray[np.float64]:
         """Committed positions, shape (steps, walkers, params)."""
@@ -288,9 +328,19 @@ class Store:
         self, param: int | str, start: int = 0, stop: int | None = None
     ) -> NDArray[np.float64]:
         """One parameter's committed draws, shape (steps, walkers); reads only that column."""
-        j = self.param_names.index(param) if isinstance(param, str) else int(param)
-        start, stop, _ = slice(start, stop).indices(self.steps_done)
-        return np.asarray(self._array(POSITION)[start : max(start, stop), :, j])
+        names = self.param_names
+        if isinstance(param, str):
+            if param not in names:
+                raise StoreError(f"{self.path}: no parameter {param!r}; stored: {list(names)}")
+            j = names.index(param)
+        else:
+            j = int(param)
+            if not 0 <= j < len(names):
+                raise StoreError(
+                    f"{self.path}: no parameter {j}; the store holds {len(names)} "
+                    f"(0-{len(names) - 1})"
+                )
+        return self._rows(POSITION, start, stop, column=j)
 
     def iter_chunks(self, start: int = 0, stop: int | None = None) -> Iterator[tuple[int, int]]:
         """Step ranges ``(a, b)`` aligned to stored chunks covering ``[start, stop)``."""
@@ -312,7 +362,9 @@ class Store:
 
     def start_array(self, name: str) -> NDArray[np.float64]:
         """One start-state array (``position``, ``log_prob`` or ``blob/NAME``)."""
-        return np.asarray(self._group[f"{START}/{name}"][...])
+        if name not in self.start_names():
+            raise StoreError(f"{self.path}: no start array {name!r}; stored: {self.start_names()}")
+        return read(self, f"{START}/{name}", 0, 0)
 
     def last_state(self) -> dict[str, NDArray[np.float64]]:
         """Positions, log-prob and blobs after the last committed step (start state if none)."""
@@ -330,7 +382,9 @@ class Store:
 
     def read_rows(self, name: str, start: int, stop: int, step: int = 1) -> NDArray[Any]:
         """Rows ``start:stop:step`` of any per-step array, committed or not."""
-        return np.asarray(self._array(name)[start:stop:step])
+        if name not in self.array_names():
+            raise StoreError(f"{self.path}: no array {name!r}; stored: {self.array_names()}")
+        return read(self, f"{DRAWS}/{name}", start, stop, step)
 
     # ------------------------------------------------------------------ raw keys
     def read_bytes(self, key: str) -> bytes | None:
@@ -349,8 +403,7 @@ class Store:
 
     def start_chunk_key(self, name: str) -> str:
         """Key of the single chunk of the start array ``start/<name>``."""
-        arr = self._group[f"{START}/{name}"]
-        assert isinstance(arr, zarr.Array)
+        arr = self._node(f"{START}/{name}")
         return f"{START}/{name}/" + arr.metadata.encode_chunk_key((0,) * arr.ndim)
 
     # ------------------------------------------------------------------ writing
@@ -451,7 +504,9 @@ class Store:
     def reload_commit(self) -> None:
         """Re-read the commit record from disk (another writer of this run may have moved it)."""
         if self._archive is None:
-            self._commit = json.loads((self.path / COMMIT_FILE).read_text())
+            commit = read_json(self.path / COMMIT_FILE)
+            check_commit(commit, f"{self.path}/{COMMIT_FILE}")
+            self._commit = commit
 
     def commit(self, record: dict[str, Any], *, fsync: bool) -> None:
         """Make ``record`` (with its ``steps_done``) the store's commit record: the commit point.
