@@ -28,7 +28,7 @@ from chainyard.errors import ChainyardError, ConfigError, TargetsNotMetError
 INTERNAL_ERROR = 70
 STORAGE_FAULT = 8
 
-__all__ = ["main"]
+__all__ = ["main", "os_error_exit", "report_internal"]
 
 
 def _cmd_sample(args: argparse.Namespace) -> int:
@@ -367,7 +367,7 @@ def _quiet_exit_on_broken_pipe() -> int:
     return 0
 
 
-def _os_error(exc: OSError) -> int | None:
+def os_error_exit(exc: OSError) -> int | None:
     """One line and exit status for a file-system refusal that escaped; None if not one."""
     known = _STORAGE_ERRNOS.get(exc.errno or 0)
     if known is None:
@@ -384,7 +384,7 @@ def _os_error(exc: OSError) -> int | None:
     return STORAGE_FAULT
 
 
-def _internal(exc: BaseException, command: str, show: bool) -> int:
+def report_internal(exc: BaseException, command: str, show: bool) -> int:
     """Report a chainyard bug in one line (the traceback first when asked for)."""
     if show:
         traceback.print_exception(type(exc), exc, exc.__traceback__, file=sys.stderr)
@@ -434,7 +434,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     except BrokenPipeError as exc:
         if _stdout_broken():
             return _quiet_exit_on_broken_pipe()
-        return _internal(exc, command, show)
+        return report_internal(exc, command, show)
     except MemoryError as exc:
         if show:
             traceback.print_exception(type(exc), exc, exc.__traceback__, file=sys.stderr)
@@ -447,10 +447,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except OSError as exc:
         if show:
             traceback.print_exception(type(exc), exc, exc.__traceback__, file=sys.stderr)
-        code = _os_error(exc)
-        return code if code is not None else _internal(exc, command, False)
+        code = os_error_exit(exc)
+        return code if code is not None else report_internal(exc, command, False)
     except Exception as exc:
-        return _internal(exc, command, show)
+        return report_internal(exc, command, show)
 
 
 if __name__ == "__main__":  # pragma: no cover

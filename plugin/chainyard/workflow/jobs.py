@@ -27,10 +27,20 @@ def _dispatch(sm: Any) -> None:
     elif step == "summary":
         steps.summary_step(list(sm.input.stores), sm.input.diagnostics, sm.output[0])
     elif step == "plot":
-        steps.plot_step(list(sm.input.raw), list(sm.input.final), sm.input.burn_in,
-                        sm.input.diagnostics, dict(sm.output.items()))
+        steps.plot_step(
+            list(sm.input.raw),
+            list(sm.input.final),
+            sm.input.burn_in,
+            sm.input.diagnostics,
+            dict(sm.output.items()),
+        )
     else:  # pragma: no cover - the shipped rules set known steps
         raise ValueError(f"unknown chainyard step {step!r}")
+
+
+def p_step(sm: Any) -> str:
+    """The step name of a job (for messages)."""
+    return str(getattr(sm.params, "step", "?"))
 
 
 def run_job(sm: Any) -> None:
@@ -54,6 +64,15 @@ def run_job(sm: Any) -> None:
                 print(f"chainyard: error: {line}", file=sys.stderr)
             sys.stderr.flush()
             code = exc.exit_code
+        except OSError as exc:  # a storage fault the engine or store did not name
+            from chainyard.cli import os_error_exit, report_internal
+
+            found = os_error_exit(exc)
+            code = found if found is not None else report_internal(exc, f"job {p_step(sm)}", True)
+        except Exception as exc:  # a chainyard bug: the traceback goes to the job's log
+            from chainyard.cli import report_internal
+
+            code = report_internal(exc, f"job {p_step(sm)}", True)
         else:
             code = 0
     if code:
