@@ -24,6 +24,8 @@ from chainyard.config.policies import (
     ThinningSpec,
 )
 from chainyard.config.sections import (
+    CODEC_MAX_LEVEL,
+    NAME_PATTERN,
     DESnookerMove,
     DifferentialEvolutionMove,
     GaussianMove,
@@ -98,6 +100,7 @@ class RunConfig(_Strict):
         for i, move in enumerate(self.sampler.moves):
             _check_move(i, move, n, self.sampler.walkers)
         _check_chunk_size(self)
+        _check_codec_level(self.storage)
         return self
 
     # ------------------------------------------------------------------ helpers
@@ -171,6 +174,19 @@ def _check_move(i: int, move: Any, n_params: int, walkers: int) -> None:
         )
 
 
+def _check_codec_level(storage: StorageSpec) -> None:
+    """``storage.level`` must be one the codec accepts (the codecs would clamp it silently)."""
+    if storage.level is None:
+        return
+    top = CODEC_MAX_LEVEL[storage.codec]
+    if top is None:
+        raise ValueError(f"storage.level = {storage.level}: codec 'none' takes no level (use null)")
+    if storage.level > top:
+        raise ValueError(
+            f"storage.level = {storage.level}: codec {storage.codec!r} allows levels 0-{top}"
+        )
+
+
 def _check_chunk_size(config: RunConfig) -> None:
     """The decoded size of one stored chunk must stay within the ``chunk_bytes`` limit."""
     from chainyard import limits
@@ -214,7 +230,16 @@ def format_validation_error(error: ValidationError, source: str) -> list[str]:
         msg = item["msg"]
         if msg.startswith("Value error, "):
             msg = msg[len("Value error, ") :]
-        if kind == "extra_forbidden":
+        msg = msg.replace("a valid tuple", "a list").replace("Tuple should", "List should")
+        msg = msg.replace(" after validation", "")
+        if kind == "string_pattern_mismatch" and (item.get("ctx") or {}).get("pattern") == (
+            NAME_PATTERN
+        ):
+            msg = "a name starts with a letter or '_' and holds only letters, digits, '_', '.', '-'"
+        if kind == "union_tag_not_found":
+            key = (item.get("ctx") or {}).get("discriminator", "kind").strip("'")
+            lines.append(f"{where}.{key}: required key is missing" if loc else f"{where}: {msg}")
+        elif kind == "extra_forbidden":
             lines.append(f"{where}: unknown key (check the spelling; see `chainyard schema`)")
         elif kind == "missing":
             lines.append(f"{where}: required key is missing")
@@ -225,7 +250,16 @@ def format_validation_error(error: ValidationError, source: str) -> list[str]:
     return lines
 
 
+#: the policy tags pydantic puts into the path of burn_in/thinning errors
+_POLICY_TAGS = {
+    "default", "fixed", "fraction", "tau_multiple", "mser", "geweke",
+    "none", "tau", "target_draws", "cost_aware",
+}  # fmt: skip
+
+
 def _clean_loc(loc: tuple[int | str, ...]) -> str:
+    if len(loc) >= 2 and loc[0] in ("burn_in", "thinning") and loc[1] in _POLICY_TAGS:
+        loc = (loc[0], *loc[2:])
     parts: list[str] = []
     for part in loc:
         if isinstance(part, int):

@@ -17,7 +17,7 @@ from pydantic import (
 from chainyard.config._base import _Strict
 
 #: names of parameters and blobs (also used as store array names)
-_NAME_PATTERN = r"^[A-Za-z_][A-Za-z0-9_.\-]*$"
+NAME_PATTERN = r"^[A-Za-z_][A-Za-z0-9_.\-]*$"
 
 # --------------------------------------------------------------------------- model
 
@@ -150,7 +150,7 @@ _Bound = Annotated[float, Field(allow_inf_nan=True)]
 class Parameter(_Strict):
     """One model parameter, in the order theta holds them."""
 
-    name: str = Field(pattern=_NAME_PATTERN, description="Parameter name.")
+    name: str = Field(pattern=NAME_PATTERN, description="Parameter name.")
     init: InitSpec | None = Field(
         default=None,
         description=(
@@ -264,7 +264,7 @@ class SamplerSpec(_Strict):
         default=(StretchMove(kind="stretch"),),
         description="Proposal moves with weights. Default: one stretch move with scale 2.",
     )
-    blobs: tuple[Annotated[str, Field(pattern=_NAME_PATTERN)], ...] = Field(
+    blobs: tuple[Annotated[str, Field(pattern=NAME_PATTERN)], ...] = Field(
         default=(),
         description=(
             "Names of extra scalar values log_prob returns after the log-probability, "
@@ -333,20 +333,9 @@ class StorageSpec(_Strict):
         ),
     )
 
-    @model_validator(mode="after")
-    def _level_for_codec(self) -> StorageSpec:
-        if self.level is None:
-            return self
-        top = _CODEC_MAX_LEVEL[self.codec]
-        if top is None:
-            raise ValueError(f"level = {self.level}: codec 'none' takes no level (use null)")
-        if self.level > top:
-            raise ValueError(f"level = {self.level}: codec {self.codec!r} allows levels 0-{top}")
-        return self
-
 
 #: highest level each codec accepts (None: the codec takes no level)
-_CODEC_MAX_LEVEL: dict[str, int | None] = {
+CODEC_MAX_LEVEL: dict[str, int | None] = {
     "pcodec": 12,
     "zstd": 22,
     "blosc_zstd": 9,

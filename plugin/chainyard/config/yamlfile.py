@@ -106,6 +106,9 @@ def read_yaml_file(path: Path, what: str = "config file") -> Any:
                 f"{path}: holds more than one YAML document (a second '---'); expected one"
             ) from None
         raise ConfigError(f"{path}: not valid YAML{_line(exc)}") from None
+    except yaml.constructor.ConstructorError as exc:
+        problem = " ".join(str(exc.problem or "").split())
+        raise ConfigError(f"{path}: not valid YAML{_line(exc)}: {problem}") from None
     except yaml.YAMLError as exc:
         raise ConfigError(f"{path}: not valid YAML{_line(exc)}") from None
 

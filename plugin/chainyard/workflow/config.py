@@ -7,7 +7,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+from pydantic import Field, ValidationError, field_validator
 
 from chainyard.config import (
     JSON_SCHEMA_DIALECT,
@@ -15,16 +15,15 @@ from chainyard.config import (
     format_validation_error,
     parse_config,
 )
+from chainyard.config._base import _Strict
 from chainyard.config.yamlfile import read_yaml_file
 from chainyard.errors import ConfigError
 
 __all__ = ["RunEntry", "WorkflowConfig", "load_workflow_config", "workflow_json_schema"]
 
 
-class WorkflowConfig(BaseModel):
-    """The ``chainyard`` section of a workflow's config file."""
-
-    model_config = ConfigDict(extra="forbid", frozen=True)
+class WorkflowConfig(_Strict):
+    """The ``chainyard`` section of a workflow's config file (strict like a run config)."""
 
     runs: dict[str, RunConfig | str] = Field(
         description=(
