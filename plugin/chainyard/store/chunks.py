@@ -147,17 +147,24 @@ def write_chunk_file(path: Path, data: bytes, *, fsync: bool) -> None:
     """Replace the chunk file ``path`` by ``data`` atomically (temporary name, then rename).
 
     A reader or a crash sees the old chunk or the new one, never a part. The folder is not
-    flushed here (the caller flushes each folder once per commit).
+    flushed here (the caller flushes each folder once per commit). If the write fails (an
+    OSError such as ENOSPC or EFBIG), the temporary file is removed and the error re-raised.
     """
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(f".{path.name}.{os.getpid()}.partial")
     fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
     try:
-        view = memoryview(data)
-        while view:
-            view = view[os.write(fd, view) :]
-        if fsync:
-            os.fsync(fd)
-    finally:
-        os.close(fd)
-    os.replace(tmp, path)
+        try:
+            view = memoryview(data)
+            while view:
+                view = view[os.write(fd, view) :]
+            if fsync:
+                os.fsync(fd)
+        finally:
+            os.close(fd)
+        os.replace(tmp, path)
+    except BaseException as exc:
+        tmp.unlink(missing_ok=True)  # a failed write (disk full, file too large) leaves nothing
+        if isinstance(exc, OSError) and exc.filename is None:  # os.write names no file
+            raise OSError(exc.errno, exc.strerror, str(path)) from exc
+        raise

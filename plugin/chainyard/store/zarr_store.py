@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import json
 import os
+import shutil
 import warnings
 import zipfile
 from collections.abc import Iterator
@@ -32,13 +33,11 @@ from numpy.typing import NDArray
 
 from chainyard.errors import StoreError
 from chainyard.provenance import git_state, host_record, software_versions, utc_now
-from chainyard.store.chunks import ChunkEncoder, chunk_encoder, write_chunk_file
-from chainyard.store.files import atomic_write_json, fsync_dir
+from chainyard.store.chunks import ChunkEncoder
+from chainyard.store.faults import as_storage_fault, storage_faults
+from chainyard.store.files import atomic_write_json
 from chainyard.store.integrity import (
-    array_metadata,
-    bytes_checksum,
     chunk_checksum,
-    chunk_key_from_metadata,
     seal_record,
 )
 from chainyard.store.layout import (
@@ -56,6 +55,7 @@ from chainyard.store.layout import (
 )
 from chainyard.store.reading import read
 from chainyard.store.validate import ArrayInfo, check_commit, one_line, read_json, validate_store
+from chainyard.store.writing import RowWriter
 
 __all__ = ["Store", "atomic_write_json", "chunk_checksum"]
 
@@ -65,7 +65,7 @@ __all__ = ["Store", "atomic_write_json", "chunk_checksum"]
 warnings.filterwarnings("ignore", message="Numcodecs codecs are not in the Zarr")
 
 
-class Store:
+class Store(RowWriter):
     """A chainyard run store on local disk.
 
     Use :func:`chainyard.open_store` to read one; :func:`chainyard.sample` creates and
@@ -185,7 +185,13 @@ class Store:
         commit: dict[str, Any],
         fsync: bool,
     ) -> Store:
-        """Create a new store with empty draws and the start state; write the first commit."""
+        """Create a new store with empty draws and the start state; write the first commit.
+
+        Raises
+        ------
+        StorageFaultError
+            If the file system refuses a write (the new store is then removed).
+        """
         path = Path(path)
         full = {
             "format": FORMAT_NAME,
@@ -198,32 +204,41 @@ class Store:
                 "git": git_state(Path.cwd()),
             },
         }
-        group = zarr.open_group(path, mode="w", attributes={ATTRS_KEY: full})
-        shapes = {
-            POSITION: ((capacity, walkers, n_params), "float64"),
-            LOG_PROB: ((capacity, walkers), "float64"),
-            ACCEPTED: ((capacity, walkers), "bool"),
-            **{f"{BLOB}/{b}": ((capacity, walkers), "float64") for b in blob_names},
-        }
-        for name, (shape, dtype) in shapes.items():
-            group.create_array(
-                f"{DRAWS}/{name}",
-                shape=shape,
-                chunks=(chunk_steps, *shape[1:]),
-                dtype=dtype,
-                fill_value=False if dtype == "bool" else np.nan,
-                **codec_kwargs(codec, level, dtype),
-            )
-        for name, value in start.items():
-            arr = group.create_array(
-                f"{START}/{name}",
-                shape=value.shape,
-                dtype="float64",
-                fill_value=np.nan,
-                compressors=None,
-            )
-            arr[...] = value
-        cls(path, group, {}).commit(commit, fsync=fsync)
+        existed = path.exists()
+        try:
+            group = zarr.open_group(path, mode="w", attributes={ATTRS_KEY: full})
+            shapes = {
+                POSITION: ((capacity, walkers, n_params), "float64"),
+                LOG_PROB: ((capacity, walkers), "float64"),
+                ACCEPTED: ((capacity, walkers), "bool"),
+                **{f"{BLOB}/{b}": ((capacity, walkers), "float64") for b in blob_names},
+            }
+            for name, (shape, dtype) in shapes.items():
+                group.create_array(
+                    f"{DRAWS}/{name}",
+                    shape=shape,
+                    chunks=(chunk_steps, *shape[1:]),
+                    dtype=dtype,
+                    fill_value=False if dtype == "bool" else np.nan,
+                    **codec_kwargs(codec, level, dtype),
+                )
+            for name, value in start.items():
+                arr = group.create_array(
+                    f"{START}/{name}",
+                    shape=value.shape,
+                    dtype="float64",
+                    fill_value=np.nan,
+                    compressors=None,
+                )
+                arr[...] = value
+            cls(path, group, {}).commit(commit, fsync=fsync)
+        except Exception as exc:
+            fault = as_storage_fault(exc, path, committed=None)
+            if fault is None:
+                raise
+            if not existed:  # a creation cut short holds nothing of value
+                shutil.rmtree(path, ignore_errors=True)
+            raise fault from None
         return cls.open(path, writable=True)
 
     # ------------------------------------------------------------------ metadata
@@ -406,101 +421,7 @@ class Store:
         arr = self._node(f"{START}/{name}")
         return f"{START}/{name}/" + arr.metadata.encode_chunk_key((0,) * arr.ndim)
 
-    # ------------------------------------------------------------------ writing
-    def ensure_capacity(self, steps: int) -> None:
-        """Grow every per-step array to hold at least ``steps`` rows."""
-        if steps <= self.capacity:
-            return
-        for name in self.array_names():
-            arr = self._array(name)
-            arr.resize((steps, *arr.shape[1:]))
-
-    def _encoders(self) -> dict[str, ChunkEncoder | None]:
-        """Direct chunk encoders of the per-step arrays (None where zarr must write)."""
-        if self._encoder_cache is None:
-            meta = array_metadata(self)
-            self._chunk_meta = {name: meta[f"{DRAWS}/{name}"] or {} for name in self.array_names()}
-            self._encoder_cache = {name: chunk_encoder(m) for name, m in self._chunk_meta.items()}
-        return self._encoder_cache
-
-    def write_steps(
-        self,
-        rows: dict[str, NDArray[Any]],
-        origin: int,
-        start: int,
-        stop: int,
-        *,
-        fsync: bool,
-    ) -> None:
-        """Write steps ``[start, stop)`` of every array, whole chunks at a time (not committed).
-
-        ``rows[name]`` holds the array's rows ``[origin, stop)``, where ``origin`` is the
-        chunk boundary at or before ``start``, so every chunk touched is encoded from memory
-        (rows a chunk does not hold yet are the fill value) and no chunk is read back.
-        Arrays whose codec chain :func:`chainyard.store.chunks.chunk_encoder` does not cover
-        are written through zarr. The stored-byte checksums of the chunk files written here
-        are kept for the next :meth:`commit`.
-        """
-        encoders = self._encoders()
-        size = self.chunk_steps
-        if origin % size or not origin <= start <= stop:
-            raise ValueError(f"bad step range: origin {origin}, start {start}, stop {stop}")
-        if stop == start:
-            return
-        first, last = start // size, (stop - 1) // size
-        folders: set[Path] = set()
-        for name, values in rows.items():
-            enc = encoders.get(name)
-            if enc is None:
-                self.write_rows(start, {name: values[start - origin :]}, fsync=fsync)
-                continue
-            sums = self._file_sums.setdefault(name, {})
-            for ci in range(first, last + 1):
-                lo, hi = ci * size, min((ci + 1) * size, stop)
-                data = enc.encode(values[lo - origin : hi - origin])
-                key = chunk_key_from_metadata(f"{DRAWS}/{name}", self._chunk_meta[name], ci)
-                path = self.path / key
-                folder = path.parent
-                while not folder.exists():  # new folders: their entries must be flushed too
-                    folders.add(folder.parent)
-                    folder = folder.parent
-                write_chunk_file(path, data, fsync=fsync)
-                folders.add(path.parent)
-                sums[ci] = bytes_checksum(data)
-        self._written.update(range(first, last + 1))
-        if fsync:
-            for folder in sorted(folders):
-                fsync_dir(folder)
-
-    def write_rows(self, start: int, rows: dict[str, NDArray[Any]], *, fsync: bool) -> None:
-        """Write rows ``[start, start + n)`` of every array through zarr (not yet committed)."""
-        n = len(rows[POSITION])
-        size = 0
-        for name, values in rows.items():
-            arr = self._array(name)
-            arr[start : start + n] = values
-            size = int(arr.chunks[0])
-        if n:
-            self._written.update(range(start // size, (start + n - 1) // size + 1))
-        if fsync:
-            self._fsync_rows(start, start + n, list(rows))
-
-    def _fsync_rows(self, start: int, stop: int, names: list[str]) -> None:
-        size = self.chunk_steps
-        for name in names:
-            arr = self._array(name)
-            trailing = "/".join("0" for _ in arr.shape[1:])
-            base = self.path / DRAWS / name / "c"
-            for i in range(start // size, (stop - 1) // size + 1):
-                chunk = base / str(i) / trailing if trailing else base / str(i)
-                if chunk.exists():
-                    fd = os.open(chunk, os.O_RDONLY)
-                    try:
-                        os.fsync(fd)
-                    finally:
-                        os.close(fd)
-                    fsync_dir(chunk.parent)
-
+    # ------------------------------------------------------------------ committing
     def reload_commit(self) -> None:
         """Re-read the commit record from disk (another writer of this run may have moved it)."""
         if self._archive is None:
@@ -512,12 +433,18 @@ class Store:
         """Make ``record`` (with its ``steps_done``) the store's commit record: the commit point.
 
         The record is written with a fresh integrity block (:func:`seal_record`): checksums of
-        the stored bytes of the chunks this commit touched, and the metadata seal.
+        the stored bytes of the chunks this commit touched, and the metadata seal. If the file
+        system refuses the write, StorageFaultError is raised and the previous record stays.
         """
         sealed = seal_record(
             self, record, self._commit, written=self._written, file_sums=self._file_sums
         )
-        atomic_write_json(self.path / COMMIT_FILE, sealed, fsync=fsync)
+        target = self.path / COMMIT_FILE
+        # the temporary name atomic_write_json uses (removed if the write fails)
+        tmp = target.with_name(f".{COMMIT_FILE}.{os.getpid()}.tmp")
+        done = self._commit.get("steps_done") if self._commit else None
+        with storage_faults(target, committed=done, partials=(tmp,)):
+            atomic_write_json(target, sealed, fsync=fsync)
         self._commit = json.loads(json.dumps(sealed))
         self._written = set()
         self._file_sums = {}
@@ -528,6 +455,12 @@ class Store:
         The current commit record is then rewritten (same content, atomically) so that its
         seal covers the new attributes.
         """
+        before = dict(self._attrs)
         self._attrs.update(changes)
-        self._group.attrs.update({ATTRS_KEY: self._attrs})
+        try:
+            with storage_faults(self.path / "zarr.json", committed=self.steps_done):
+                self._group.attrs.update({ATTRS_KEY: self._attrs})
+        except BaseException:
+            self._attrs = before
+            raise
         self.commit(self._commit, fsync=True)

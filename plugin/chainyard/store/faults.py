@@ -1,0 +1,96 @@
+"""Storage faults at the store's own write sites, as one-line StorageFaultError.
+
+The file system can refuse a write at any moment: a full disk (ENOSPC) or quota (EDQUOT), a
+file-size limit (EFBIG, ``ulimit -f`` with SIGXFSZ ignored), a read-only mount (EROFS), a
+folder without permission (EACCES, EPERM) or a device error (EIO). Each write site of the store
+translates these into :class:`~chainyard.errors.StorageFaultError` (exit status 8) naming the
+path, the system error and the last commit, which the commit protocol leaves intact (the
+commit record is replaced last); temporary files of the failed write are removed. Any other
+OSError is not a storage fault and propagates unchanged.
+"""
+
+from __future__ import annotations
+
+import errno
+import os
+from collections.abc import Iterator
+from contextlib import contextmanager, suppress
+from pathlib import Path
+
+from chainyard.errors import StorageFaultError
+
+__all__ = ["FAULT_ERRNOS", "as_storage_fault", "storage_faults"]
+
+#: system errors that mean "the file system refused", by number
+FAULT_ERRNOS = frozenset(
+    code
+    for code in (
+        errno.ENOSPC,
+        getattr(errno, "EDQUOT", None),
+        errno.EFBIG,
+        errno.EROFS,
+        errno.EACCES,
+        errno.EPERM,
+        errno.EIO,
+    )
+    if code is not None
+)
+
+
+def _fault_in(exc: BaseException) -> OSError | None:
+    """The storage-fault OSError in ``exc`` or its causes (zarr may wrap it), if any."""
+    seen = 0
+    cur: BaseException | None = exc
+    while cur is not None and seen < 8:
+        if isinstance(cur, OSError) and cur.errno in FAULT_ERRNOS:
+            return cur
+        cur = cur.__cause__ or cur.__context__
+        seen += 1
+    return None
+
+
+def as_storage_fault(
+    exc: BaseException, path: Path | str, *, committed: int | None
+) -> StorageFaultError | None:
+    """``exc`` as a StorageFaultError if it is a storage fault, else None.
+
+    Parameters
+    ----------
+    exc : BaseException
+        What the write raised.
+    path : Path or str
+        What was being written (the OSError's own file name is preferred when it has one).
+    committed : int or None
+        The store's committed step count (None while a store is being created).
+    """
+    fault = _fault_in(exc)
+    if fault is None:
+        return None
+    name = errno.errorcode.get(fault.errno or 0, str(fault.errno))
+    where = fault.filename or path
+    if committed is None:
+        after = "nothing was committed and the new store was removed"
+    else:
+        after = f"the last commit (step {committed}) is intact"
+    return StorageFaultError(
+        f"{where}: the file system refused the write ({fault.strerror or name} [{name}]); {after}"
+    )
+
+
+@contextmanager
+def storage_faults(
+    path: Path | str, *, committed: int | None, partials: tuple[Path, ...] = ()
+) -> Iterator[None]:
+    """Translate storage faults raised inside the block; remove ``partials`` if it fails."""
+    try:
+        yield
+    except StorageFaultError:
+        raise
+    except Exception as exc:
+        for tmp in partials:
+            with suppress(OSError):
+                os.unlink(tmp)
+        fault = as_storage_fault(exc, path, committed=committed)
+        if fault is None:
+            raise
+        raise fault from None
