@@ -283,7 +283,12 @@ def _parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("derive", help="write a store with burn-in discarded and/or thinned")
     p.add_argument("source", help="store to derive from")
-    p.add_argument("--out", required=True, help="derived store to write (replaced)")
+    p.add_argument(
+        "--out",
+        required=True,
+        help="derived store to write; only a derived store already there is replaced (the "
+        "source, folders holding it, the current folder and anything else are refused)",
+    )
     p.add_argument("--burn-in-record", default=None, help="burn-in decision record")
     p.add_argument("--thinning-record", default=None, help="thinning decision record")
     p.set_defaults(func=_cmd_derive)
