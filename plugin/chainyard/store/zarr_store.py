@@ -31,11 +31,12 @@ import numpy as np
 import zarr
 from numpy.typing import NDArray
 
-from chainyard.errors import StoreError
+from chainyard import limits
+from chainyard.errors import LimitExceededError, StoreError
 from chainyard.provenance import git_state, host_record, software_versions, utc_now
 from chainyard.store.chunks import ChunkEncoder
 from chainyard.store.faults import as_storage_fault, storage_faults
-from chainyard.store.files import atomic_write_json
+from chainyard.store.files import atomic_write_json, stored_size
 from chainyard.store.integrity import (
     chunk_checksum,
     seal_record,
@@ -403,7 +404,26 @@ class Store(RowWriter):
 
     # ------------------------------------------------------------------ raw keys
     def read_bytes(self, key: str) -> bytes | None:
-        """Raw stored bytes of ``key`` (e.g. ``"zarr.json"``); None if there is no such key."""
+        """Raw stored bytes of ``key`` (e.g. ``"zarr.json"``); None if there is no such key.
+
+        The size is checked before reading: a JSON file against the ``metadata_bytes`` limit,
+        anything else against the most a chunk within ``chunk_bytes`` can take when stored.
+        """
+        size = stored_size(self, key)
+        if size is None:
+            return None
+        what = f"{self.path}/{key}"
+        if key.endswith(".json"):
+            limits.check("metadata_bytes", size, what)
+        else:
+            from chainyard.store.packed import most_chunk_file_bytes
+
+            most = most_chunk_file_bytes(limits.value("chunk_bytes"))
+            if size > most:
+                raise LimitExceededError(
+                    f"{what}: a stored chunk of {size:,} bytes is more than any chunk within the "
+                    f"chunk_bytes limit can take ({most:,}); the store is damaged"
+                )
         try:
             if self._archive is not None:
                 return self._archive.read(key)
