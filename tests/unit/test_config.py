@@ -71,3 +71,46 @@ def test_all_problems_reported_at_once() -> None:
     lines = str(info.value).splitlines()
     assert len(lines) == 3
     assert all(line.startswith("run.yaml: ") for line in lines)
+
+
+def test_yaml_merge_key_may_be_overridden(tmp_path: Path) -> None:
+    """A mapping may override what it merges in with '<<' (YAML 1.1 merge keys, not a duplicate);
+    a key given twice in one mapping is refused (PyYAML alone would keep the last one)."""
+    text = MINIMAL_CONFIG.replace(
+        "init: {normal: {loc: 0.0, scale: 1.0}}", "init: &start {normal: {loc: 0.0, scale: 1.0}}"
+    ).replace(
+        "init: {uniform: {low: -1.0, high: 1.0}}",
+        "init: {<<: *start, normal: {loc: 3.0, scale: 1.0}}",
+    )
+    path = tmp_path / "run.yaml"
+    path.write_text(text)
+    assert load_config(path).parameters[1].init.normal.loc == 3.0  # type: ignore[union-attr]
+    path.write_text(MINIMAL_CONFIG + "seed: 8\n")
+    with pytest.raises(ConfigError, match=r"line 12: key 'seed' appears twice .*first at line 11"):
+        load_config(path)
+
+
+def test_utf8_bom_config_is_read(tmp_path: Path) -> None:
+    """A UTF-8 byte-order mark before a config is allowed (the YAML 1.2 spec permits it)."""
+    path = tmp_path / "run.yaml"
+    path.write_bytes(b"\xef\xbb\xbf" + MINIMAL_CONFIG.encode())
+    assert load_config(path).seed == 7
+
+
+def test_booleans_still_accepted_where_booleans_belong() -> None:
+    """The true/false guard for numbers leaves boolean settings alone (fsync, vectorized)."""
+    cfg = base_config(storage={"fsync": False}, model={"vectorized": True})
+    config = parse_config(cfg)
+    assert config.storage.fsync is False and config.model.vectorized is True
+    with pytest.raises(ConfigError, match=r"storage\.chunk_steps = 'true'"):
+        parse_config(base_config(storage={"chunk_steps": True}))
+
+
+def test_chunk_limit_follows_its_environment_variable(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The chunk size check uses chainyard.limits (raised with CHAINYARD_MAX_CHUNK_BYTES)."""
+    cfg = base_config(storage={"chunk_steps": 100_000})  # 100,000 x 16 x 4 x 8 = 51.2 MB
+    monkeypatch.setenv("CHAINYARD_MAX_CHUNK_BYTES", str(50_000_000))
+    with pytest.raises(ConfigError, match="51,200,000 bytes, above the chunk_bytes limit"):
+        parse_config(cfg)
+    monkeypatch.setenv("CHAINYARD_MAX_CHUNK_BYTES", str(60_000_000))
+    assert parse_config(cfg).storage.chunk_steps == 100_000

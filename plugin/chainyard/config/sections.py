@@ -38,7 +38,11 @@ class ModelSpec(_Strict):
         default=None,
         description=(
             "Optional data file (.csv with a header row, .npz, .json), relative to the config "
-            "file; loaded once and passed as the second argument. None: data is None."
+            "file; loaded once and passed as the second argument. None: data is None. CSV: "
+            "UTF-8 without BOM, unique column names, at least one row, every row as long as "
+            "the header; a column with any number must be all finite numbers (no empty or "
+            "n/a cells), a column with no numbers is passed as labels (str). NPZ: no object "
+            "arrays. JSON: standard JSON (no NaN/Infinity). Rules: chainyard.datafiles."
         ),
     )
     data_loader: str | None = Field(
