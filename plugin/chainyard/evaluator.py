@@ -176,7 +176,9 @@ class _Alarm:
     def __exit__(self, *exc: object) -> None:
         self._active = False
         signal.setitimer(signal.ITIMER_REAL, 0)
-        signal.signal(signal.SIGALRM, self._old_handler)
+        # None: the previous handler was not installed from Python (restore the default)
+        old = self._old_handler if self._old_handler is not None else signal.SIG_DFL
+        signal.signal(signal.SIGALRM, old)
         delay, interval = self._old_timer
         if delay > 0:
             left = delay - (time.monotonic() - self._t0)
