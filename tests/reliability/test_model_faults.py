@@ -216,3 +216,57 @@ def test_time_limit_restores_the_previous_alarm() -> None:
     finally:
         signal.setitimer(signal.ITIMER_REAL, 0)
         signal.signal(signal.SIGALRM, old)
+
+
+def _plain(func: object, walkers: int = 4) -> object:
+    import numpy as np
+
+    from chainyard.evaluator import LoadedModel
+
+    return LoadedModel(
+        func, None, False, np.full(1, -np.inf), np.full(1, np.inf), ("x",), 0, walkers=walkers
+    )
+
+
+def test_chainyard_stop_signal_passes_through() -> None:
+    """The run loop's own stop (engine.run.Interrupted, a second SIGTERM) is not a model error."""
+    import signal
+
+    import numpy as np
+
+    from chainyard.engine.run import Interrupted
+
+    def log_prob(theta: object, data: object) -> float:
+        raise Interrupted(signal.SIGTERM)
+
+    with pytest.raises(Interrupted):
+        _plain(log_prob)(np.zeros((4, 1)))  # type: ignore[operator]
+
+
+def test_real_ctrl_c_passes_but_a_raised_one_is_a_model_error() -> None:
+    """A real SIGINT during a call stays KeyboardInterrupt; `raise KeyboardInterrupt` is exit 3."""
+    import os
+    import signal
+
+    import numpy as np
+
+    from chainyard.errors import ModelError
+    from chainyard.evaluator import watch_sigint
+
+    old = signal.signal(signal.SIGINT, signal.default_int_handler)
+    try:
+        watch_sigint()
+
+        def interrupted(theta: object, data: object) -> float:
+            os.kill(os.getpid(), signal.SIGINT)  # as a user's Ctrl-C would
+            return 0.0
+
+        def raising(theta: object, data: object) -> float:
+            raise KeyboardInterrupt
+
+        with pytest.raises(KeyboardInterrupt):
+            _plain(interrupted)(np.zeros((4, 1)))  # type: ignore[operator]
+        with pytest.raises(ModelError, match="raised KeyboardInterrupt at walker 0"):
+            _plain(raising)(np.zeros((4, 1)))  # type: ignore[operator]
+    finally:
+        signal.signal(signal.SIGINT, old)
