@@ -18,8 +18,8 @@ NPZ
     would need pickle).
 JSON
     Standard JSON (RFC 8259): ``NaN``, ``Infinity`` and ``-Infinity`` are refused (write a
-    missing value as ``null`` and handle it in the model). Lists of numbers become float64
-    arrays.
+    missing value as ``null`` and handle it in the model), and so is a number too large for a
+    64-bit float (it would become infinite). Lists of numbers become float64 arrays.
 """
 
 from __future__ import annotations
@@ -185,8 +185,18 @@ def _read_json(path: Path) -> Any:
             "NaN or Infinity); write a missing value as null and handle it in the model",
         )
 
+    def finite(token: str) -> float:
+        value = float(token)
+        if not math.isfinite(value):
+            raise _fail(
+                path,
+                f"number {token} at line {_constant_line(text, token)} is too large for a "
+                "64-bit float",
+            )
+        return value
+
     try:
-        doc = json.loads(text, parse_constant=refuse)
+        doc = json.loads(text, parse_constant=refuse, parse_float=finite)
     except json.JSONDecodeError as exc:
         raise _fail(path, f"not valid JSON at line {exc.lineno}: {exc.msg}") from None
     return _jsonify_arrays(doc)

@@ -563,6 +563,8 @@ CASES: list[Case] = [
     D("json-nan", "d.json", b'{"y": [1.0, NaN]}', "NaN at line 1 is not valid JSON"),
     D("json-infinity", "d.json", b'{"note": "NaN",\n "y": [1.0, -Infinity]}',
       "-Infinity at line 2 is not valid JSON (RFC 8259 has no NaN or Infinity)"),
+    D("json-overflow", "d.json", b'{"y": [1.0,\n 1e400]}',
+      "number 1e400 at line 2 is too large for a 64-bit float"),
     D("json-invalid", "d.json", b'{"y": [1.0, 2.0}', "not valid JSON at line 1"),
     D("json-not-utf8", "d.json", b'{"site": "Z\xfcrich"}', "is not UTF-8 text (byte 0xfc"),
     D("data-unsupported-type", "d.txt", b"1 2 3\n",
