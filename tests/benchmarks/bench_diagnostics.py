@@ -215,6 +215,7 @@ def write_store(path: Path, replica: int, steps: int) -> int:
         "walkers": WALKERS,
         "replica": replica,
         "seed": SEED,
+        "config": {},  # diagnose is given its targets; no run config is read
     }
     store = Store.create(
         path,
@@ -369,6 +370,7 @@ def child_steps(args: dict[str, Any]) -> dict[str, Any]:
     )
     from chainyard.diagnostics.ess import indicator, split_ess
     from chainyard.diagnostics.mcse import quantile_interval_ranks
+    from chainyard.diagnostics.nested import nested_rhat_folded_inplace, nested_rhat_of_scores
     from chainyard.diagnostics.pooled import (
         moments,
         quantiles,
@@ -459,6 +461,19 @@ def child_steps(args: dict[str, Any]) -> dict[str, Any]:
         lambda: rank_normalise_split(x, work),
     )
     step("`split_ess(x)` on the scores (bulk ESS)", lambda: split_ess(x))
+    step(
+        "`nested_rhat_of_scores(x)` (bulk nested R-hat: split-half means and variances, "
+        "streamed over blocks of chains)",
+        lambda: nested_rhat_of_scores(x, len(stores)),
+    )
+    step(
+        "`read_column` again and `nested_rhat_folded_inplace(x, work)` (fold about the "
+        "median in place, second argsort)",
+        lambda: (
+            read_column(stores, 0, steps, x, means[:, :, 0]),
+            nested_rhat_folded_inplace(x, work, len(stores)),
+        ),
+    )
     step(
         f"`rhat`, `rhat_bulk`, `rhat_folded` ({len(stores)} walker-mean chains)",
         lambda: (rhat(rep), rhat_bulk(rep), rhat_folded(rep)),

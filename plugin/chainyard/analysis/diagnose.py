@@ -1,22 +1,24 @@
-"""Convergence diagnostics across a run's replicas, with a verdict against the targets.
+"""Convergence diagnostics across a run's replicas, with a verdict in three questions.
 
-What is compared (documented in every diagnostics record):
+What is compared (documented in every diagnostics record, ``what_each_check_compares``):
 
-* **R-hat** (rank-normalised split R-hat, max of bulk and folded; Vehtari et al. 2021,
-  Bayesian Analysis 16(2)) compares *independent replicas*: each replica contributes one
-  chain, its walker-mean trace. Walkers of one ensemble are not independent chains (each
-  move uses the others), so they are never treated as separate chains for R-hat. With one
-  replica R-hat only compares the halves of that run.
-* **ESS and MCSE** (bulk, tail, mean, quantiles; same paper) treat every walker of every
-  replica as a chain, the usual practice for ensembles; cross-walker correlation makes them
-  somewhat optimistic, so ``ess_tau`` (draws / tau, Sokal 1997) is reported beside them.
-* **Autocorrelation time** per replica with walkers averaged (Foreman-Mackey et al. 2013);
-  the largest over replicas is reported, with steps per tau and the 50 x tau rule.
-* **Multivariate ESS** (Vats, Flegal and Jones 2019, Biometrika 106(2)) on the walker-mean
-  traces of all replicas.
+* **mixing**: nested R-hat (Margossian et al. 2024, Bayesian Analysis) with the replicas as
+  superchains and the walkers of a replica as its chains: the spread of the replica means
+  against the posterior sd (derivation for dependent walkers in
+  :mod:`chainyard.diagnostics.nested`). The classic rank-normalised split R-hat (Vehtari et
+  al. 2021, Bayesian Analysis 16(2)) on one walker-mean trace per replica is reported beside
+  it (gating only if ``max_rhat`` is set). With one replica both compare the run's halves.
+* **tau**: autocorrelation time per replica with walkers averaged (Foreman-Mackey et al.
+  2013); the mean over replicas is checked (largest reported as ``tau_max``): steps per tau
+  against the 50-tau rule, and its growth, tau of the whole run over tau of its first half.
+* **precision**: ESS and MCSE (bulk, tail, mean, sd, quantiles; Vehtari et al. 2021) treat
+  every walker of every replica as a chain, the usual practice for ensembles; ``ess_tau``
+  (draws / tau, Sokal 1997) is reported beside them. Multivariate ESS (Vats, Flegal and
+  Jones 2019, Biometrika 106(2)) on the walker-mean traces of all replicas.
 
 Memory is bounded by the size of one parameter *column* (that parameter for every walker of
-every replica), not by the store: see :func:`diagnose`.
+every replica), not by the store: see :func:`diagnose`. :func:`diagnose_arrays` runs the same
+code on draws held in memory.
 """
 
 from __future__ import annotations
@@ -44,7 +46,7 @@ from chainyard.diagnostics._validation import MIN_DRAWS
 from chainyard.diagnostics.acceptance import acceptance_band
 from chainyard.diagnostics.nested import nested_rhat_folded_inplace, nested_rhat_of_scores
 from chainyard.diagnostics.pooled import pooled_summary
-from chainyard.errors import StoreError
+from chainyard.errors import ChainyardError, StoreError
 from chainyard.store import Store
 
 __all__ = [
@@ -61,7 +63,8 @@ FloatArray = npt.NDArray[np.float64]
 WHAT_IS_COMPARED = (
     "nested R-hat: replicas as superchains, walkers as chains (replica-mean spread vs posterior "
     "sd). R-hat: one chain per replica (its walker-mean trace). ESS/MCSE: every walker of every "
-    "replica as a chain. tau: per replica, walkers averaged; largest reported; growth: whole "
+    "replica as a chain. tau: per replica, walkers averaged; mean over replicas checked, largest "
+    "reported (tau_max); growth: whole "
     "run vs its first half. mESS: walker-mean traces of all replicas."
 )
 
@@ -215,21 +218,26 @@ def read_column(
         row += walkers
 
 
-def _tau_growth(x: FloatArray, stores: Sequence[Any], steps: int) -> float | None:
-    """tau of the whole run / tau of its first half, both averaged over replicas."""
+def _tau_growth(
+    x: FloatArray, stores: Sequence[Any], steps: int, whole: Sequence[float]
+) -> float | None:
+    """tau of the whole run / tau of its first half, both averaged over replicas.
+
+    ``whole`` holds the replicas' whole-run estimates (already computed); only the first
+    halves are transformed here.
+    """
     half = steps // 2
     if half < MIN_DRAWS:
         return None
-    whole = first = 0.0
+    first = 0.0
     row = 0
     for s in stores:
-        rows = x[row : row + s.walkers]
-        whole += integrated_time(rows)
-        first += integrated_time(rows[:, :half])
+        first += integrated_time(x[row : row + s.walkers, :half])
         row += s.walkers
-    if not (np.isfinite(whole) and np.isfinite(first)) or first <= 0:
+    total = float(np.sum(whole))
+    if not (np.isfinite(total) and np.isfinite(first)) or first <= 0:
         return None
-    return float(whole / first)
+    return float(total / first)
 
 
 def _nested_groups(stores: Sequence[Any]) -> int | None:
@@ -264,8 +272,12 @@ def _param_diagnostics(
             integrated_time_report(x[row : row + s.walkers], min_steps_per_tau=min_steps_per_tau)
         )
         row += s.walkers
-    tau = max(r.tau for r in reports)
-    growth = _tau_growth(x, stores, steps)
+    # the verdict's tau: mean of the replicas' estimates (each averages the ACF over its
+    # walkers, Foreman-Mackey et al. 2013); 4 replicas give 4 times the walkers of one
+    # estimate, so the mean is the less noisy estimate of the same tau; the largest is reported
+    tau = float(np.mean([r.tau for r in reports]))
+    tau_max = max(r.tau for r in reports)
+    growth = _tau_growth(x, stores, steps, [r.tau for r in reports])
     draws_total = x.size
     pooled = pooled_summary(x, work, overwrite=True)  # x holds normal scores afterwards
     groups = _nested_groups(stores)
@@ -293,6 +305,7 @@ def _param_diagnostics(
         "mcse_q05": _finite(pooled["mcse_q05"]),
         "mcse_q95": _finite(pooled["mcse_q95"]),
         "tau": _finite(tau),
+        "tau_max": _finite(tau_max),
         "tau_per_replica": [_finite(r.tau) for r in reports],
         "steps_per_tau": float(steps / tau) if tau > 0 else None,
         "tau_growth": growth,
@@ -309,7 +322,7 @@ MIN_STEPS = MIN_DRAWS
 def _move_kinds(stores: Sequence[Any]) -> list[str] | None:
     try:
         return [m.kind for m in stores[0].config.sampler.moves]
-    except AttributeError:  # in-memory replicas carry no config
+    except (AttributeError, ChainyardError):  # in-memory replicas, or no readable config
         return None
 
 

@@ -47,7 +47,8 @@ WHAT_EACH_CHECK_COMPARES = {
     "(replicas as superchains, walkers as chains; Margossian et al. 2024)",
     "rhat": "mixing (reported; gates only if max_rhat is set): split R-hat of one walker-mean "
     "trace per replica (Vehtari et al. 2021)",
-    "steps_per_tau": "tau: steps after burn-in / largest per-replica tau (walkers averaged; "
+    "steps_per_tau": "tau: steps after burn-in / tau (mean of the per-replica estimates, walkers "
+    "averaged; "
     "Foreman-Mackey et al. 2013)",
     "tau_growth": "tau: tau of the whole run / tau of its first half (pooled over replicas); "
     "above the limit tau is still growing",
