@@ -58,12 +58,17 @@ class StoreLock:
     fd : int or None
         While held: the OS file descriptor that holds the lock (a child process that
         inherits it keeps the store locked); None when not held.
+    read_only : bool
+        True after entering when the lock file is missing and its folder is on a read-only
+        file system: no process can write the store there, so none is taken (``fd`` stays
+        None); any write then fails with StorageFaultError (EROFS).
     """
 
     def __init__(self, store_path: str | Path) -> None:
         self.store_path = Path(store_path)
         self.path = lock_path(store_path)
         self.fd: int | None = None
+        self.read_only = False
         self._fallback: Any = None
 
     @property
@@ -92,12 +97,14 @@ class StoreLock:
                 return
             import fcntl
 
-            fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+            fd = self._open()
         except OSError as exc:
             raise StorageFaultError(
                 f"{self.path}: cannot create the store's lock file "
                 f"({exc.strerror or exc}); nothing was written"
             ) from None
+        if fd is None:
+            return  # read-only file system: nothing can write the store, no lock needed
         try:
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except OSError as exc:
@@ -108,6 +115,24 @@ class StoreLock:
                 f"{self.path}: cannot lock the store ({exc.strerror or exc}); nothing was written"
             ) from None
         self.fd = fd
+
+    def _open(self) -> int | None:
+        """A descriptor of the lock file to flock; None on a read-only file system without one.
+
+        An existing lock file that cannot be opened for writing (read-only file system, or
+        another user's file) is opened read-only: flock works on any descriptor.
+        """
+        try:
+            return os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        except OSError as exc:
+            if exc.errno not in (errno.EROFS, errno.EACCES):
+                raise
+            if self.path.exists():
+                return os.open(self.path, os.O_RDONLY)
+            if exc.errno == errno.EROFS:
+                self.read_only = True
+                return None
+            raise
 
     def _acquire_fallback(self) -> None:  # pragma: no cover - Windows only
         from filelock import FileLock, Timeout
@@ -127,6 +152,7 @@ class StoreLock:
 
     def release(self) -> None:
         """Give the lock up (nothing happens if it is not held)."""
+        self.read_only = False
         fd, self.fd = self.fd, None
         if fd is not None:
             os.close(fd)  # closing the last descriptor of the open file drops the flock
