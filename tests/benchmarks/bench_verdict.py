@@ -1,7 +1,10 @@
 """Operating characteristics of the verdict over many seeds (run on demand, not by pytest).
 
-    .venv/bin/python tests/benchmarks/bench_verdict.py               # full run, ~1 hour
+    .venv/bin/python tests/benchmarks/bench_verdict.py --jobs 2      # full run
     .venv/bin/python tests/benchmarks/bench_verdict.py --scale 0.25  # fewer seeds
+
+The full run judges 338 runs; it took ~35 min with two workers on a 2-core machine shared
+with other jobs (load average ~15), about a third of that when idle.
     .venv/bin/python tests/benchmarks/bench_verdict.py --measure-tau # the taus in runs.TAU
 
 Simulated runs (``tests/statistics/runs.py``: 4 replicas x 32 walkers, stretch move or a
@@ -32,6 +35,7 @@ import platform
 import subprocess
 import sys
 import time
+from dataclasses import asdict
 from importlib import metadata
 from pathlib import Path
 
@@ -41,6 +45,7 @@ HERE = Path(__file__).resolve().parent
 ROOT = HERE.parents[1]
 sys.path.insert(0, str(ROOT))
 
+from tests.statistics.judge import Judgement  # noqa: E402
 from tests.statistics.runs import FAMILIES, TAU, simulate, steps_for  # noqa: E402
 from tests.statistics.study import Cell, describe, mean_steps_kept, run_cell, wilson  # noqa: E402
 
@@ -48,7 +53,7 @@ MARK_START = "<!-- bench_verdict.py: start -->"
 MARK_END = "<!-- bench_verdict.py: end -->"
 
 #: (family, steps, label, seeds at scale 1)
-HEALTHY_SEEDS = {"gauss4_corr": 60, "banana": 30, "gamma3": 30}
+HEALTHY_SEEDS = {"gauss4_corr": 40, "banana": 12, "gamma3": 20}
 HEALTHY_LENGTHS = (50, 100, 200)
 
 
@@ -64,23 +69,23 @@ def plan(scale: float) -> list[tuple[str, int, str, int]]:
         for k in HEALTHY_LENGTHS:
             cells.append((fam, steps_for(fam, k), f"{k} steps/tau", n(seeds)))
     for steps, seeds in (
-        (1000, 10),
-        (2000, 10),
-        (4000, 10),
-        (8000, 10),
-        (16000, 8),
-        (32000, 6),
-        (64000, 4),
+        (1000, 6),
+        (2000, 6),
+        (4000, 6),
+        (8000, 5),
+        (16000, 4),
+        (32000, 3),
+        (64000, 2),
     ):
         cells.append(("eight_schools", steps, f"{steps:,} steps", n(seeds)))
     for steps in (2000, 8000):
-        cells.append(("bimodal", steps, f"{steps:,} steps", n(20)))
+        cells.append(("bimodal", steps, f"{steps:,} steps", n(10)))
     g = "healthy/gauss4_corr"
     for k in (100, 200):
-        cells.append(("stuck_walker", steps_for(g, k), f"{k} steps/tau", n(20)))
-        cells.append(("small_step", steps_for(g, k), f"{k} steps/tau of the stretch move", n(20)))
-    for k in (5, 10, 20, 50):
-        cells.append(("far_start", steps_for(g, k), f"{k} steps/tau", n(20)))
+        cells.append(("stuck_walker", steps_for(g, k), f"{k} steps/tau", n(10)))
+        cells.append(("small_step", steps_for(g, k), f"{k} steps/tau of the stretch move", n(10)))
+    for k in (5, 10, 20):
+        cells.append(("far_start", steps_for(g, k), f"{k} steps/tau", n(10)))
     return cells
 
 
@@ -227,11 +232,57 @@ def measure_tau() -> None:
         print(fam, "tau per parameter", taus.mean(0).round(1), "sd", taus.std(0).round(1))
 
 
+def to_json(cells: list[Cell]) -> list[dict]:
+    """Every run's outcome, JSON-ready (the cells' full content)."""
+    return [
+        {
+            "family": c.family,
+            "steps": c.steps,
+            "label": c.label,
+            "seconds": c.seconds,
+            "seeds": c.seeds,
+            "runs": [
+                {**asdict(r), "checks": sorted(r.checks), "covered": list(r.covered)}
+                for r in c.runs
+            ],
+        }
+        for c in cells
+    ]
+
+
+def from_json(items: list[dict]) -> list[Cell]:
+    """Cells back from :func:`to_json`."""
+    cells = []
+    for it in items:
+        runs = [Judgement(**{**r, "checks": set(r["checks"])}) for r in it["runs"]]
+        cells.append(Cell(it["family"], it["steps"], it["label"], it["seeds"], runs, it["seconds"]))
+    return cells
+
+
+def cost(cell: tuple[str, int, str, int]) -> float:
+    """Rough relative cost of a cell (draws judged)."""
+    family, steps, _, n = cell
+    return n * steps * FAMILIES[family].target.dim
+
+
+def split(cells: list[tuple[str, int, str, int]], jobs: int) -> list[list[int]]:
+    """Cell indices per job, balancing :func:`cost` greedily (largest first)."""
+    groups: list[list[int]] = [[] for _ in range(jobs)]
+    load = [0.0] * jobs
+    for i in sorted(range(len(cells)), key=lambda i: -cost(cells[i])):
+        k = load.index(min(load))
+        groups[k].append(i)
+        load[k] += cost(cells[i])
+    return [sorted(g) for g in groups]
+
+
 def main() -> None:
     """Command line."""
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--scale", type=float, default=1.0, help="multiply every seed count")
     ap.add_argument("--only", default="", help="comma-separated family prefixes to run")
+    ap.add_argument("--jobs", type=int, default=1, help="worker processes (cells split)")
+    ap.add_argument("--cells", default=None, help=argparse.SUPPRESS)  # a worker's share
     ap.add_argument("--output", type=Path, default=None, help="markdown file for the section")
     ap.add_argument("--json", type=Path, default=HERE / ".work" / "verdict-study.json")
     ap.add_argument("--measure-tau", action="store_true", help="print the healthy targets' tau")
@@ -242,47 +293,42 @@ def main() -> None:
     started = dt.datetime.now(dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
     rows = machine()
     t0 = time.perf_counter()
-    cells = []
     only = [p for p in args.only.split(",") if p]
-    for family, steps, label, n in plan(args.scale):
-        if only and not any(family.startswith(p) for p in only):
-            continue
-        cell = run_cell(family, steps, range(n), label)
-        cells.append(cell)
-        print(describe(cell), flush=True)
+    todo = [c for c in plan(args.scale) if not only or any(c[0].startswith(p) for p in only)]
+    args.json.parent.mkdir(parents=True, exist_ok=True)
+    if args.cells is not None:  # worker: run the given cells, write JSON only
+        cells = []
+        for i in (int(x) for x in args.cells.split(",") if x):
+            family, steps, label, n = todo[i]
+            cells.append(run_cell(family, steps, range(n), label))
+            print(describe(cells[-1]), flush=True)
+            args.json.write_text(json.dumps(to_json(cells)))
+        return
+    if args.jobs > 1:
+        procs = []
+        for k, group in enumerate(split(todo, args.jobs)):
+            part = args.json.with_suffix(f".part{k}.json")
+            cmd = [sys.executable, __file__, "--scale", str(args.scale), "--only", args.only]
+            cmd += ["--cells", ",".join(map(str, group)), "--json", str(part)]
+            procs.append((subprocess.Popen(cmd), part))
+        cells = []
+        for proc, part in procs:
+            if proc.wait() != 0:
+                raise SystemExit(f"worker failed: {proc.args}")
+            cells += from_json(json.loads(part.read_text()))
+            part.unlink()
+        order = {(f, s): i for i, (f, s, _, _) in enumerate(todo)}
+        cells.sort(key=lambda c: order[(c.family, c.steps)])
+    else:
+        cells = []
+        for family, steps, label, n in todo:
+            cells.append(run_cell(family, steps, range(n), label))
+            print(describe(cells[-1]), flush=True)
     seconds = time.perf_counter() - t0
     text = markdown(cells, started, seconds, args.scale, rows)
     output = args.output or (HERE / "RESULTS.md")
     write_section(output, text)
-    args.json.parent.mkdir(parents=True, exist_ok=True)
-    args.json.write_text(
-        json.dumps(
-            [
-                {
-                    "family": c.family,
-                    "steps": c.steps,
-                    "label": c.label,
-                    "runs": [
-                        {
-                            "seed": s,
-                            "ok": r.ok,
-                            "checks": sorted(r.checks),
-                            "biased": r.biased,
-                            "bias": r.bias_detail,
-                            "burn_in": r.burn_in,
-                            "kept": r.steps_kept,
-                            "warnings": r.warnings[:3],
-                            "lines": r.lines[:12],
-                            "stats": r.stats,
-                        }
-                        for s, r in zip(c.seeds, c.runs, strict=True)
-                    ],
-                }
-                for c in cells
-            ],
-            indent=1,
-        )
-    )
+    args.json.write_text(json.dumps(to_json(cells), indent=1))
     print(f"wrote {output} and {args.json} ({seconds / 60:.1f} min)")
 
 
