@@ -297,11 +297,25 @@ class Store(RowWriter):
 
     @property
     def config(self) -> Any:
-        """The run configuration the store was made with, as a :class:`RunConfig`."""
-        from chainyard.config import parse_config
+        """The run configuration the store was made with, as a :class:`RunConfig`.
 
-        base = Path(self._attrs.get("config_dir", "."))
-        return parse_config(self._attrs["config"], base_dir=base, source=f"{self.path} (stored)")
+        Raises
+        ------
+        StoreError
+            If the stored config is not a valid run config (the store is damaged).
+        """
+        from chainyard.config import parse_config
+        from chainyard.errors import ConfigError
+
+        base = Path(str(self._attrs.get("config_dir", ".")))
+        try:
+            source = f"{self.path} (stored)"
+            return parse_config(self._attrs["config"], base_dir=base, source=source)
+        except ConfigError as exc:  # the store's own record is damaged, not the user's config
+            raise StoreError(
+                f"{self.path}/zarr.json: attribute config is not a valid run config "
+                f"({exc.problems[0]}); the store is damaged"
+            ) from None
 
     # ------------------------------------------------------------------ reading
     def _node(self, node: str) -> zarr.Array:
