@@ -9,7 +9,7 @@ wrappers over them.
 
 from chainyard.analysis.decide import decide_burn_in, decide_thinning
 from chainyard.analysis.derive import derive_store
-from chainyard.analysis.diagnose import diagnose, format_table
+from chainyard.analysis.diagnose import diagnose, diagnose_arrays, format_table
 from chainyard.analysis.records import read_record, store_digest, write_record
 from chainyard.analysis.summary import summarise, write_summary_csv
 
@@ -18,6 +18,7 @@ __all__ = [
     "decide_thinning",
     "derive_store",
     "diagnose",
+    "diagnose_arrays",
     "format_table",
     "read_record",
     "store_digest",
