@@ -16,6 +16,7 @@ SUMMARY_COLUMNS = (
     "unit",
     "mean",
     "sd",
+    "mcse_sd",
     "mcse_mean",
     "q05",
     "mcse_q05",
@@ -24,6 +25,7 @@ SUMMARY_COLUMNS = (
     "mcse_q95",
     "ess_bulk",
     "ess_tail",
+    "rhat_nested",
     "rhat",
 )
 
