@@ -46,8 +46,18 @@ flags replica means that differ by more than about ``0.14`` posterior sd (for 4 
 
 Threshold: the paper uses ``nested R-hat < 1 + delta`` and studies ``delta = 0.01``
 (from memory; the paper relates ``delta`` to the required precision of the superchain
-means); chainyard's default ``max_nested_rhat = 1.01`` follows it and was checked by
-simulation (see :mod:`chainyard.decisions.targets`).
+means); chainyard's default ``max_nested_rhat = 1.01`` follows it. Simulations (emcee stretch
+move, 4 replicas x 32 walkers, 4-D standard normal started at the target, tau ~48 steps;
+measured in this project): the largest nested R-hat over parameters was at most 1.0011 at 40,
+80 and 160 steps per tau (23 runs), i.e. far from 1.01, as the derivation predicts; replicas
+holding different shares of two modes give values far above it. What nested R-hat cannot see
+is a bias shared by all replicas: on centred eight schools (all replicas under-visit the
+funnel's neck alike) it stayed at 1.0006-1.0087 from 1,000 to 64,000 steps while the classic
+walker-mean R-hat was 1.04-1.35; that run is caught by the tau checks
+(:mod:`chainyard.decisions.targets`).
+
+Replicas with different numbers of walkers cannot form equal superchains; :func:`diagnose`
+then reports no nested R-hat (and the mixing check fails as "missing").
 """
 
 from __future__ import annotations
