@@ -172,3 +172,38 @@ def test_empty_input_raises() -> None:
     """An empty diagnostics mapping raises ValueError."""
     with pytest.raises(ValueError):
         assess({})
+
+
+def test_stuck_walker_fails_mixing() -> None:
+    """A stuck walker fails the run (mixing), even with every per-parameter number fine."""
+    diag = {
+        "a": {
+            "rhat_nested": 1.0,
+            "ess_bulk": 1e4,
+            "ess_tail": 1e4,
+            "steps_per_tau": 100.0,
+            "tau_growth": 1.0,
+        }
+    }
+    assert assess(diag, stuck_walkers={0: [], 1: []}).ok
+    verdict = assess(diag, stuck_walkers={0: [3], 2: [1, 5]})
+    assert not verdict.ok and verdict.checks["mixing"] is False
+    assert verdict.lines[0].startswith("Overall: FAIL (0 of 1 parameters failed; stuck walkers")
+    assert (
+        "FAIL: stuck walkers (acceptance far below their ensemble): replica 0: walker 3; "
+        "replica 2: walkers 1, 5"
+    ) in verdict.lines
+    assert verdict.to_dict()["stuck_walkers"] == {"0": [3], "2": [1, 5]}
+
+
+def test_diagnose_arrays_fails_a_run_with_a_stuck_walker() -> None:
+    """diagnose_arrays with acceptance flags: a walker accepting 1% among 60% fails the run."""
+    from chainyard.analysis.diagnose import diagnose_arrays
+
+    rng = np.random.default_rng(9)
+    draws = rng.standard_normal((4, 400, 16, 2))
+    accepted = rng.random((4, 400, 16)) < 0.6
+    assert diagnose_arrays(draws, accepted=accepted)["verdict"]["ok"]
+    accepted[1, :, 7] = rng.random(400) < 0.01
+    verdict = diagnose_arrays(draws, accepted=accepted)["verdict"]
+    assert not verdict["ok"] and verdict["stuck_walkers"] == {"1": [7]}

@@ -406,6 +406,7 @@ def diagnose(
         multivariate_ess=multivariate["ess"],
         n_params=len(names),
         steps=steps,
+        stuck_walkers={a["replica"]: a["stuck_walkers"] for a in acceptance},
     )
     bad_acceptance = [a for a in acceptance if a["messages"]]
     return {

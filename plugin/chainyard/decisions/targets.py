@@ -39,7 +39,7 @@ estimate (both hold for a stationary chain; a growing tau makes the estimate a l
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -109,6 +109,7 @@ class Verdict:
     checks: dict[str, bool] = field(hash=False, default_factory=dict)
     steps: int | None = None
     more_steps: int | None = None
+    stuck_walkers: dict[int, list[int]] = field(hash=False, default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         """Return a JSON-serialisable dict."""
@@ -117,6 +118,7 @@ class Verdict:
             "checks": dict(self.checks),
             "steps": self.steps,
             "more_steps": self.more_steps,
+            "stuck_walkers": {str(r): list(ws) for r, ws in self.stuck_walkers.items()},
             "params": {
                 name: {
                     "ok": c.ok,
@@ -290,6 +292,7 @@ def assess(
     multivariate_ess: float | None = None,
     n_params: int | None = None,
     steps: int | None = None,
+    stuck_walkers: Mapping[int, Sequence[int]] | None = None,
 ) -> Verdict:
     """Check per-parameter diagnostics against targets, question by question.
 
@@ -309,6 +312,9 @@ def assess(
         Dimension for ``min_ess``; defaults to the number of parameters given.
     steps : int, optional
         Steps per walker after burn-in; enables the estimate of the steps still needed.
+    stuck_walkers : mapping of int to sequence of int, optional
+        Stuck walkers per replica (:func:`chainyard.diagnostics.acceptance_report`); any
+        fails the mixing question: a walker that stopped moving does not sample the target.
 
     Returns
     -------
@@ -330,6 +336,9 @@ def assess(
         if steps is not None and value is not None and math.isfinite(value) and value > 0:
             needed.append(math.ceil(steps * mess["required"] / value))
     more_steps = max(needed) - steps if needed and steps is not None else None
+    stuck = {int(r): [int(w) for w in ws] for r, ws in (stuck_walkers or {}).items() if len(ws)}
+    if stuck:
+        checks["mixing"] = False
     lines: list[str] = []
     for check in params.values():
         if check.ok:
@@ -339,12 +348,22 @@ def assess(
             lines.append(f"{check.name}: FAIL " + "; ".join(check.failures))
     if mess is not None:
         lines.append(("ok: " if mess["ok"] else "FAIL: ") + mess["line"])
+    if stuck:
+        shown = "; ".join(
+            f"replica {r}: walker{'s' if len(ws) > 1 else ''} "
+            + ", ".join(map(str, ws[:10]))
+            + (" ..." if len(ws) > 10 else "")
+            for r, ws in sorted(stuck.items())
+        )
+        lines.append(f"FAIL: stuck walkers (acceptance far below their ensemble): {shown}")
     n_fail = sum(not c.ok for c in params.values())
-    ok = n_fail == 0 and (mess is None or mess["ok"])
+    ok = n_fail == 0 and (mess is None or mess["ok"]) and not stuck
     summary = f"Overall: {'ok' if ok else 'FAIL'} ({n_fail} of {len(params)} parameters failed"
     if mess is not None and not mess["ok"]:
         summary += "; multivariate ESS below target"
+    if stuck:
+        summary += "; stuck walkers"
     summary += "; " + ", ".join(f"{q} {'ok' if checks[q] else 'FAIL'}" for q in QUESTIONS)
     lines.insert(0, summary + ")")
     lines.extend(_advice(checks, more_steps, steps))
-    return Verdict(ok, params, mess, tuple(lines), checks, steps, more_steps)
+    return Verdict(ok, params, mess, tuple(lines), checks, steps, more_steps, stuck)
