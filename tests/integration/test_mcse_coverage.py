@@ -23,14 +23,15 @@ RUNS = 50
 
 @pytest.mark.slow
 def test_mcse_interval_covers_true_mean_about_90_percent(tmp_path: Path) -> None:
-    """Over 50 seeds, mean +- 1.645 MCSE covers the true mean 0 in about 90% of runs.
+    """Over 50 seeds, mean +- 1.645 MCSE covers the true mean 0, and sd +- 1.645 mcse_sd the
+    true sd 1, in about 90% of runs.
 
-    Analytic: the target is N(0, I), so the true mean is 0. Tolerance: binomial sd of the
-    coverage over 50 runs is sqrt(0.9 * 0.1 / 50) = 0.042; we accept 0.74-1.0 (about 4 sd
-    below; a badly optimistic MCSE gives far lower coverage).
+    Analytic: the target is N(0, I), so the true mean is 0 and the true sd 1. Tolerance:
+    binomial sd of the coverage over 50 runs is sqrt(0.9 * 0.1 / 50) = 0.042; we accept
+    0.74-1.0 (about 4 sd below; a badly optimistic MCSE gives far lower coverage).
     """
     (tmp_path / "model.py").write_text(MODEL)
-    covered = 0
+    covered = covered_sd = 0
     for seed in range(RUNS):
         cfg = chainyard.parse_config(
             {
@@ -49,4 +50,6 @@ def test_mcse_interval_covers_true_mean_about_90_percent(tmp_path: Path) -> None
                                  stream=io.StringIO())
         d = diagnose([StoreWindow(store, 200)])["params"]["x"]
         covered += abs(d["mean"]) < 1.645 * d["mcse_mean"]
+        covered_sd += abs(d["sd"] - 1.0) < 1.645 * d["mcse_sd"]
     assert 0.74 <= covered / RUNS <= 1.0, covered / RUNS
+    assert 0.74 <= covered_sd / RUNS <= 1.0, covered_sd / RUNS
