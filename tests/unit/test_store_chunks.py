@@ -123,3 +123,14 @@ def test_sampled_store_chunks_equal_zarr_rewrite(tmp_path: Path, codec: str):
             ours = (store.path / key).read_bytes()
             theirs = (tmp_path / "ref.zarr" / name / key[len(node) + 1 :]).read_bytes()
             assert ours == theirs, f"{codec}: {key} differs from zarr's encoding"
+
+
+def test_failed_write_leaves_no_partial_file(tmp_path: Path):
+    """A chunk write that fails (the target is a non-empty folder: rename refused) removes its
+    temporary file and re-raises the OSError naming the chunk (common practice, no source)."""
+    target = tmp_path / "c" / "0"
+    (target / "inner").mkdir(parents=True)
+    with pytest.raises(OSError) as err:
+        write_chunk_file(target, b"x" * 1000, fsync=True)
+    assert list((tmp_path / "c").iterdir()) == [target]
+    assert err.value.filename is not None
