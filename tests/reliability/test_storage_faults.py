@@ -43,9 +43,9 @@ STEPS = 3000
 HALF = 1000
 
 #: known product bugs (strict: the mark must go when the fix lands); owners in the reasons
-NO_PATH = "store/cli/provenance: ENOSPC/EFBIG line does not name the path (to-store.md)"
-TMP_LEFT = "provenance: atomic_write_json leaves .commit.json.PID.tmp after a failed write"
+PACK_NO_PATH = "provenance: pack's ENOSPC line does not name the output (to-provenance.md)"
 HELPER_EXIT_4 = "engine: ENOSPC in the commit helper exits 4 (StoreError), not 8"
+SHM_EFBIG = "engine: EFBIG from ftruncate of the helper's shared memory is fatal, unnamed"
 
 #: a vectorised Gaussian that takes ~0.3 ms per call (two calls per step), so that a run
 #: lasts long enough for the commit helper process to take over before the fault
@@ -154,7 +154,6 @@ def rerun_completes(work: Path, cfg: str, out: Path) -> None:
 
 
 # ------------------------------------------------------------------ disk full
-@pytest.mark.xfail(strict=True, reason=NO_PATH)
 def test_disk_full_at_store_creation(work: Path, mnt: Path, tally) -> None:
     """ENOSPC while the store is created: exit 8, one line naming the store, nothing left
     half-made; after space is freed the run completes bit-identically and verifies."""
@@ -171,9 +170,7 @@ def test_disk_full_at_store_creation(work: Path, mnt: Path, tally) -> None:
 @pytest.mark.parametrize(
     "writer",
     [
-        pytest.param(
-            "thread", marks=pytest.mark.xfail(strict=True, reason=f"{NO_PATH}; {TMP_LEFT}")
-        ),
+        "thread",
         pytest.param("process", marks=pytest.mark.xfail(strict=True, reason=HELPER_EXIT_4)),
     ],
 )
@@ -197,8 +194,10 @@ def test_disk_full_during_commits(writer: str, work: Path, mnt: Path, tally) -> 
     rerun_completes(work, f"{writer}.yaml", out)
 
 
-@pytest.mark.xfail(strict=True, reason=NO_PATH)
-@pytest.mark.parametrize("command", ["derive", "pack"])
+@pytest.mark.parametrize(
+    "command",
+    ["derive", pytest.param("pack", marks=pytest.mark.xfail(strict=True, reason=PACK_NO_PATH))],
+)
 def test_disk_full_during_derive_or_pack(command: str, work: Path, mnt: Path, tally) -> None:
     """ENOSPC while derive or pack writes its output: exit 8, one line naming the output,
     no output and no temporary files left, the source untouched; after space is freed the
@@ -223,9 +222,6 @@ def test_disk_full_during_derive_or_pack(command: str, work: Path, mnt: Path, ta
 
 
 # ------------------------------------------------------------------ read-only
-@pytest.mark.xfail(
-    strict=True, reason="store/engine: the lock file cannot be made on a read-only mount: exit 8"
-)
 def test_read_only_complete_store(work: Path, mnt: Path, tally) -> None:
     """A complete store on a read-only file system: sample says there is nothing to do and
     exits 0 without writing; inspect, verify and diagnose read it and exit 0."""
@@ -266,8 +262,10 @@ def _largest_file(path: Path) -> int:
     return max(p.stat().st_size for p in path.rglob("*") if p.is_file())
 
 
-@pytest.mark.xfail(strict=True, reason=f"{NO_PATH}; {TMP_LEFT}")
-@pytest.mark.parametrize("writer", ["thread", "process"])
+@pytest.mark.parametrize(
+    "writer",
+    ["thread", pytest.param("process", marks=pytest.mark.xfail(strict=True, reason=SHM_EFBIG))],
+)
 def test_file_size_limit_during_sampling(writer: str, work: Path, tmp_path: Path, tally) -> None:
     """``ulimit -f`` just above the largest file of a half-done store: extending it hits
     EFBIG; the run (not killed by SIGXFSZ, commit helper or not) exits 8 with one line naming
@@ -287,9 +285,7 @@ def test_file_size_limit_during_sampling(writer: str, work: Path, tmp_path: Path
     rerun_completes(work, f"{writer}.yaml", out)
 
 
-@pytest.mark.xfail(
-    strict=True, reason="engine: EFBIG from ftruncate of the helper's shared memory is fatal"
-)
+@pytest.mark.xfail(strict=True, reason=SHM_EFBIG)
 def test_file_size_limit_below_shared_memory(work: Path, tmp_path: Path, tally) -> None:
     """``ulimit -f`` above every store file but below the commit helper's shared memory
     (commits of up to 2,000 steps): the run falls back to committing on a thread and
