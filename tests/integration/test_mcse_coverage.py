@@ -46,8 +46,9 @@ def test_mcse_interval_covers_true_mean_about_90_percent(tmp_path: Path) -> None
             },
             base_dir=tmp_path,
         )
-        store = chainyard.sample(cfg, tmp_path / f"s{seed}.zarr", progress="off",
-                                 stream=io.StringIO())
+        store = chainyard.sample(
+            cfg, tmp_path / f"s{seed}.zarr", progress="off", stream=io.StringIO()
+        )
         d = diagnose([StoreWindow(store, 200)])["params"]["x"]
         covered += abs(d["mean"]) < 1.645 * d["mcse_mean"]
         covered_sd += abs(d["sd"] - 1.0) < 1.645 * d["mcse_sd"]
