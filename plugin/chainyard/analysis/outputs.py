@@ -18,6 +18,7 @@ output, and only those names.
 from __future__ import annotations
 
 import ctypes
+import errno
 import json
 import os
 import re
@@ -27,7 +28,7 @@ from contextlib import contextmanager
 from pathlib import Path
 
 from chainyard import testhooks
-from chainyard.errors import StoreError
+from chainyard.errors import StorageFaultError, StoreError
 from chainyard.store import writer_lock
 from chainyard.store.files import fsync_dir
 from chainyard.store.layout import ATTRS_KEY, FORMAT_NAME
@@ -166,6 +167,34 @@ def _swap_in(tmp: Path, target: Path) -> None:
     fsync_dir(target.parent)
 
 
+#: errno -> what the file system refused (the faults reported with exit 8)
+_FAULTS = {
+    errno.ENOSPC: "no space left on the device",
+    errno.EDQUOT: "disk quota exceeded",
+    errno.EFBIG: "file too large for the file-size limit",
+    errno.EROFS: "read-only file system",
+    errno.EIO: "input/output error",
+    errno.EACCES: "permission denied",
+    errno.EPERM: "operation not permitted",
+}
+
+
+def _storage_fault(exc: BaseException, out: Path) -> StorageFaultError | None:
+    """A one-line StorageFaultError naming ``out`` for a file-system refusal; else None."""
+    if isinstance(exc, StorageFaultError):  # raised by the store for its temporary copy
+        cause = exc.__cause__ or exc.__context__
+        if not isinstance(cause, OSError) or cause.errno not in _FAULTS:
+            return StorageFaultError(f"{out}: {exc}")
+        exc = cause
+    if not isinstance(exc, OSError) or exc.errno not in _FAULTS:
+        return None
+    name = errno.errorcode.get(exc.errno, str(exc.errno))
+    return StorageFaultError(
+        f"{out}: the file system refused while writing the derived store: "
+        f"{_FAULTS[exc.errno]} ({name}); nothing was replaced and the temporary copy was removed"
+    )
+
+
 @contextmanager
 def publish_derived(out: Path, *, source: Path | None) -> Iterator[Path]:
     """Write a derived store to a temporary sibling of ``out``, then swap it in.
@@ -188,6 +217,8 @@ def publish_derived(out: Path, *, source: Path | None) -> Iterator[Path]:
         If ``out`` is refused (exit 4).
     StoreLockedError
         If another process is writing ``out`` (exit 6).
+    StorageFaultError
+        If the file system refuses a write (exit 8); the previous store is left as it was.
     """
     target = _check_target(out, source)
     _check_existing(out, target)  # before the lock file is made beside it; again under it
@@ -199,8 +230,11 @@ def publish_derived(out: Path, *, source: Path | None) -> Iterator[Path]:
             yield tmp
             testhooks.instant("derive-before-publish")
             _swap_in(tmp, target)
-        except BaseException:
+        except BaseException as exc:
             _remove(tmp)
+            fault = _storage_fault(exc, out)
+            if fault is not None:
+                raise fault from None
             raise
 
 

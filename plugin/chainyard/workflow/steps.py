@@ -66,23 +66,33 @@ def link_tree(source: Path, target: Path) -> None:
                 shutil.copy2(src, dst)
 
 
-def sample_step(settings: str, base_dir: str, replica: int, resumable: str, output: str,
-                progress_interval: float = 10.0) -> None:
+def sample_step(
+    settings: str,
+    base_dir: str,
+    replica: int,
+    resumable: str,
+    output: str,
+    progress_interval: float = 10.0,
+) -> None:
     """Sample (or resume, or extend) one replica, then publish it at ``output``.
 
     If the resumable store was made with different settings (the rule reran because the model,
     data or a sampling setting changed), it is discarded and sampling starts over; the log
     says why.
     """
-    config = parse_config(json.loads(settings), base_dir=Path(base_dir),
-                          source="run settings")
+    config = parse_config(json.loads(settings), base_dir=Path(base_dir), source="run settings")
     try:
         sample(config, resumable, replica, progress="log", progress_interval=progress_interval)
     except StoreConflictError as exc:
-        print(f"chainyard: {exc}; the workflow changed these settings: starting over",
-              flush=True)
-        sample(config, resumable, replica, restart=True, progress="log",
-               progress_interval=progress_interval)
+        print(f"chainyard: {exc}; the workflow changed these settings: starting over", flush=True)
+        sample(
+            config,
+            resumable,
+            replica,
+            restart=True,
+            progress="log",
+            progress_interval=progress_interval,
+        )
     link_tree(Path(resumable), Path(output))
 
 
@@ -98,8 +108,9 @@ def decide_step(what: str, policy: str, stores: Sequence[str], output: str) -> N
         spec = TypeAdapter(ThinningSpec).validate_python(json.loads(policy))
         decision = decide_thinning(replicas, spec)
         kind = THINNING_KIND
-    write_record(output, kind, {"decision": decision.to_dict(), "policy": json.loads(policy)},
-                 replicas)
+    write_record(
+        output, kind, {"decision": decision.to_dict(), "policy": json.loads(policy)}, replicas
+    )
     print(decision.reason, flush=True)
 
 
@@ -111,14 +122,18 @@ def derive_step(source: str, record: str, what: str, output: str) -> None:
     else:
         rec = read_record(record, THINNING_KIND)
         discard, factor = 0, int(rec["decision"]["factor"])
-    store = derive_store(Store.open(source), output, discard=discard, factor=factor,
-                         records=[Path(record)])
-    print(f"{output}: {store.steps_done:,} steps (discarded {discard:,}, kept every {factor})",
-          flush=True)
+    store = derive_store(
+        Store.open(source), output, discard=discard, factor=factor, records=[Path(record)]
+    )
+    print(
+        f"{output}: {store.steps_done:,} steps (discarded {discard:,}, kept every {factor})",
+        flush=True,
+    )
 
 
-def diagnose_step(stores: Sequence[str], targets: str, run: str, json_out: str,
-                  table_out: str) -> dict[str, Any]:
+def diagnose_step(
+    stores: Sequence[str], targets: str, run: str, json_out: str, table_out: str
+) -> dict[str, Any]:
     """Diagnostics and verdict across replicas: a JSON record and a text table."""
     replicas = open_replicas(stores)
     spec = TargetsSpec.model_validate(json.loads(targets))
@@ -136,8 +151,13 @@ def summary_step(stores: Sequence[str], diagnostics: str, output: str) -> None:
     write_summary_csv(summarise(open_replicas(stores), rec), output)
 
 
-def plot_step(raw: Sequence[str], final: Sequence[str], burn_in: str, diagnostics: str,
-              outputs: dict[str, str]) -> None:
+def plot_step(
+    raw: Sequence[str],
+    final: Sequence[str],
+    burn_in: str,
+    diagnostics: str,
+    outputs: dict[str, str],
+) -> None:
     """All plots of one run (see :mod:`chainyard.report.plots`)."""
     from chainyard.report.plots import (
         acceptance_plot,
@@ -151,6 +171,6 @@ def plot_step(raw: Sequence[str], final: Sequence[str], burn_in: str, diagnostic
     cut = int(read_record(burn_in, BURN_IN_KIND)["decision"]["steps_discarded"])
     diag = read_record(diagnostics, DIAGNOSTICS_KIND)
     trace_plot(raw_stores, cut, outputs["traces"])
-    tau_history_plot(raw_stores, outputs["tau"])
+    tau_history_plot(final_stores, outputs["tau"], diagnostics=diag)
     pairs_plot(final_stores, outputs["pairs"])
     acceptance_plot(raw_stores, outputs["acceptance"], diag)
