@@ -24,7 +24,7 @@ import os
 import re
 import shutil
 from collections.abc import Iterator
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from pathlib import Path
 
 from chainyard import testhooks
@@ -154,17 +154,25 @@ def _renameat2(src: Path, dst: Path, flags: int) -> bool:
 
 def _swap_in(tmp: Path, target: Path) -> None:
     """Put the finished store ``tmp`` at ``target``; remove the store it replaces."""
+    old = None
     if os.path.lexists(target):
         if _renameat2(tmp, target, _RENAME_EXCHANGE):
-            _remove(tmp)  # now the old store
+            old = tmp  # now holds the replaced store
         else:
             old = tmp.with_suffix(".old")
             os.rename(target, old)
             os.rename(tmp, target)
-            _remove(old)
     elif not _renameat2(tmp, target, _RENAME_NOREPLACE):
         os.rename(tmp, target)
     fsync_dir(target.parent)
+    if old is not None:
+        _remove_quietly(old)  # the new store is in place; a leftover goes with the next derive
+
+
+def _remove_quietly(path: Path) -> None:
+    """Remove ``path`` if possible (a temporary sibling; the next derive retries)."""
+    with suppress(OSError):
+        _remove(path)
 
 
 #: errno -> what the file system refused (the faults reported with exit 8)
@@ -231,7 +239,7 @@ def publish_derived(out: Path, *, source: Path | None) -> Iterator[Path]:
             testhooks.instant("derive-before-publish")
             _swap_in(tmp, target)
         except BaseException as exc:
-            _remove(tmp)
+            _remove_quietly(tmp)
             fault = _storage_fault(exc, out)
             if fault is not None:
                 raise fault from None
