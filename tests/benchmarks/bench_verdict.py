@@ -47,7 +47,14 @@ sys.path.insert(0, str(ROOT))
 
 from tests.statistics.judge import Judgement  # noqa: E402
 from tests.statistics.runs import FAMILIES, TAU, simulate, steps_for  # noqa: E402
-from tests.statistics.study import Cell, describe, mean_steps_kept, run_cell, wilson  # noqa: E402
+from tests.statistics.study import (  # noqa: E402
+    Cell,
+    describe,
+    mean_steps_kept,
+    quantiles,
+    run_cell,
+    wilson,
+)
 
 MARK_START = "<!-- bench_verdict.py: start -->"
 MARK_END = "<!-- bench_verdict.py: end -->"
@@ -164,6 +171,17 @@ def markdown(cells: list[Cell], started: str, seconds: float, scale: float, rows
         "biased | biased but ok | checks fired (runs) | acceptance warnings | 90% MCSE coverage |",
         "|---|---|---|---|---|---|---|---|---|---|---|---|---|",
     ]
+    margins = [
+        "",
+        "### Margins: the gating statistics over runs (per run: the extreme over parameters)",
+        "",
+        "Limits: nested R-hat <= 1.01, tau growth <= 1.3, steps per tau >= 50, ESS >= 400 "
+        "(defaults). Classic R-hat (walker-mean traces, reported, not gating) for comparison.",
+        "",
+        "| family | length | nested R-hat median / max | tau growth median / 95% / max | "
+        "steps per tau median / min | bulk ESS median / min | classic R-hat median / max |",
+        "|---|---|---|---|---|---|---|",
+    ]
     for c in cells:
         lo, hi = wilson(c.failed, c.n)
         g, met = goal(c)
@@ -176,6 +194,13 @@ def markdown(cells: list[Cell], started: str, seconds: float, scale: float, rows
             f"{'yes' if met else '**no**'} | {c.biased} | {len(c.biased_ok)} | {checks} | "
             f"{c.warned()} | {cover} |"
         )
+        margins.append(
+            f"| {c.family} | {c.label} | {quantiles(c, 'rhat_nested', (0.5, 1.0))} | "
+            f"{quantiles(c, 'tau_growth', (0.5, 0.95, 1.0))} | "
+            f"{quantiles(c, 'steps_per_tau', (0.5, 0.0))} | {quantiles(c, 'ess_bulk', (0.5, 0.0))} "
+            f"| {quantiles(c, 'rhat', (0.5, 1.0))} |"
+        )
+    out += margins
     healthy = [c for c in cells if c.family.startswith("healthy/")]
     cov = sum(c.coverage()[0] for c in healthy)
     tot = sum(c.coverage()[1] for c in healthy)
@@ -286,9 +311,20 @@ def main() -> None:
     ap.add_argument("--output", type=Path, default=None, help="markdown file for the section")
     ap.add_argument("--json", type=Path, default=HERE / ".work" / "verdict-study.json")
     ap.add_argument("--measure-tau", action="store_true", help="print the healthy targets' tau")
+    ap.add_argument("--from-json", type=Path, default=None, help="rewrite the section from JSON")
+    ap.add_argument("--started", default="", help="with --from-json: when the runs started")
+    ap.add_argument("--minutes", type=float, default=0.0, help="with --from-json: wall time")
+    ap.add_argument("--chainyard", default="", help="with --from-json: which chainyard ran")
     args = ap.parse_args()
     if args.measure_tau:
         measure_tau()
+        return
+    if args.from_json:
+        cells = from_json(json.loads(args.from_json.read_text()))
+        rows = [r for r in machine() if not r.startswith(("| chainyard", "| load"))]
+        rows.append(f"| chainyard | {args.chainyard} |")
+        text = markdown(cells, args.started, 60 * args.minutes, args.scale, rows)
+        write_section(args.output or (HERE / "RESULTS.md"), text)
         return
     started = dt.datetime.now(dt.UTC).strftime("%Y-%m-%d %H:%M UTC")
     rows = machine()

@@ -156,6 +156,8 @@ def judge(
     checks: set[str] = set()
     for p in verdict["params"].values():
         checks.update(check_name(f) for f in p["failures"])
+    if any(verdict.get("stuck_walkers", {}).values()):
+        checks.add("stuck walkers")
     run_level = verdict.get("checks")  # {question: passed}: named only if no failure line is
     if isinstance(run_level, dict) and not checks:
         checks.update(f"run:{k}" for k, v in run_level.items() if v is False)

@@ -152,7 +152,7 @@ def quantiles(cell: Cell, key: str, qs: tuple[float, ...] = (0.5, 0.95)) -> str:
     v = [x for x in v if x is not None]
     if not v:
         return "-"
-    return "/".join(f"{np.quantile(v, q):.4g}" for q in qs)
+    return " / ".join(f"{np.quantile(v, q):.4g}" for q in qs)
 
 
 def mean_steps_kept(cell: Cell) -> float:
