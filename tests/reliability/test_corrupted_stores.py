@@ -593,3 +593,27 @@ def test_declared_chunk_size_allocates_nothing(bases: dict[str, Path], tmp_path:
         intact, damaged = peak(bases["complete"], command), peak(store, command)
         # a decoded chunk of 500000 x 8 x 2 float64 would add 64,000 kB
         assert damaged < intact + 20_000, (command, intact, damaged)
+
+
+@pytest.mark.slow
+def test_resume_check_accepts_rows_past_the_commit(
+    bases: dict[str, Path], tmp_path: Path, tally: Tally
+) -> None:
+    """A run killed after rewriting its partial last chunk (rows past the commit, record not
+    replaced) is not taken for damage: the resume check compares the committed rows, and the
+    resumed store equals the uninterrupted one."""
+    from tests.conftest import assert_same_store
+
+    store = tmp_path / "p.zarr"
+    shutil.copytree(bases["partial"], store)
+    last = chunk(POS, 2)
+    before = (store / last).read_bytes()
+    env = {"CHAINYARD_TEST_KILL_AT": "chunks-written:1"}
+    args = ("sample", str(bases["config"]), "--out", str(store), "--progress", "off")
+    assert cli(*args, env=env).returncode == -9
+    assert (store / last).read_bytes() != before  # the killed run rewrote the partial chunk
+    assert Store.open(store).steps_done == 250
+    res = cli(*args)
+    assert res.returncode == 0, res.stderr
+    assert_same_store(store, bases["complete"])
+    tally.killed()
