@@ -17,6 +17,7 @@ from numpy.typing import NDArray
 from chainyard.engine.buffer import update_checksums
 from chainyard.provenance import utc_now
 from chainyard.store import Store
+from chainyard.testhooks import instant
 
 __all__ = ["CommitJob", "apply_commit"]
 
@@ -67,7 +68,9 @@ def apply_commit(store: Store, rows: Mapping[str, NDArray[Any]], job: CommitJob)
     The record is built on the store's committed record as it is on disk now, so commits
     made by another writer of this run (the thread before a commit process took over) are
     carried forward. The rename of ``commit.json`` inside :meth:`Store.commit` is the
-    commit point.
+    commit point. The test-only kill instants ``chunks-written`` and ``commit-replaced``
+    (:mod:`chainyard.testhooks`) sit just before and after it, in whichever process runs
+    this (the helper process inherits ``CHAINYARD_TEST_KILL_AT`` and counts on its own).
     """
     store.reload_commit()
     record = store.commit_record
@@ -94,4 +97,6 @@ def apply_commit(store: Store, rows: Mapping[str, NDArray[Any]], job: CommitJob)
         "updated_utc": now,
         "segments": segments,
     }
+    instant("chunks-written")  # test-only kill point: rows flushed, record not replaced
     store.commit(new, fsync=job.fsync)
+    instant("commit-replaced")

@@ -3,7 +3,8 @@
 Started as ``python -m chainyard.engine.commit_process STORE MEM_FD MEM_SIZE PARENT_PID``.
 Each line on standard input is a JSON job ``{"op": "commit", "job": {...}, "rows": [[name,
 dtype, shape, offset], ...]}`` whose rows lie in the shared memory ``MEM_FD``; each reply is
-one JSON line (``{"ok": true}`` or ``{"error": "..."}``). ``{"op": "exit"}`` or the end of
+one JSON line (``{"ok": true}``, ``{"storage_fault": "PATH: ERROR"}`` when the file system
+refused a write, or ``{"error": "..."}``). ``{"op": "exit"}`` or the end of
 input stops it. It ignores SIGINT and SIGTERM (the run loop decides when to stop and
 commits first), runs at a lower scheduling priority than the sampler, and is killed by the
 kernel the moment the run loop's process dies, so it never writes to a store whose lock has
@@ -39,16 +40,30 @@ def _send(message: dict[str, Any]) -> None:
     sys.stdout.buffer.flush()
 
 
+def _fault_text(exc: Exception) -> str:
+    """One line naming the path and the system error of a refused write."""
+    if isinstance(exc, OSError):
+        import errno
+
+        name = errno.errorcode.get(exc.errno or 0, str(exc.errno))
+        return f"{exc.filename or '?'}: the file system refused ({exc.strerror or exc} [{name}])"
+    return str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+
+
 def main(argv: list[str]) -> int:
     """Serve commit jobs until told to stop; see the module docstring."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     signal.signal(signal.SIGTERM, signal.SIG_IGN)
+    # subprocess restores SIGXFSZ's default (kill) in children: a write past ``ulimit -f``
+    # must fail with EFBIG and be reported instead
+    signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
     path, fd, size, parent = argv
     _die_with_parent(int(parent))
     with contextlib.suppress(OSError):  # competing for a core, the sampler goes first
         os.nice(10)
 
     from chainyard.engine.commit import CommitJob, apply_commit
+    from chainyard.errors import StorageFaultError
     from chainyard.store import Store
 
     mem = mmap.mmap(int(fd), int(size))
@@ -68,6 +83,8 @@ def main(argv: list[str]) -> int:
             apply_commit(store, rows, CommitJob.from_json(message["job"]))
             del rows
             _send({"ok": True})
+        except (OSError, StorageFaultError) as exc:  # the file system refused
+            _send({"storage_fault": _fault_text(exc)})
         except Exception as exc:  # reported to the run loop, which raises it there
             _send({"error": f"{type(exc).__name__}: {exc}"})
     # every commit is on disk and answered: leave at once, without the interpreter's

@@ -3,102 +3,63 @@
 ``sample`` is the only entry point. It validates everything that can be checked before a
 byte is written (model, data, initial state), takes the store's single-writer lock, compares
 an existing store's identity with the requested run, and then advances the sampler,
-committing by step count and by wall time (whichever first). SIGTERM and SIGINT commit the
-finished steps before the process exits, so a wall-time limit loses nothing; SIGKILL loses
-at most the steps since the last commit.
+committing by step count and by wall time (whichever first; :mod:`chainyard.engine.loop`).
+SIGTERM and SIGINT commit the finished steps before the process exits, so a wall-time limit
+loses nothing; a step still running ``STOP_GRACE_SECONDS`` after the signal is abandoned
+(:mod:`chainyard.engine.stopping`). SIGKILL loses at most the steps since the last commit.
+
+What is at the store path decides what happens (:func:`chainyard.engine.guards.path_state`):
+nothing, or a creation cut short before any row was committed, is (re)created; a store with a
+commit record is resumed or extended after checking its identity and what the resume builds
+on; anything else is refused (exit 4) unless ``restart``. A complete store is recognised
+without writing or locking (it may sit on a read-only file system). While it works,
+``sample`` keeps a marker beside the store (:mod:`chainyard.engine.marker`) so that the next
+run can say that this one ended abnormally. Refused writes end in one
+:class:`StorageFaultError` line naming the path, the system error and the last commit.
 """
 
 from __future__ import annotations
 
+import contextlib
 import shutil
 import signal
-import time
 from collections.abc import Iterator
-from contextlib import contextmanager
 from pathlib import Path
 from typing import Any, TextIO
 
-import numpy as np
-
 from chainyard.config import RunConfig, config_hash
-from chainyard.engine.buffer import StepBuffer
-from chainyard.engine.commit import CommitJob
 from chainyard.engine.ensemble import EnsembleDriver
+from chainyard.engine.guards import (
+    committed_steps,
+    path_state,
+    refuse_uncommitted,
+    storage_fault,
+    with_last_commit,
+)
 from chainyard.engine.identity import describe_differences, run_identity
 from chainyard.engine.initial import initial_state
-from chainyard.engine.writer import Committer, process_writer_available
-from chainyard.errors import ChainyardError, ConfigError, StoreConflictError, StoreError
+from chainyard.engine.loop import advance
+from chainyard.engine.marker import previous_run_line, read_marker, remove_marker, write_marker
+from chainyard.engine.stopping import Interrupted, StopFlag, stop_on_signals
+from chainyard.errors import (
+    ChainyardError,
+    ConfigError,
+    StorageFaultError,
+    StoreConflictError,
+    StoreError,
+    StoreLockedError,
+)
 from chainyard.model import LoadedModel, load_model
 from chainyard.progress import Progress
 from chainyard.provenance import git_state, host_record, software_versions, utc_now
-from chainyard.store import Store, writer_lock
-from chainyard.store.layout import ATTRS_KEY, BLOB, COMMIT_FILE, LOG_PROB, POSITION
+from chainyard.store import Store, StoreLock, writer_lock
+from chainyard.store.integrity import check_resume_base
+from chainyard.store.layout import BLOB, COMMIT_FILE, LOG_PROB, POSITION
+from chainyard.store.lock import real_store_path
 from chainyard.streams import random_state_to_json, sampler_random_state, spawn_key
+from chainyard.testhooks import instant
 
 __all__ = ["Interrupted", "sample"]
-
-#: pending rows are committed at the latest when they reach this many bytes
-MAX_PENDING_BYTES = 128 * 2**20
-
-
-class Interrupted(BaseException):
-    """The run stopped on SIGTERM/SIGINT after committing its finished steps.
-
-    A BaseException (like KeyboardInterrupt) so that a model's ``except Exception`` cannot
-    swallow it.
-    """
-
-    def __init__(self, signum: int) -> None:
-        super().__init__(signal.Signals(signum).name)
-        self.signum = signum
-
-
-class _StopFlag:
-    """Set by SIGTERM/SIGINT; the loop stops at the next step boundary and commits.
-
-    A second signal while the flag is set stops at once (without a commit).
-    """
-
-    def __init__(self) -> None:
-        self.signum: int | None = None
-
-    def handler(self, signum: int, frame: Any) -> None:
-        if self.signum is not None:
-            raise Interrupted(signum)
-        self.signum = signum
-
-
-@contextmanager
-def _stop_on_signals() -> Iterator[_StopFlag]:
-    flag = _StopFlag()
-    try:
-        old = {s: signal.signal(s, flag.handler) for s in (signal.SIGTERM, signal.SIGINT)}
-    except ValueError:  # not the main thread: leave signals alone
-        yield flag
-        return
-    try:
-        yield flag
-    finally:
-        for s, h in old.items():
-            signal.signal(s, h)
-
-
-def _is_partial_creation(path: Path) -> bool:
-    """True for a store folder a killed process left before its first commit."""
-    if not path.is_dir():
-        return False
-    if (path / COMMIT_FILE).exists():
-        return False
-    meta = path / "zarr.json"
-    if not any(path.iterdir()):
-        return True
-    try:
-        import json
-
-        attrs = json.loads(meta.read_text()).get("attributes", {})
-    except (OSError, ValueError):
-        return False
-    return isinstance(attrs.get(ATTRS_KEY), dict)
 
 
 def _store_attrs(config: RunConfig, replica: int, identity: dict[str, Any]) -> dict[str, Any]:
@@ -162,6 +123,12 @@ def sample(
     ------
     ConfigError, ModelError, StoreError, StoreConflictError, StoreLockedError
         On bad input; an existing store is never altered in that case.
+    StorageFaultError
+        The file system refused a write (full, read-only, file-size limit, I/O error); the
+        store keeps its last commit.
+    Interrupted
+        SIGTERM/SIGINT: the finished steps were committed (or, if a step was still running
+        ``STOP_GRACE_SECONDS`` after the signal, the run stopped without it).
     """
     path = Path(store_path)
     try:
@@ -170,85 +137,205 @@ def sample(
         raise exc.located(config.source) from None
     identity = run_identity(config, replica, EnsembleDriver.kind)
     label = f"{path.name}"
-    with writer_lock(path) as lock:
-        if restart and path.exists():
-            if not (path / COMMIT_FILE).exists() and not _is_partial_creation(path):
-                raise StoreError(f"{path}: exists and is not a chainyard store; not removing it")
-            shutil.rmtree(path)
-        if _is_partial_creation(path):
-            shutil.rmtree(path)
-        if path.exists():
-            store = Store.open(path, writable=True)
-            if store.attrs.get("derived") is not None:
-                raise StoreError(
-                    f"{path}: is a derived (trimmed or thinned) store and cannot be sampled "
-                    "into; give the original store or a new path"
+    say = Progress(1, 0, mode="log", stream=stream, label=label).message
+    if not restart and _complete_read_only(config, path, identity, say):
+        return Store.open(path)
+    with _ignore_file_size_signal(), stop_on_signals() as stop:
+        try:
+            with writer_lock(path) as lock:
+                marker = read_marker(path)
+                try:
+                    write_marker(path, committed_steps(path) or 0)
+                    _work(
+                        config,
+                        model,
+                        replica,
+                        identity,
+                        path,
+                        restart,
+                        stop,
+                        marker,
+                        say,
+                        progress,
+                        progress_interval,
+                        stream,
+                        label,
+                        _lock_fds(lock),
+                    )
+                except OSError as exc:
+                    raise storage_fault(exc, path, committed_steps(path)) from None
+                except StorageFaultError as exc:
+                    raise with_last_commit(exc, committed_steps(path)) from None
+                finally:
+                    remove_marker(path)
+        except Interrupted as exc:
+            if not exc.reported:
+                name = signal.Signals(exc.signum).name
+                steps = committed_steps(path)
+                where = (
+                    "nothing was committed"
+                    if steps is None
+                    else (f"the last commit (step {steps:,}) is intact")
                 )
-            _check_identity(store, identity, path)
-            if store.steps_done >= config.sampler.steps:
-                reporter = Progress(
-                    config.sampler.steps,
-                    store.steps_done,
-                    mode=progress,
-                    stream=stream,
-                    label=label,
+                why = (
+                    f"a step was still running {stop.grace:g} s after the signal; stopped "
+                    "without it"
+                    if stop.forced
+                    else "stopped at once"
                 )
-                reporter.message(
-                    f"already complete ({store.steps_done:,} steps committed, "
-                    f"{config.sampler.steps:,} requested); nothing to do"
-                )
-                return Store.open(path)
-            kind = "extend" if store.steps_done >= _stored_steps(store) else "resume"
-            _refresh_config(store, config)
-        else:
-            if path.is_file():
-                raise StoreError(f"{path}: exists and is a file, not a store directory")
-            try:
-                store = _create(config, model, replica, identity, path)
-            except ConfigError as exc:
-                raise exc.located(config.source) from None
-            kind = "start"
-        with _stop_on_signals() as stop:
-            try:
-                _advance(
-                    store,
-                    config,
-                    model,
-                    kind,
-                    stop,
-                    progress,
-                    progress_interval,
-                    stream,
-                    label,
-                    _lock_fds(lock),
-                )
-            except ChainyardError:
-                if kind == "start" and Store.open(path).steps_done == 0:
-                    shutil.rmtree(path)  # nothing of value was made by this failed start
-                raise
+                say(f"stopped by {name}: {why}; {where}; rerun to continue")
+                exc.reported = True
+            raise
     return Store.open(path)
 
 
-def _lock_fds(lock: Any) -> list[int]:
-    """The OS file descriptor holding the store lock, if the lock object exposes it."""
-    fd = getattr(getattr(lock, "_context", None), "lock_file_fd", None)
-    return [fd] if isinstance(fd, int) else []
+def _complete_read_only(
+    config: RunConfig,
+    path: Path,
+    identity: dict[str, Any],
+    say: Any,
+) -> bool:
+    """True (after saying so) if the store is already complete, found without writing.
 
-
-#: the run loop's bookkeeping (commit due? progress? stop signal?) runs about this often (s)
-CHECK_SECONDS = 0.005
-#: ... but at least every this many steps
-MAX_CHECK_STRIDE = 256
-
-#: "auto" commits in a helper process for runs with at least this many steps to go
-PROCESS_WRITER_MIN_STEPS = 5000
-
-
-def _use_process(config: RunConfig, steps_to_go: int) -> bool:
-    choice = config.storage.commit_writer
-    if choice == "thread" or not process_writer_available():
+    A complete store needs no lock, so this works on a read-only file system. A store that is
+    not readable here is left to the locked path, which reports the problem.
+    """
+    if path_state(path) != "committed":
         return False
-    return choice == "process" or steps_to_go >= PROCESS_WRITER_MIN_STEPS
+    try:
+        store = Store.open(path)
+    except StoreError:
+        return False
+    if store.attrs.get("derived") is not None:
+        return False
+    _check_identity(store, identity, path)
+    if store.steps_done < config.sampler.steps:
+        return False
+    if read_marker(path) is not None:
+        # a run died after its last commit: say so once (under the lock) and clear it
+        with contextlib.suppress(StoreLockedError, StorageFaultError), writer_lock(path):
+            marker = read_marker(path)
+            if marker is not None:
+                say(previous_run_line(marker, store.steps_done, complete=True))
+                remove_marker(path)
+    say(
+        f"already complete ({store.steps_done:,} steps committed, "
+        f"{config.sampler.steps:,} requested); nothing to do"
+    )
+    return True
+
+
+@contextlib.contextmanager
+def _ignore_file_size_signal() -> Iterator[None]:
+    """Ignore SIGXFSZ so that a write past ``ulimit -f`` fails with EFBIG (reported as a
+    storage fault) instead of killing the process."""
+    try:
+        old = signal.signal(signal.SIGXFSZ, signal.SIG_IGN)
+    except (ValueError, AttributeError):  # not the main thread, or no such signal
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGXFSZ, old)
+
+
+def _work(
+    config: RunConfig,
+    model: LoadedModel,
+    replica: int,
+    identity: dict[str, Any],
+    path: Path,
+    restart: bool,
+    stop: StopFlag,
+    marker: dict[str, Any] | None,
+    say: Any,
+    progress: str,
+    progress_interval: float,
+    stream: TextIO | None,
+    label: str,
+    lock_fds: list[int],
+) -> None:
+    """Everything ``sample`` does under the store lock."""
+    real = real_store_path(path)  # removals and creation go through symlinks to the store
+    state = path_state(real)
+    if restart and state != "missing":
+        if state in ("file", "foreign"):
+            raise StoreError(f"{path}: exists and is not a chainyard store; not removing it")
+        shutil.rmtree(real)
+        state = "missing"
+    if state == "uncommitted-data":
+        raise refuse_uncommitted(path)
+    if state == "unfinished":  # a creation cut short: it never committed a row
+        shutil.rmtree(real)
+        state = "missing"
+    if state == "committed":
+        store = Store.open(path, writable=True)
+        if marker is not None:
+            say(
+                previous_run_line(
+                    marker, store.steps_done, complete=store.steps_done >= config.sampler.steps
+                )
+            )
+        if store.attrs.get("derived") is not None:
+            raise StoreError(
+                f"{path}: is a derived (trimmed or thinned) store and cannot be sampled "
+                "into; give the original store or a new path"
+            )
+        _check_identity(store, identity, path)
+        if store.steps_done >= config.sampler.steps:
+            say(
+                f"already complete ({store.steps_done:,} steps committed, "
+                f"{config.sampler.steps:,} requested); nothing to do"
+            )
+            return
+        check_resume_base(store)  # refuses a damaged commit record or last chunk (exit 4)
+        if store.steps_done == 0 and not store.commit_record.get("segments"):
+            kind = "start"  # created, but cut short before its first data commit
+        elif store.steps_done >= _stored_steps(store):
+            kind = "extend"
+        else:
+            kind = "resume"
+    elif state == "file":
+        raise StoreError(f"{path}: exists and is a file, not a store directory")
+    elif state == "foreign":
+        raise StoreError(
+            f"{path}: exists and is not a chainyard store (no {COMMIT_FILE}); give a new path"
+        )
+    else:
+        if marker is not None:
+            say(previous_run_line(marker, None))
+        try:
+            store = _create(config, model, replica, identity, real)
+        except ConfigError as exc:
+            raise exc.located(config.source) from None
+        except (OSError, StorageFaultError):
+            shutil.rmtree(real, ignore_errors=True)  # a creation cut short: nothing of value
+            raise
+        instant("store-created")
+        kind = "start"
+    try:
+        advance(
+            store,
+            config,
+            model,
+            kind,
+            stop,
+            progress,
+            progress_interval,
+            stream,
+            label,
+            lock_fds,
+        )
+    except (ChainyardError, OSError):
+        if kind == "start" and committed_steps(real) == 0:
+            shutil.rmtree(real, ignore_errors=True)  # nothing of value was made by it
+        raise
+
+
+def _lock_fds(lock: StoreLock) -> list[int]:
+    """The OS file descriptor holding the store lock (the commit helper inherits it)."""
+    return [lock.fd] if lock.fd is not None else []
 
 
 def _stored_steps(store: Store) -> int:
@@ -262,12 +349,6 @@ def _check_identity(store: Store, identity: dict[str, Any], path: Path) -> None:
             f"{path}: store was made with different settings: {'; '.join(diffs)}. "
             "Use --restart (restart=True) to discard it and start over"
         )
-
-
-def _refresh_config(store: Store, config: RunConfig) -> None:
-    norm = config.normalised()
-    if store.attrs["config"] != norm:
-        store.update_attrs(config=norm, config_hash=config_hash(norm))
 
 
 def _create(
@@ -303,169 +384,3 @@ def _create(
         commit=record,
         fsync=st.fsync,
     )
-
-
-def _advance(
-    store: Store,
-    config: RunConfig,
-    model: LoadedModel,
-    kind: str,
-    stop: _StopFlag,
-    progress: str,
-    progress_interval: float,
-    stream: TextIO | None,
-    label: str,
-    lock_fds: list[int],
-) -> None:
-    target = config.sampler.steps
-    done = store.steps_done
-    st = config.storage
-    fsync = st.fsync
-    store.ensure_capacity(target)
-    last = store.last_state()
-    record = store.commit_record
-    blob_names = store.blob_names
-    walkers, n_params = last[POSITION].shape
-    n_blobs = len(blob_names)
-    blobs0 = (
-        np.column_stack([last[f"{BLOB}/{b}"] for b in blob_names])
-        if n_blobs
-        else np.empty((walkers, 0))
-    )
-    driver = EnsembleDriver(
-        model,
-        config.sampler.moves,
-        last[POSITION],
-        last[LOG_PROB],
-        blobs0,
-        record["random_state"],
-        check_start=(done == 0),
-    )
-    bytes_per_step = walkers * (n_params + 2 + n_blobs) * 8
-    pending_cap = max(1, min(st.commit_every_steps, MAX_PENDING_BYTES // bytes_per_step))
-    buf = StepBuffer(walkers, n_params, n_blobs, store.chunk_steps, pending_cap)
-    buf.load_tail(store, done)
-    segment = {
-        "kind": kind,
-        "from_step": done,
-        "to_step": done,
-        "started_utc": utc_now(),
-        "ended_utc": None,
-        "host": host_record()["host"],
-        "pid": host_record()["pid"],
-        "config_hash": config_hash(config.normalised()),
-        "software": software_versions(),
-    }
-    committed = done
-    reporter = Progress(
-        target, done, mode=progress, interval=progress_interval, stream=stream, label=label
-    )
-    reporter.message(
-        {"start": "starting", "resume": "resuming", "extend": "extending"}[kind]
-        + f" replica {store.replica} at step {done:,} of {target:,}"
-    )
-    accepted_sum = 0
-    first_commit = True
-    writer = Committer(
-        store,
-        use_process=_use_process(config, target - done),
-        capacity=bytes_per_step * (store.chunk_steps + pending_cap) + 64 * (3 + n_blobs),
-        keep_open=lock_fds,
-    )
-
-    def commit(upto: int) -> None:
-        """Hand steps ``[committed, upto)`` to the writer (the RNG state is taken now, at a
-        step boundary); sampling goes on while they are encoded, written and flushed."""
-        nonlocal committed, first_commit, i, counted
-        if upto <= committed:
-            return
-        writer.wait()
-        origin = (committed // buf.chunk) * buf.chunk
-        job = CommitJob(
-            origin=origin,
-            start=committed,
-            upto=upto,
-            random_state=driver.random_state(),
-            segment=segment,
-            first=first_commit,
-            fsync=fsync,
-        )
-        writer.submit(job, buf.rows(origin, upto, blob_names))
-        first_commit = False
-        committed = upto
-        buf.drop_before(committed)
-        i = counted = buf.fill  # the rows kept moved to the front of the buffer
-
-    every_seconds = st.commit_every_seconds
-    # committing at the last chunk boundary before the target leaves the final commit, which
-    # the caller waits for, at most one chunk to encode
-    last_boundary = ((target - 1) // buf.chunk) * buf.chunk
-    position, log_prob, accepted, blobs = buf.position, buf.log_prob, buf.accepted, buf.blobs
-    last_commit_time = last_check_time = time.monotonic()
-    last_report = 0.0
-    step = last_check_step = done
-    i = counted = buf.fill  # next buffer row; rows before ``counted`` are in accepted_sum
-    check_row = i + 1  # the bookkeeping below runs when row ``check_row - 1`` is filled
-
-    def settle() -> None:
-        """Bring ``step``, the buffer fill and the acceptance count up to row ``i``."""
-        nonlocal step, counted, accepted_sum
-        buf.fill = i
-        step = buf.origin + i
-        accepted_sum += int(np.count_nonzero(accepted[counted:i]))
-        counted = i
-
-    try:
-        for rows in driver.steps(target - done):
-            # per step only the copies (emcee's in-memory backend makes the same ones)
-            position[i] = rows.position
-            log_prob[i] = rows.log_prob
-            accepted[i] = rows.accepted
-            if n_blobs:
-                blobs[:, i] = rows.blobs.T
-            i += 1
-            if i < check_row:
-                continue
-            settle()
-            now = time.monotonic()
-            if (
-                step - committed >= pending_cap
-                or now - last_commit_time >= every_seconds
-                or step == last_boundary
-            ):
-                commit(step)
-                last_commit_time = now
-            if now - last_report >= 0.2:
-                last_report = now
-                reporter.update(step, accepted_sum / ((step - done) * walkers))
-            if stop.signum is not None:
-                # at a step boundary: the RNG state matches the last buffered step
-                commit(step)
-                writer.wait()
-                name = signal.Signals(stop.signum).name
-                reporter.message(
-                    f"stopped by {name} at step {committed:,} of {target:,}; rerun to continue"
-                )
-                raise Interrupted(stop.signum)
-            # the next check about CHECK_SECONDS on (at once for slow models), and never past
-            # a point where a commit is due by step count
-            elapsed = now - last_check_time
-            stride = MAX_CHECK_STRIDE
-            if elapsed > 0:
-                stride = int(CHECK_SECONDS * (step - last_check_step) / elapsed)
-            last_check_time, last_check_step = now, step
-            due = committed + pending_cap
-            if step < last_boundary:
-                due = min(due, last_boundary)
-            check_row = min(step + max(1, min(stride, MAX_CHECK_STRIDE)), due) - buf.origin
-        settle()
-        commit(step)
-        writer.wait()
-    finally:
-        writer.close()  # an in-flight commit of finished steps completes
-        settle()
-        steps_here = step - done
-        acc = accepted_sum / (steps_here * walkers) if steps_here else float("nan")
-        reporter.update(step, acc)
-        reporter.close(acc)
-    reporter.message(f"done: {committed:,} steps committed")

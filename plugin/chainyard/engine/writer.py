@@ -12,8 +12,11 @@ its thread. Two writers take them elsewhere:
   kernel kills the helper when the sampler dies, so it can never outlive its lock).
 
 :class:`Committer` starts the helper process in the background and uses the thread until
-the process is ready (a helper that never gets ready leaves the commits on the thread; one
-that dies later stops the run with a :class:`StoreError`). One commit is in flight at a
+the process is ready (a helper that never gets ready, or whose shared memory cannot be made,
+leaves the commits on the thread; one that dies later stops the run with a
+:class:`StoreError`). A write the file system refuses (disk full, read-only, file-size limit,
+I/O error) reaches the run loop as an ``OSError`` or :class:`StorageFaultError` from either
+writer. One commit is in flight at a
 time: the next waits for it, so records are written in order, each after its own rows. A
 crash at any instant (of either process) leaves the previous commit intact.
 """
@@ -35,7 +38,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from chainyard.engine.commit import CommitJob, apply_commit
-from chainyard.errors import StoreError
+from chainyard.errors import StorageFaultError, StoreError
 from chainyard.store import Store
 
 __all__ = ["Committer", "ProcessWriter", "ThreadWriter", "process_writer_available"]
@@ -103,8 +106,12 @@ class ProcessWriter:
         self.path = store_path
         self._capacity = max(capacity, mmap.PAGESIZE)
         self._fd = os.memfd_create("chainyard-commit-rows", os.MFD_CLOEXEC)
-        os.ftruncate(self._fd, self._capacity)
-        self._mem = mmap.mmap(self._fd, self._capacity)
+        try:
+            os.ftruncate(self._fd, self._capacity)  # EFBIG under a small RLIMIT_FSIZE
+            self._mem = mmap.mmap(self._fd, self._capacity)
+        except OSError:
+            os.close(self._fd)
+            raise
         self._proc = subprocess.Popen(
             [
                 sys.executable,
@@ -178,6 +185,8 @@ class ProcessWriter:
         if not line:
             raise self._failed("ended unexpectedly")
         reply = json.loads(line)
+        if "storage_fault" in reply:
+            raise StorageFaultError(str(reply["storage_fault"]))
         if "error" in reply:
             raise StoreError(f"{self.path}: commit failed: {reply['error']}")
 
@@ -218,9 +227,7 @@ class Committer:
         self, store: Store, *, use_process: bool, capacity: int, keep_open: list[int]
     ) -> None:
         self._thread = ThreadWriter(store)
-        self._process = (
-            ProcessWriter(store.path, capacity, keep_open) if use_process else None
-        )
+        self._process = ProcessWriter(store.path, capacity, keep_open) if use_process else None
         self._current: ThreadWriter | ProcessWriter = self._thread
 
     @property
