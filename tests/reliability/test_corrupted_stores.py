@@ -461,6 +461,8 @@ API_ONLY = {
     "walkers a string",
     "blob array missing",
     "stored config invalid",
+    "steps_done negative",
+    "log_prob shape has 9 walkers",
 }
 
 
