@@ -490,3 +490,24 @@ def test_disk_full_at_creation(tmp_path: Path, tally: Tally) -> None:
         assert "No space left on device [ENOSPC]" in _error_line(res)
         assert not (mnt / "s.zarr").exists()
         _no_partial_files(mnt)
+
+
+@pytest.mark.parametrize("bad", [float("nan"), float("inf")], ids=["nan", "inf"])
+def test_non_finite_initial_positions_refused(bad: float, tmp_path: Path, tally: Tally) -> None:
+    """A NaN or inf in sampler.initial_positions is a config error (exit 2) naming the
+    file, walker and parameter, not a model error; no store is made."""
+    import numpy as np
+
+    start = np.column_stack([np.linspace(-1, 1, 16), np.linspace(0, 2, 16) ** 2])
+    start[2, 1] = bad
+    np.save(tmp_path / "start.npy", start)
+    cfg = {**SMALL, "sampler": {**SMALL["sampler"], "initial_positions": "start.npy"}}
+    write_run(tmp_path, cfg)
+    res = _sample(tmp_path)
+    tally.input()
+    assert res.returncode == 2, res.stderr
+    assert _error_line(res).endswith(
+        f"sampler.initial_positions: start.npy: walker 2, parameter y is {bad}; every start "
+        "must be a finite number"
+    )
+    assert not (tmp_path / "s.zarr").exists()

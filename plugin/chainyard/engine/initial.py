@@ -49,7 +49,16 @@ def _read_positions(config: RunConfig) -> NDArray[np.float64]:
             f"sampler.initial_positions: {path.name} has shape {arr.shape}; need "
             f"(walkers, params) = {want}"
         )
-    return np.asarray(arr, dtype=np.float64)
+    arr = np.asarray(arr, dtype=np.float64)
+    bad = np.argwhere(~np.isfinite(arr))
+    if bad.size:
+        row, col = (int(v) for v in bad[0])
+        raise ConfigError(
+            f"sampler.initial_positions: {path.name}: walker {row}, parameter "
+            f"{config.parameters[col].name} is {arr[row, col]}; every start must be a finite "
+            "number"
+        )
+    return arr
 
 
 def initial_state(
