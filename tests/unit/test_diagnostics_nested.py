@@ -124,3 +124,14 @@ def test_diagnose_arrays_equals_diagnose_on_stores(tmp_path: Path) -> None:
         move_kinds=[m.kind for m in config.sampler.moves],
     )
     assert from_arrays == from_stores
+
+
+def test_diagnose_refuses_non_finite_draws_as_damage() -> None:
+    """NaN in the draws (which chainyard never stores) is a StoreError naming replica and
+    parameter, not a traceback."""
+    from chainyard.errors import StoreError
+
+    draws = np.random.default_rng(6).standard_normal((2, 50, 4, 2))
+    draws[1, 10, 2, 1] = np.nan
+    with pytest.raises(StoreError, match=r"replica 1: parameter x1 holds NaN or infinite draws"):
+        diagnose_arrays(draws)

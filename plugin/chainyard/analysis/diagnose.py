@@ -198,8 +198,8 @@ def read_column(
 
     Raises
     ------
-    ValueError
-        If a replica's draws contain NaN or infinite values.
+    StoreError
+        If a replica's draws contain NaN or infinite values (never written by chainyard).
     """
     row = 0
     for r, s in enumerate(stores):
@@ -212,7 +212,11 @@ def read_column(
             b = min(steps, a + per_call)
             block = s.column(j, a, b)  # (b - a, walkers)
             if not np.isfinite(block).all():
-                raise ValueError(f"replica {r} contains NaN or infinite values")
+                raise StoreError(
+                    f"replica {getattr(s, 'replica', r)}: parameter {s.param_names[j]} holds NaN "
+                    f"or infinite draws in steps {a}-{b - 1}; chainyard never stores them: the "
+                    "store is damaged"
+                )
             rows[:, a:b] = block.T
             walker_means[r, a:b] = block.mean(axis=1)
         row += walkers
