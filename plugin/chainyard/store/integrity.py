@@ -281,6 +281,8 @@ def _check_last_chunk(store: Store, name: str, block: dict[str, Any]) -> None:
     if hi % size and rows_sum:
         try:
             rows = store.read_rows(name, lo, hi)
+        except MemoryError:
+            raise
         except Exception:  # any decode failure of an untrusted chunk means it is damaged
             raise _damaged(store, f"{where} cannot be decoded") from None
         if chunk_checksum(rows) == rows_sum[0]:

@@ -100,12 +100,20 @@ def read(
             return np.asarray(arr[...])
         sel: Any = slice(start, stop, step)
         return np.asarray(arr[sel] if column is None else arr[sel, :, column])
+    except MemoryError:  # too large a read for this machine: not damage
+        raise
     except Exception as exc:  # codec, zarr or size errors of an untrusted chunk
-        raise _locate(store, node, arr, start, stop, exc) from None
+        located = _locate(store, node, arr, start, stop, exc)
+        if located is None:  # every chunk reads alone: not damage (threads, resources)
+            raise
+        raise located from None
 
 
-def _locate(store: Store, node: str, arr: Any, start: int, stop: int, exc: Exception) -> StoreError:
-    """A StoreError naming the first chunk of ``[start, stop)`` that fails to decode."""
+def _locate(
+    store: Store, node: str, arr: Any, start: int, stop: int, exc: Exception
+) -> StoreError | None:
+    """A StoreError naming the first chunk of ``[start, stop)`` that fails to decode; None if
+    each of them decodes alone (the failure was not in the stored data)."""
     if not node.startswith("draws/"):
         return StoreError(
             f"{store.path}: {node} chunk 0 (state before step 0) cannot be decoded "
@@ -116,12 +124,11 @@ def _locate(store: Store, node: str, arr: Any, start: int, stop: int, exc: Excep
         lo, hi = i * size, min((i + 1) * size, arr.shape[0])
         try:
             arr[lo:hi]
+        except MemoryError:
+            raise
         except Exception as chunk_exc:
             return StoreError(
                 f"{store.path}: {node} chunk {i} ({steps_label(lo, hi)}) cannot be decoded "
                 f"({_one_line(chunk_exc)}): {_HINT}"
             )
-    return StoreError(
-        f"{store.path}: {node} {steps_label(start, stop)} cannot be read ({_one_line(exc)}): "
-        f"{_HINT}"
-    )
+    return None
