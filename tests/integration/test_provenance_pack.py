@@ -166,3 +166,33 @@ def test_packed_store_is_read_only(packed: Path) -> None:
     """A packed store cannot be opened for writing (it must be unpacked first)."""
     with pytest.raises(StoreError, match="is a packed store \\(read-only\\); unpack it"):
         Store.open(packed, writable=True)
+
+
+def test_pack_out_refuses_stores_folders_and_foreign_files(run: Path, tmp_path: Path) -> None:
+    """pack --out inside a store, the store itself, an existing folder or a non-pack file:
+    refused (exit 4, one line), nothing changed; an existing pack is replaced."""
+    store = Path(shutil.copytree(run / "s.zarr", tmp_path / "s.zarr"))
+    other = Path(shutil.copytree(run / "t.zarr", tmp_path / "t.zarr"))
+    before = tree_snapshot(tmp_path)
+    (tmp_path / "folder").mkdir()
+    (tmp_path / "notes.txt").write_text("mine")
+    cases = {
+        str(store / "commit.json"): "is inside the store being packed",
+        str(store): "is the store being packed",
+        str(other / "draws/x.zip"): f"is inside the store {other}",
+        str(tmp_path / "folder"): "is an existing folder",
+        str(tmp_path / "notes.txt"): "exists and is not a chainyard pack",
+    }
+    for out, why in cases.items():
+        res = cli("pack", str(store), "--out", out)
+        assert res.returncode == 4, res.stderr
+        assert res.stderr.strip().startswith(f"chainyard: error: {out}: {why}"), res.stderr
+        assert len(res.stderr.strip().splitlines()) == 1
+    assert (tmp_path / "notes.txt").read_text() == "mine"
+    after = tree_snapshot(tmp_path)
+    assert {k: v for k, v in after.items() if k in before} == before
+    first = cli("pack", str(store), "--out", str(tmp_path / "p.zip"))
+    assert first.returncode == 0, first.stderr
+    again = cli("pack", str(store), "--out", str(tmp_path / "p.zip"))
+    assert again.returncode == 0, again.stderr  # an existing pack is replaced
+    assert not list(tmp_path.glob(".p.zip.*.tmp"))

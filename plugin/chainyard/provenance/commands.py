@@ -117,10 +117,18 @@ def _cmd_unpack(args: argparse.Namespace) -> int:
 
 
 def _cmd_export_prov(args: argparse.Namespace) -> int:
+    from chainyard.errors import StoreError
     from chainyard.provenance.prov_json import prov_json
     from chainyard.provenance.record import provenance_record
+    from chainyard.provenance.verify import DAMAGE, describe_damage
 
-    text = prov_json(provenance_record(args.target))
+    try:
+        text = prov_json(provenance_record(args.target))
+    except DAMAGE as exc:
+        raise StoreError(
+            f"{args.target}: damaged metadata, cannot export its provenance "
+            f"({describe_damage(exc)}); `chainyard verify` names the problem"
+        ) from None
     if args.out:
         Path(args.out).write_text(text + "\n")
     else:

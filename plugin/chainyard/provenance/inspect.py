@@ -14,8 +14,9 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+from chainyard.errors import StoreError
 from chainyard.provenance.record import provenance_record, store_digest
-from chainyard.provenance.verify import verify_metadata
+from chainyard.provenance.verify import DAMAGE, describe_damage, verify_metadata
 from chainyard.store import Store
 
 __all__ = ["format_summary", "inspect_store"]
@@ -93,6 +94,16 @@ def inspect_store(
         the store or one folder up, that names this store by content hash).
     """
     store = target if isinstance(target, Store) else Store.open(target)
+    try:
+        return _summary(store, diagnostics)
+    except DAMAGE as exc:
+        raise StoreError(
+            f"{store.path}: damaged metadata, cannot summarise it ({describe_damage(exc)}); "
+            f"`chainyard verify {store.path}` names the problem"
+        ) from None
+
+
+def _summary(store: Store, diagnostics: Sequence[str | Path]) -> dict[str, Any]:
     record = provenance_record(store)
     attrs = store.attrs
     cfg = attrs.get("config") or {}
@@ -161,6 +172,16 @@ def _history(segs: list[dict[str, Any]]) -> str:
 
 def format_summary(s: dict[str, Any]) -> str:
     """The text ``chainyard inspect`` prints."""
+    try:
+        return _format(s)
+    except DAMAGE as exc:
+        raise StoreError(
+            f"{s.get('subject')}: damaged metadata, cannot summarise it "
+            f"({describe_damage(exc)}); `chainyard verify` names the problem"
+        ) from None
+
+
+def _format(s: dict[str, Any]) -> str:
     what, steps, prov = s["what"], s["steps"], s["provenance"]
     kind = {"store": "sampled store", "derived_store": "derived store"}.get(s["kind"], s["kind"])
     cuts = [f"discard {d['discard']:,}, keep 1 in {d['factor']}" for d in s["derivation"]]

@@ -15,6 +15,7 @@ named in the metadata; it never imports or executes anything from the store. It 
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -25,7 +26,7 @@ from chainyard.provenance.pack import check_pack
 from chainyard.store import Store
 from chainyard.store.packed import UnsafeMemberError
 
-__all__ = ["Finding", "VerifyReport", "verify", "verify_metadata"]
+__all__ = ["DAMAGE", "Finding", "VerifyReport", "describe_damage", "verify", "verify_metadata"]
 
 
 @dataclass
@@ -87,29 +88,62 @@ def _kind(store: Store) -> str:
     return "derived_store" if store.attrs.get("derived") else "store"
 
 
+#: what damaged or crafted metadata raises inside a check (a value of the wrong type, a
+#: missing key, an unparsable number); each becomes a problem finding, never a traceback
+DAMAGE = (KeyError, TypeError, ValueError, AttributeError, IndexError)
+
+
+def describe_damage(exc: BaseException) -> str:
+    """One short line for an exception raised by damaged metadata."""
+    if isinstance(exc, KeyError):
+        return f"field {exc.args[0]!r} missing or of the wrong type" if exc.args else "key missing"
+    text = " ".join(str(exc).split())
+    return f"{type(exc).__name__}: {text[:120]}"
+
+
+def _guarded(where: str, check: Callable[[Store], list[Finding]], store: Store) -> list[Finding]:
+    """The findings of ``check``, or one problem naming ``where`` if damaged metadata breaks it."""
+    try:
+        return check(store)
+    except DAMAGE as exc:
+        return [Finding("problem", where, f"malformed metadata ({describe_damage(exc)})")]
+
+
+def _kind_of(store: Store) -> str:
+    try:
+        return _kind(store)
+    except DAMAGE:
+        return "store"
+
+
 def verify_metadata(store: Store) -> VerifyReport:
     """The cheap checks only (seal, counters, consistency): no chunk is decoded."""
-    report = VerifyReport(str(store.path), _kind(store))
-    report.findings += check_seal(store)
-    report.findings += check_counters(store)
-    report.findings += check_consistency(store)
+    report = VerifyReport(str(store.path), _kind_of(store))
+    report.findings += _guarded("seal (commit.json, zarr.json)", check_seal, store)
+    report.findings += _guarded("counters (commit.json, array metadata)", check_counters, store)
+    report.findings += _guarded("provenance (zarr.json attributes)", check_consistency, store)
     return report
 
 
 def verify_store(store: Store, *, chain: bool = True) -> VerifyReport:
     """Every check on one store (see the module docstring)."""
-    report = VerifyReport(str(store.path), _kind(store))
-    report.findings += check_seal(store)
-    counters = check_counters(store)
+    report = VerifyReport(str(store.path), _kind_of(store))
+    report.findings += _guarded("seal (commit.json, zarr.json)", check_seal, store)
+    counters = _guarded("counters (commit.json, array metadata)", check_counters, store)
     report.findings += counters
-    report.findings += check_consistency(store)
+    report.findings += _guarded("provenance (zarr.json attributes)", check_consistency, store)
     if not [f for f in counters if f.level == "problem"]:
-        findings, report.chunks = check_chunks(store)
+        try:
+            findings, report.chunks = check_chunks(store)
+        except DAMAGE as exc:
+            findings = [
+                Finding("problem", "chunks", f"malformed metadata ({describe_damage(exc)})")
+            ]
         report.findings += findings
-    report.findings += check_start(store)
-    report.findings += check_pack(store)
+    report.findings += _guarded("start (start-state arrays)", check_start, store)
+    report.findings += _guarded("pack (pack/manifest.json)", check_pack, store)
     if chain:
-        report.findings += check_chain(store)
+        report.findings += _guarded("inputs (recorded sources)", check_chain, store)
     return report
 
 
@@ -162,7 +196,7 @@ def verify(target: str | Path | Store, *, chain: bool = True) -> VerifyReport:
         store = Store.open(path)
     except UnsafeMemberError as exc:
         report = VerifyReport(str(path), "packed_store")
-        where = f"pack member {exc.member}" if exc.member else "pack"
+        where = f"pack member {exc.member!r}" if exc.member else "pack"
         report.findings.append(Finding("problem", where, exc.rule))
         return report
     try:
