@@ -430,7 +430,11 @@ def diagnose(
 
 
 def _num(value: Any, fmt: str) -> str:
-    return "-" if value is None else format(value, fmt)
+    """``value`` formatted, or a dash right-aligned to the same width when it is missing."""
+    if value is None:
+        width = "".join(ch for ch in fmt.split(".")[0].split(",")[0] if ch.isdigit())
+        return "-".rjust(int(width) if width else 1)
+    return format(value, fmt)
 
 
 def _questions(check: dict[str, Any]) -> str:
