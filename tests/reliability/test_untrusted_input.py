@@ -3,8 +3,8 @@
 Each crafted pack breaks one safety rule of :func:`chainyard.store.packed.open_pack` (or a
 limit of :mod:`chainyard.limits`) and goes through ``verify``, ``inspect``, ``unpack``,
 ``export-prov`` and ``verify --replay`` (without ``--run-pack-code``), each a real process.
-Every case asserts the exit status (verify 7 for a broken rule, the others 4; limits and
-unreadable files 4 everywhere), exactly one ``chainyard: error:`` line naming the member or
+Every case asserts the exit status (verify 7 for a broken rule or an unreadable file, the
+others 4; a limit 4 everywhere), exactly one ``chainyard: error:`` line naming the member or
 file, no traceback, nothing written outside the target, and for the oversized cases a peak
 RSS of the child below a stated bound. A last test proves that no reading command imports
 code from a pack unless ``--run-pack-code`` is given.
@@ -244,7 +244,7 @@ class Case:
     name: str
     make: Callable[[Path, Path], Path]
     names: str  # text the error line must hold (member or file)
-    verify: int = 7  # verify's status (7: a rule broken; 4: limit or unreadable)
+    verify: int = 7  # verify's status (7: a rule broken or unreadable; 4: over a limit)
     others: int = 4  # inspect, unpack, export-prov
     env: dict[str, str] | None = None
     rss: bool = False  # oversized case: check the peak RSS
@@ -408,14 +408,13 @@ CASES = [
         "'pack/manifest.json': missing",
     ),
     Case("source_path_escapes", _sources_escape, "is not a plain relative path"),
-    Case("truncated_zip", _truncated, "not a zip file (or truncated)", verify=4),
+    Case("truncated_zip", _truncated, "not a zip file (or truncated)"),
     Case(
         "not_a_zip",
         lambda b, d: (d.write_text("model: x\n"), d)[1],
         "not a zip file (or truncated)",
-        verify=4,
     ),
-    Case("empty_file", lambda b, d: (d.write_bytes(b""), d)[1], "empty file", verify=4),
+    Case("empty_file", lambda b, d: (d.write_bytes(b""), d)[1], "empty file"),
     Case(
         "zip_bomb",
         _bomb,

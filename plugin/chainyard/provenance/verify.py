@@ -15,11 +15,13 @@ named in the metadata; it never imports or executes anything from the store. It 
 
 from __future__ import annotations
 
+import os
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from chainyard.errors import LimitExceededError, StoreError
 from chainyard.provenance.checks import Finding, check_consistency, check_counters, check_seal
 from chainyard.provenance.chunks import check_chain, check_chunks, check_input, check_start
 from chainyard.provenance.pack import check_pack
@@ -198,6 +200,16 @@ def verify(target: str | Path | Store, *, chain: bool = True) -> VerifyReport:
         report = VerifyReport(str(path), "packed_store")
         where = f"pack member {exc.member!r}" if exc.member else "pack"
         report.findings.append(Finding("problem", where, exc.rule))
+        return report
+    except LimitExceededError:
+        raise  # over a limit: not read at all (exit 4), the message says how to raise it
+    except StoreError as exc:
+        if not os.path.lexists(path):
+            raise
+        # damaged beyond opening: a failed verification naming the file (exit 7)
+        where, _, message = str(exc).partition(": ")
+        report = VerifyReport(str(path), "packed_store" if path.is_file() else "store")
+        report.findings.append(Finding("problem", where, message or where))
         return report
     try:
         return verify_store(store, chain=chain)

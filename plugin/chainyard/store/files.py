@@ -45,11 +45,8 @@ def fsync_dir(path: Path) -> None:
 
 
 def _archive_of(store: Any) -> Any:
-    """The open zip file of a packed store (None for a directory).
-
-    Uses ``Store._archive``: the store module has no public accessor for it yet.
-    """
-    return getattr(store, "_archive", None)
+    """The open zip file of a packed store (None for a directory)."""
+    return getattr(store, "archive", None)
 
 
 def stored_size(store: Any, key: str) -> int | None:
