@@ -227,7 +227,14 @@ class Committer:
         self, store: Store, *, use_process: bool, capacity: int, keep_open: list[int]
     ) -> None:
         self._thread = ThreadWriter(store)
-        self._process = ProcessWriter(store.path, capacity, keep_open) if use_process else None
+        self._process: ProcessWriter | None = None
+        if use_process:
+            try:
+                self._process = ProcessWriter(store.path, capacity, keep_open)
+            except OSError:
+                # no shared memory (e.g. RLIMIT_FSIZE below its size: EFBIG): the thread
+                # writes the same bytes
+                self._process = None
         self._current: ThreadWriter | ProcessWriter = self._thread
 
     @property
