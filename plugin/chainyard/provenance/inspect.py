@@ -75,7 +75,8 @@ def _verdict(store: Store, digest: str, given: Sequence[str | Path]) -> dict[str
         return {
             "ok": bool(last.get("ok")),
             "lines": last.get("lines", []),
-            "record": f"{store.path}/target_checks.json (this replica only)",
+            "record": f"{store.path}/target_checks.json (run-level verdict across "
+            f"{len(checks.get('stores') or []) or 1} replica(s))",
         }
     return None
 

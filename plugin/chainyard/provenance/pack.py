@@ -22,6 +22,7 @@ member in blocks, checking it against the manifest.
 
 from __future__ import annotations
 
+import errno
 import hashlib
 import json
 import os
@@ -33,7 +34,7 @@ from pathlib import Path, PurePosixPath
 from typing import Any
 
 from chainyard import testhooks
-from chainyard.errors import StoreError, UnsafeInputError, VerificationError
+from chainyard.errors import StorageFaultError, StoreError, UnsafeInputError, VerificationError
 from chainyard.provenance import utc_now
 from chainyard.provenance.checks import Finding
 from chainyard.provenance.chunks import is_file_reference
@@ -54,6 +55,8 @@ from chainyard.store.packed import (
 __all__ = ["PACK_FORMAT", "PACK_VERSION", "PackInfo", "check_pack", "pack_store", "unpack_store"]
 
 _FIXED_TIME = (1980, 1, 1, 0, 0, 0)
+#: system errors that mean the file system refused the write (exit 8)
+_STORAGE_ERRNOS = {errno.ENOSPC, errno.EROFS, errno.EFBIG, errno.EDQUOT, errno.EIO, errno.EACCES}
 
 
 @dataclass
@@ -311,8 +314,14 @@ def pack_store(
             os.fsync(f.fileno())
         testhooks.instant("pack-before-publish")
         os.replace(tmp, out)
-    except BaseException:
+    except BaseException as exc:
         tmp.unlink(missing_ok=True)
+        if isinstance(exc, OSError) and exc.errno in _STORAGE_ERRNOS:
+            name = errno.errorcode.get(exc.errno or 0, str(exc.errno))
+            raise StorageFaultError(
+                f"{out}: the file system refused writing the pack ({exc.strerror} [{name}]); "
+                f"{out} was not changed"
+            ) from None
         raise
     return PackInfo(out, file_digest(out), len(files) + len(extras), manifest["store"]["digest"])
 
