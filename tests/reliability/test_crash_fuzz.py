@@ -81,17 +81,25 @@ def run_config(steps: int, writer: str) -> dict[str, Any]:
 KILLS: Counter[str] = Counter()
 
 
+def _say(config: pytest.Config, line: str) -> None:
+    """Write ``line`` to the terminal even while output is being captured."""
+    tr = config.pluginmanager.get_plugin("terminalreporter")
+    cm = config.pluginmanager.get_plugin("capturemanager")
+    if tr is None or cm is None:
+        return
+    with cm.global_and_fixture_disabled():
+        tr.write_line(line)
+
+
 @pytest.fixture(scope="module")
 def report(pytestconfig: pytest.Config) -> Iterator[None]:
     """Print the schedule's seed now and the kills per command and moment at the end."""
-    tr = pytestconfig.pluginmanager.get_plugin("terminalreporter")
-    if tr is not None:
-        tr.write_line(f"\ncrash fuzz seed: {SEED} (CHAINYARD_FUZZ_SEED={SEED} to replay)")
+    _say(pytestconfig, f"\ncrash fuzz seed: {SEED} (CHAINYARD_FUZZ_SEED={SEED} to replay)")
     yield
-    if tr is not None:
-        tr.write_line(
-            "crash fuzz kills: " + ", ".join(f"{k} {v}" for k, v in sorted(KILLS.items()))
-        )
+    _say(
+        pytestconfig,
+        "crash fuzz kills: " + ", ".join(f"{k} {v}" for k, v in sorted(KILLS.items())),
+    )
 
 
 @pytest.fixture(scope="module")

@@ -44,7 +44,6 @@ HALF = 1000
 
 #: known product bugs (strict: the mark must go when the fix lands); owners in the reasons
 PACK_NO_PATH = "provenance: pack's ENOSPC line does not name the output (to-provenance.md)"
-HELPER_EXIT_4 = "engine: ENOSPC in the commit helper exits 4 (StoreError), not 8"
 SHM_EFBIG = "engine: EFBIG from ftruncate of the helper's shared memory is fatal, unnamed"
 
 #: a vectorised Gaussian that takes ~0.3 ms per call (two calls per step), so that a run
@@ -169,10 +168,7 @@ def test_disk_full_at_store_creation(work: Path, mnt: Path, tally) -> None:
 
 @pytest.mark.parametrize(
     "writer",
-    [
-        "thread",
-        pytest.param("process", marks=pytest.mark.xfail(strict=True, reason=HELPER_EXIT_4)),
-    ],
+    ["thread", "process"],
 )
 def test_disk_full_during_commits(writer: str, work: Path, mnt: Path, tally) -> None:
     """ENOSPC in the middle of extending a store (commits on the writer thread or in the
@@ -264,7 +260,7 @@ def _largest_file(path: Path) -> int:
 
 @pytest.mark.parametrize(
     "writer",
-    ["thread", pytest.param("process", marks=pytest.mark.xfail(strict=True, reason=SHM_EFBIG))],
+    ["thread", "process"],
 )
 def test_file_size_limit_during_sampling(writer: str, work: Path, tmp_path: Path, tally) -> None:
     """``ulimit -f`` just above the largest file of a half-done store: extending it hits
