@@ -42,9 +42,6 @@ pytestmark = pytest.mark.slow
 STEPS = 3000
 HALF = 1000
 
-#: known product bugs (strict: the mark must go when the fix lands); owners in the reasons
-PACK_NO_PATH = "provenance: pack's ENOSPC line does not name the output (to-provenance.md)"
-SHM_EFBIG = "engine: EFBIG from ftruncate of the helper's shared memory is fatal, unnamed"
 
 #: a vectorised Gaussian that takes ~0.3 ms per call (two calls per step), so that a run
 #: lasts long enough for the commit helper process to take over before the fault
@@ -192,7 +189,7 @@ def test_disk_full_during_commits(writer: str, work: Path, mnt: Path, tally) -> 
 
 @pytest.mark.parametrize(
     "command",
-    ["derive", pytest.param("pack", marks=pytest.mark.xfail(strict=True, reason=PACK_NO_PATH))],
+    ["derive", "pack"],
 )
 def test_disk_full_during_derive_or_pack(command: str, work: Path, mnt: Path, tally) -> None:
     """ENOSPC while derive or pack writes its output: exit 8, one line naming the output,
@@ -281,7 +278,6 @@ def test_file_size_limit_during_sampling(writer: str, work: Path, tmp_path: Path
     rerun_completes(work, f"{writer}.yaml", out)
 
 
-@pytest.mark.xfail(strict=True, reason=SHM_EFBIG)
 def test_file_size_limit_below_shared_memory(work: Path, tmp_path: Path, tally) -> None:
     """``ulimit -f`` above every store file but below the commit helper's shared memory
     (commits of up to 2,000 steps): the run falls back to committing on a thread and
