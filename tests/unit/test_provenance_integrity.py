@@ -8,7 +8,8 @@ import json
 import numpy as np
 
 from chainyard.provenance.checks import steps_label
-from chainyard.provenance.pack import _member_for, _safe
+from chainyard.provenance.pack import _member_for
+from chainyard.store.packed import name_problem
 from chainyard.provenance.record import REQUIRED_FIELDS, missing_fields
 from chainyard.store.integrity import (
     bytes_checksum,
@@ -103,11 +104,12 @@ def test_data_hash_required_only_when_data_is_configured() -> None:
 def test_pack_member_names_are_safe() -> None:
     """Unsafe zip member names are refused; recorded source paths map to safe members."""
     for bad in ("../x", "/etc/passwd", "a/../../b", "c:\\x", "a\\b", ""):
-        assert not _safe(bad), bad
-    assert _safe("draws/position/c/0/0/0") and _safe("pack/sources/__up__/m.py")
+        assert name_problem(bad) is not None, bad
+    assert name_problem("draws/position/c/0/0/0") is None
+    assert name_problem("pack/sources/__up__/m.py") is None
     assert _member_for("../shared/m.py") == "pack/sources/__up__/shared/m.py"
     assert _member_for("./model.py") == "pack/sources/model.py"
-    assert _safe(_member_for("/abs/data.csv"))
+    assert name_problem(_member_for("/abs/data.csv")) is None
 
 
 def test_chunk_keys_from_metadata() -> None:
