@@ -9,7 +9,6 @@ import numpy as np
 
 from chainyard.provenance.checks import steps_label
 from chainyard.provenance.pack import _member_for
-from chainyard.store.packed import name_problem
 from chainyard.provenance.record import REQUIRED_FIELDS, missing_fields
 from chainyard.store.integrity import (
     bytes_checksum,
@@ -18,6 +17,7 @@ from chainyard.store.integrity import (
     keyed_hashes,
     self_hash,
 )
+from chainyard.store.packed import name_problem
 
 
 def test_canonical_hash_ignores_key_order_and_spacing() -> None:
