@@ -332,6 +332,14 @@ class KillPlan:
     group: bool = False
 
 
+def folder_for_test(space: Path, request: pytest.FixtureRequest) -> Path:
+    """A fresh folder for one test inside a module's scratch space, named after the test."""
+    name = "".join(c if c.isalnum() else "_" for c in request.node.name)
+    folder = space / name
+    folder.mkdir()
+    return folder
+
+
 @contextmanager
 def scratch(path: Path, size_mib: int = 1024) -> Iterator[Path]:
     """A tmpfs at ``path`` for the block if one can be mounted, else the plain folder.

@@ -32,6 +32,7 @@ from tests.reliability.faults import (
     committed_files,
     committed_steps,
     execute,
+    folder_for_test,
     fuzz_seed,
     instant_wired,
     leftovers,
@@ -112,10 +113,7 @@ def space(tmp_path_factory: pytest.TempPathFactory, report: None) -> Iterator[Pa
 @pytest.fixture
 def tmp_path(space: Path, request: pytest.FixtureRequest) -> Path:
     """A fresh folder for one test, inside the scratch space (shadows pytest's tmp_path)."""
-    name = "".join(c if c.isalnum() else "_" for c in request.node.name)
-    folder = space / name
-    folder.mkdir()
-    return folder
+    return folder_for_test(space, request)
 
 
 @pytest.fixture(scope="module")

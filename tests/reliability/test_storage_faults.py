@@ -28,6 +28,7 @@ from tests.reliability.faults import (
     assert_prefix_of,
     committed_files,
     fill,
+    folder_for_test,
     fsize_limit,
     leftovers,
     read_only,
@@ -87,10 +88,7 @@ def space(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Path]:
 @pytest.fixture
 def tmp_path(space: Path, request: pytest.FixtureRequest) -> Path:
     """A fresh folder for one test, inside the scratch space (shadows pytest's tmp_path)."""
-    name = "".join(c if c.isalnum() else "_" for c in request.node.name)
-    folder = space / name
-    folder.mkdir()
-    return folder
+    return folder_for_test(space, request)
 
 
 @pytest.fixture(scope="module")
