@@ -14,15 +14,24 @@ import signal
 
 __all__ = ["instant"]
 
-_SPEC = os.environ.get("CHAINYARD_TEST_KILL_AT", "")
-_NAME, _, _NTH = _SPEC.partition(":")
-_COUNT = {"n": 0}
+
+def _parse(spec: str) -> dict[str, int]:
+    """``"a,b:3"`` -> ``{"a": 1, "b": 3}`` (instant name -> the visit that kills)."""
+    out: dict[str, int] = {}
+    for part in filter(None, (p.strip() for p in spec.split(","))):
+        name, _, nth = part.partition(":")
+        out[name] = int(nth) if nth else 1
+    return out
+
+
+_KILL_AT = _parse(os.environ.get("CHAINYARD_TEST_KILL_AT", ""))
+_COUNT: dict[str, int] = {}
 
 
 def instant(name: str) -> None:
     """Kill this process with SIGKILL if the tests asked for it at ``name``."""
-    if not _NAME or name != _NAME:
+    if not _KILL_AT or name not in _KILL_AT:
         return
-    _COUNT["n"] += 1
-    if _COUNT["n"] >= (int(_NTH) if _NTH else 1):
+    _COUNT[name] = _COUNT.get(name, 0) + 1
+    if _COUNT[name] >= _KILL_AT[name]:
         os.kill(os.getpid(), signal.SIGKILL)

@@ -308,6 +308,55 @@ def test_sample_named_instants(case: str, work: Path, tmp_path: Path, tally) -> 
     tally.killed(chain.kills)
 
 
+FAILING_MODEL = """
+import numpy as np
+
+CALLS = [0]
+
+
+def log_prob(theta, data):
+    CALLS[0] += 1
+    if CALLS[0] == 10:  # a few steps in, before the first commit (every 20 steps)
+        raise ValueError("planned failure")
+    return -0.5 * np.einsum("ij,ij->i", theta, theta)
+"""
+
+
+def test_discarding_a_never_committed_store_killed_half_way(
+    work: Path, tmp_path: Path, tally
+) -> None:
+    """A run that fails before its first data commit discards the store it created; the
+    sampler is killed while discarding. The store's path then holds either the whole store
+    or nothing (never a half-removed store, which a rerun would refuse when its commit record
+    went first), the rerun starts cleanly and equals an uninterrupted run, and nothing is
+    left beside the store."""
+    _require("store-discarding")
+    folder = tmp_path / "run"
+    write_run(folder, run_config(STEPS, "thread"), FAILING_MODEL, name="run.yaml")
+    out = folder / "s.zarr"
+    res = run(
+        "sample",
+        "run.yaml",
+        "--out",
+        str(out),
+        "--progress",
+        "off",
+        env=_instant_env("store-discarding"),
+        cwd=folder,
+    )
+    assert res.returncode == -9, (res.returncode, res.stderr)
+    assert not out.exists(), "a half-removed store was left at the store's path"
+    assert any(".discarded-" in p.name for p in folder.iterdir()), "the kill missed"
+    (folder / "model.py").write_text(MODEL)
+    res = run("sample", "run.yaml", "--out", str(out), "--progress", "off", cwd=folder)
+    assert res.returncode == 0, res.stderr
+    assert_same_as_reference(out, work / "ref.zarr")
+    assert_verified(out, folder)
+    left = sorted(p.name for p in folder.iterdir() if p.suffix in (".zarr", "") or "." in p.name)
+    assert not [n for n in left if ".discarded-" in n], f"left beside the store: {left}"
+    tally.killed(1)
+
+
 # ------------------------------------------------------------------ derive and pack
 def _new_entries(parent: Path, known: set[str]) -> bool:
     return any(p.name not in known for p in parent.iterdir())

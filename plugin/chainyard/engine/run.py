@@ -21,7 +21,6 @@ run can say that this one ended abnormally. Refused writes end in one
 from __future__ import annotations
 
 import contextlib
-import shutil
 import signal
 from collections.abc import Iterator
 from pathlib import Path
@@ -53,6 +52,7 @@ from chainyard.model import LoadedModel, load_model
 from chainyard.progress import Progress
 from chainyard.provenance import git_state, host_record, software_versions, utc_now
 from chainyard.store import Store, StoreLock, writer_lock
+from chainyard.store.files import discard_folder, remove_discarded
 from chainyard.store.integrity import check_resume_base
 from chainyard.store.layout import BLOB, COMMIT_FILE, LOG_PROB, POSITION
 from chainyard.store.lock import real_store_path
@@ -258,16 +258,17 @@ def _work(
 ) -> None:
     """Everything ``sample`` does under the store lock."""
     real = real_store_path(path)  # removals and creation go through symlinks to the store
+    remove_discarded(real)  # what a removal killed half-way left beside the store
     state = path_state(real)
     if restart and state != "missing":
         if state in ("file", "foreign"):
             raise StoreError(f"{path}: exists and is not a chainyard store; not removing it")
-        shutil.rmtree(real)
+        discard_folder(real)
         state = "missing"
     if state == "uncommitted-data":
         raise refuse_uncommitted(path)
     if state == "unfinished":  # a creation cut short: it never committed a row
-        shutil.rmtree(real)
+        discard_folder(real)
         state = "missing"
     if state == "committed":
         store = Store.open(path, writable=True)
@@ -310,7 +311,7 @@ def _work(
         except ConfigError as exc:
             raise exc.located(config.source) from None
         except (OSError, StorageFaultError):
-            shutil.rmtree(real, ignore_errors=True)  # a creation cut short: nothing of value
+            _discard_quietly(real)  # a creation cut short: nothing of value
             raise
         instant("store-created")
         kind = "start"
@@ -329,8 +330,16 @@ def _work(
         )
     except (ChainyardError, OSError):
         if kind == "start" and committed_steps(real) == 0:
-            shutil.rmtree(real, ignore_errors=True)  # nothing of value was made by it
+            _discard_quietly(real)  # nothing of value was made by it
         raise
+
+
+def _discard_quietly(real: Path) -> None:
+    """Discard a store this run created and never committed a row to, keeping the error
+    that got us here (a store that cannot be removed stays "unfinished": cleaned next run)."""
+    with contextlib.suppress(OSError):
+        if real.exists():
+            discard_folder(real)
 
 
 def _lock_fds(lock: StoreLock) -> list[int]:

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import os
+import shutil
 import stat
 from collections.abc import Iterator
 from pathlib import Path
@@ -12,9 +13,11 @@ from typing import Any
 
 __all__ = [
     "atomic_write_json",
+    "discard_folder",
     "fsync_dir",
     "iter_stored",
     "read_stored",
+    "remove_discarded",
     "stored_size",
 ]
 
@@ -31,6 +34,40 @@ def atomic_write_json(path: Path, data: Any, *, fsync: bool) -> None:
     os.replace(tmp, path)
     if fsync:
         fsync_dir(path.parent)
+
+
+def _discarded_prefix(path: Path) -> str:
+    return f".{path.name}.discarded-"
+
+
+def discard_folder(path: Path) -> None:
+    """Remove the folder ``path`` so that no half-removed folder is ever left *at* ``path``.
+
+    The folder is first renamed to a hidden sibling ``.NAME.discarded-PID`` (one atomic step),
+    then deleted. A process killed while deleting leaves only that sibling, which the next
+    writer of ``path`` removes (:func:`remove_discarded`); never a store at ``path`` whose
+    commit record is gone while its chunk files remain.
+    """
+    from chainyard.testhooks import instant
+
+    grave = path.with_name(f"{_discarded_prefix(path)}{os.getpid()}")
+    if grave.exists():
+        shutil.rmtree(grave)
+    os.rename(path, grave)
+    instant("store-discarding")  # test-only kill point: renamed, not yet deleted
+    shutil.rmtree(grave, ignore_errors=True)
+
+
+def remove_discarded(path: Path) -> None:
+    """Delete what an interrupted :func:`discard_folder` of ``path`` left behind (call it
+    holding ``path``'s writer lock)."""
+    parent, prefix = path.parent, _discarded_prefix(path)
+    if not parent.is_dir():
+        return
+    for entry in parent.iterdir():
+        rest = entry.name[len(prefix) :]
+        if entry.name.startswith(prefix) and rest.isdigit() and not entry.is_symlink():
+            shutil.rmtree(entry, ignore_errors=True)
 
 
 def fsync_dir(path: Path) -> None:

@@ -18,9 +18,9 @@ pack``) opens read-only with the same API.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
-import shutil
 import warnings
 import zipfile
 from collections.abc import Iterator
@@ -36,7 +36,7 @@ from chainyard.errors import LimitExceededError, StoreError
 from chainyard.provenance import git_state, host_record, software_versions, utc_now
 from chainyard.store.chunks import ChunkEncoder
 from chainyard.store.faults import as_storage_fault, storage_faults
-from chainyard.store.files import atomic_write_json, stored_size
+from chainyard.store.files import atomic_write_json, discard_folder, stored_size
 from chainyard.store.integrity import (
     chunk_checksum,
     seal_record,
@@ -238,7 +238,8 @@ class Store(RowWriter):
             if fault is None:
                 raise
             if not existed:  # a creation cut short holds nothing of value
-                shutil.rmtree(path, ignore_errors=True)
+                with contextlib.suppress(OSError):
+                    discard_folder(path)
             raise fault from None
         return cls.open(path, writable=True)
 
