@@ -28,8 +28,8 @@ __all__ = [
     "engine_blob_names",
     "initial_random_state",
     "make_driver",
-    "stored_layout",
     "store_blob_names",
+    "stored_layout",
 ]
 
 #: identity string of every kind's driver (recorded in the store identity)
