@@ -227,6 +227,6 @@ def rate_from_counts(
         "per_chain_se": to_builtin(np.sqrt(rates * (1.0 - rates) / per_chain)),
         "proposals_per_draw": float(total / n),
     }
-    if log_bound is not None:
+    if log_bound is not None and -log_bound < 700:  # beyond: no float (an unnormalised f)
         out["one_over_m"] = float(np.exp(-log_bound))
     return out

@@ -85,8 +85,8 @@ class Envelope:
         z = (x - self.a) / self.b
         normal = -0.5 * z * z - np.log(self.b) - _HALF_LOG_2PI
         inside = (x >= self.a) & (x < self.b)
-        with np.errstate(divide="ignore"):
-            uniform = np.where(inside, -np.log(self.b - self.a), -np.inf)
+        width = np.where(self.normal, 1.0, self.b - self.a)  # normal entries: unused
+        uniform = np.where(inside, -np.log(width), -np.inf)
         return np.sum(np.where(self.normal, normal, uniform), axis=1)
 
 

@@ -31,10 +31,27 @@ from chainyard.engine.protocol import StepRows
 from chainyard.errors import ModelError
 from chainyard.model import LoadedModel
 
-__all__ = ["ADAPT_WINDOW", "MetropolisDriver", "initial_metropolis_state", "target_acceptance"]
+__all__ = [
+    "ADAPT_WINDOW",
+    "MetropolisDriver",
+    "accepts",
+    "initial_metropolis_state",
+    "target_acceptance",
+]
 
 #: steps per adaptation window
 ADAPT_WINDOW = 50
+
+
+def accepts(
+    log_u: NDArray[np.float64] | float,
+    lp_new: NDArray[np.float64] | float,
+    lp: NDArray[np.float64] | float,
+) -> NDArray[np.bool_]:
+    """The Metropolis rule for a symmetric proposal: accept when ``log u < lp_new - lp``,
+    with ``u`` uniform on (0, 1], i.e. with probability ``min(1, pi(x') / pi(x))``. A
+    proposal at -inf is never accepted; NaN never compares true."""
+    return np.less(log_u, np.subtract(lp_new, lp))
 
 
 def target_acceptance(spec: MetropolisSpec, n_params: int) -> float:
@@ -153,7 +170,7 @@ class MetropolisDriver:
                 )
             out = model(prop)
             lp_new = out if out.ndim == 1 else out[:, 0]
-            accepted = log_u < lp_new - lp
+            accepted = accepts(log_u, lp_new, lp)
             x[accepted] = prop[accepted]
             lp[accepted] = lp_new[accepted]
             if n_blobs:

@@ -313,5 +313,7 @@ def _sampler_lines(facts: dict[str, Any]) -> list[str]:
     if ar:
         from chainyard.analysis.diagnose import accept_reject_line
 
-        lines.append("  acceptance " + accept_reject_line(ar).removeprefix("Accept-reject: acceptance "))
+        lines.append(
+            "  acceptance " + accept_reject_line(ar).removeprefix("Accept-reject: acceptance ")
+        )
     return lines
