@@ -1,10 +1,12 @@
 """Random-walk Metropolis-Hastings on independent chains (Metropolis et al. 1953; Hastings 1970).
 
 Each chain proposes ``x' = x + sd * z`` with ``z ~ N(0, I)`` from its own stream and accepts
-with probability ``min(1, pi(x') / pi(x))`` (the proposal is symmetric). Per chain and step
-the stream gives ``params`` standard normals, then one uniform, whatever the outcome, so a
-chain's draws depend only on its own stream. All chains' proposals are evaluated in one call
-of the model per step.
+with probability ``min(1, pi(x') / pi(x))`` (the proposal is symmetric). A chain's stream is
+read in blocks of ``K`` steps (:func:`block_steps`; steps ``bK .. bK + K - 1`` form block b):
+``K x params`` standard normals, then ``K`` uniforms, whatever the outcomes, so a chain's
+draws depend only on its own stream and not on where commits fall. The record holds every
+chain's stream state at the start of the current block; resume draws that block again and
+skips the steps already taken. All chains' proposals are evaluated in one model call per step.
 
 Adaptation (optional, ``adapt_steps > 0``): during the first ``adapt_steps`` steps each
 chain's proposal scale ``s`` (a factor on ``proposal_sd``) is tuned by a Robbins-Monro update
@@ -35,6 +37,7 @@ __all__ = [
     "ADAPT_WINDOW",
     "MetropolisDriver",
     "accepts",
+    "block_steps",
     "initial_metropolis_state",
     "target_acceptance",
 ]
@@ -54,6 +57,12 @@ def accepts(
     return np.less(log_u, np.subtract(lp_new, lp))
 
 
+def block_steps(chains: int, n_params: int) -> int:
+    """Steps per block of pre-drawn proposals: 256, fewer for large runs (the block holds
+    ``chains x K x params`` float64, at most about 8 MiB)."""
+    return max(1, min(256, (1 << 20) // max(1, chains * n_params)))
+
+
 def target_acceptance(spec: MetropolisSpec, n_params: int) -> float:
     """The acceptance rate adaptation aims at: the config's, else 0.44 (1-D) or 0.234."""
     if spec.target_acceptance is not None:
@@ -67,6 +76,7 @@ def initial_metropolis_state(spec: MetropolisSpec, seed: int, replica: int) -> d
     return {
         "sampler": "metropolis_hastings",
         "bit_generator": "PCG64",
+        "block": None,  # set by the driver at its first record
         "chains": [generator_to_json(g) for g in gens],
         "log_scale": [0.0] * spec.chains,
         "window_accepted": [0] * spec.chains,
@@ -121,6 +131,23 @@ class MetropolisDriver:
         self._adapt_steps = spec.adapt_steps
         self._target = target_acceptance(spec, n_params)
         self._step = int(step)
+        self._sd_rows = self._sd * np.exp(self._log_scale)[:, None]
+        block = random_state.get("block")
+        self._block = int(block) if block is not None else block_steps(chains, n_params)
+        if self._block < 1:
+            raise ValueError("malformed Metropolis-Hastings state: block must be >= 1")
+        self._starts = [generator_to_json(g) for g in self._gens]
+        self._z = np.empty((chains, self._block, n_params))
+        self._log_u = np.empty((chains, self._block))
+        if self._step % self._block:  # inside a block: draw it again from its recorded start
+            self._draw_block()
+
+    def _draw_block(self) -> None:
+        """Every chain's normals and uniforms for the next ``K`` steps, from its own stream."""
+        self._starts = [generator_to_json(g) for g in self._gens]
+        for c, g in enumerate(self._gens):
+            g.standard_normal(out=self._z[c])
+            self._log_u[c] = np.log1p(-g.random(self._block))
 
     def _adapt(self, accepted: NDArray[np.bool_]) -> None:
         """Window bookkeeping and the Robbins-Monro update (adaptation phase only)."""
@@ -131,6 +158,7 @@ class MetropolisDriver:
             k = s // ADAPT_WINDOW + (1 if s % ADAPT_WINDOW else 0)
             rate = self._window / float(s - start)
             self._log_scale += (rate - self._target) / math.sqrt(k)
+            self._sd_rows = self._sd * np.exp(self._log_scale)[:, None]
             self._window[:] = 0
         if s == self._adapt_steps:
             self._freeze()
@@ -153,28 +181,27 @@ class MetropolisDriver:
 
     def steps(self, n: int) -> Iterator[StepRows]:
         """Advance ``n`` steps; see :class:`chainyard.engine.protocol.SamplerDriver`."""
-        gens, x, lp, model = self._gens, self._x, self._lp, self._model
-        chains, n_params = x.shape
+        x, lp, model = self._x, self._lp, self._model
         n_blobs = model.n_blobs
-        prop = np.empty_like(x)
-        log_u = np.empty(chains)
+        size = self._block
         for _ in range(n):
-            sd_rows = self._sd * np.exp(self._log_scale)[:, None]
-            for c, g in enumerate(gens):
-                prop[c] = x[c] + sd_rows[c] * g.standard_normal(n_params)
-                log_u[c] = math.log1p(-g.random())  # log of a uniform on (0, 1]
-            if not np.isfinite(prop).all():
+            i = self._step % size
+            if i == 0:
+                self._draw_block()
+            prop = x + self._sd_rows * self._z[:, i]
+            total = float(np.add.reduce(prop, axis=None))  # exact check only if not finite
+            if not -np.inf < total < np.inf and not np.isfinite(prop).all():
                 raise ModelError(
                     "the sampler proposed a non-finite position (a chain has diverged: check "
                     "the model for log-probabilities that grow without bound)"
                 )
             out = model(prop)
             lp_new = out if out.ndim == 1 else out[:, 0]
-            accepted = accepts(log_u, lp_new, lp)
-            x[accepted] = prop[accepted]
-            lp[accepted] = lp_new[accepted]
+            accepted = accepts(self._log_u[:, i], lp_new, lp)
+            np.copyto(x, prop, where=accepted[:, None])
+            np.copyto(lp, lp_new, where=accepted)
             if n_blobs:
-                self._blobs[accepted] = out[accepted, 1:]
+                np.copyto(self._blobs, out[:, 1:], where=accepted[:, None])
             self._step += 1
             if self._step <= self._adapt_steps:
                 self._adapt(accepted)
@@ -185,7 +212,11 @@ class MetropolisDriver:
         return {
             "sampler": "metropolis_hastings",
             "bit_generator": "PCG64",
-            "chains": [generator_to_json(g) for g in self._gens],
+            "block": self._block,
+            # at a block boundary the streams' current states start the next block
+            "chains": [generator_to_json(g) for g in self._gens]
+            if self._step % self._block == 0
+            else self._starts,
             "log_scale": [float(v) for v in self._log_scale],
             "window_accepted": [int(v) for v in self._window],
             "proposal": self._proposal
