@@ -93,3 +93,20 @@ def test_invalid_envelope_names_x(tmp_path: Path) -> None:
     line = _one_line(res, 2)
     assert "sampler.envelope: invalid at x = (x=" in line and "exceeds log_bound" in line
     assert not (tmp_path / "s.zarr").exists()
+
+
+def test_kernel_non_finite_state_is_one_model_line(tmp_path: Path) -> None:
+    """A kernel returning NaN: one model error naming the kernel, step and chain."""
+    kernel = (
+        "import numpy as np\n\n"
+        "def step(state, rng, data):\n"
+        "    return (np.full(2, np.nan), 0.0) if rng.random() < 2 else state\n"
+    )
+    res = _run(
+        tmp_path,
+        {"kind": "kernel", "kernel": "k.py:step", "chains": 2, "steps": 50},
+        files={"k.py": kernel},
+    )
+    line = _one_line(res, 3)
+    assert "sampler.kernel k.py:step returned" in line and "at step 0, chain 0" in line
+    assert "finite numbers" in line

@@ -33,6 +33,7 @@ IDENTITY_LABELS = {
     "parameters": "parameters (names, init or bounds)",
     "sampler_kind": "sampler kind",
     "sampler_settings": "sampler settings",
+    "kernel_source": "sampler.kernel file content",
 }
 
 
@@ -79,6 +80,14 @@ def run_identity(config: RunConfig, replica: int, sampler_kind: str) -> dict[str
         out["sampler_settings"] = {
             k: v for k, v in norm["sampler"].items() if k not in ("steps", "draws")
         }
+    kernel = getattr(config.sampler, "kernel", None)
+    if kernel:  # a user kernel's code shapes the draws like the model's
+        module = kernel.rpartition(":")[0]
+        record = _file_record(resolve_source(kernel, config.base_dir), module)
+        out["kernel_source"] = record
+        if module.endswith(".py") or "/" in module or "\\" in module:
+            # packed, recorded and verified with the other source files
+            out["extra_sources"] = [*out["extra_sources"], record]
     return out
 
 

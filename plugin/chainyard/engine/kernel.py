@@ -121,6 +121,8 @@ class KernelDriver:
         return ", ".join(f"{n}={v:.6g}" for n, v in zip(self._model.param_names, x, strict=True))
 
     def _parse(self, out: Any, chain: int, step: int) -> tuple[NDArray[np.float64], float | None]:
+        if type(out) is np.ndarray and out.shape == (self._n_params,) and out.dtype == np.float64:
+            return out, None  # the common case; finiteness is checked for all chains at once
         lp: float | None = None
         if isinstance(out, tuple):
             if len(out) != 2:
@@ -140,17 +142,20 @@ class KernelDriver:
             x = np.asarray(out, dtype=np.float64)
         except (TypeError, ValueError):
             x = np.empty(0)
-        if x.shape != (self._n_params,) or not np.isfinite(x).all():
-            raise ModelError(
-                f"sampler.kernel {self._name} returned {str(out)[:60]!r} at step {step}, chain "
-                f"{chain}; the state must be {self._n_params} finite numbers (params,)"
-            )
+        if x.shape != (self._n_params,):
+            self._bad_state(out, chain, step)
         if lp is not None and (np.isnan(lp) or lp == np.inf):
             raise ModelError(
                 f"sampler.kernel {self._name} returned log_prob {lp!r} at step {step}, chain "
                 f"{chain}; it must be a number below +inf"
             )
         return x, lp
+
+    def _bad_state(self, out: Any, chain: int, step: int) -> None:
+        raise ModelError(
+            f"sampler.kernel {self._name} returned {str(out)[:60]!r} at step {step}, chain "
+            f"{chain}; the state must be {self._n_params} finite numbers (params,)"
+        )
 
     def steps(self, n: int) -> Iterator[StepRows]:
         """Advance ``n`` steps; see :class:`chainyard.engine.protocol.SamplerDriver`."""
@@ -164,7 +169,14 @@ class KernelDriver:
                 missing[c] = given is None
                 if given is not None:
                     lp[c] = given
-            if missing.any():
+            total = float(np.add.reduce(new, axis=None))  # exact check only if not finite
+            if not -np.inf < total < np.inf and not np.isfinite(new).all():
+                c = int(np.flatnonzero(~np.isfinite(new).all(axis=1))[0])
+                self._bad_state(new[c], c, self._step)
+            if missing.all():
+                out = self._model(new)
+                lp[:] = out if out.ndim == 1 else out[:, 0]
+            elif missing.any():
                 out = self._model(new[missing])
                 lp[missing] = out if out.ndim == 1 else out[:, 0]
             accepted = (new != x).any(axis=1)
@@ -188,6 +200,7 @@ class KernelDriver:
         gen = generator_from_json(rng_record)
         for k, want in enumerate(self._check_rows):
             again, _ = self._parse(self._call(x, gen, 0, step + k), 0, step + k)
+            again = np.array(again, dtype=np.float64)
             if again.tobytes() != want.tobytes():
                 raise ModelError(
                     f"sampler.kernel {self._name} is not reproducible: step {step + k} of chain "
