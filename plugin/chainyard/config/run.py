@@ -231,7 +231,8 @@ def _check_chunk_size(config: RunConfig) -> None:
 
     steps = config.storage.chunk_steps
     walkers = config.sampler.walkers
-    row = len(config.parameters) + 2 + len(config.sampler.blobs)
+    engine_blobs = 1 if isinstance(config.sampler, AcceptRejectSpec) else 0  # proposal counts
+    row = len(config.parameters) + 2 + len(config.sampler.blobs) + engine_blobs
     size = steps * walkers * row * 8
     limit = limits.value("chunk_bytes")
     if size > limit:
