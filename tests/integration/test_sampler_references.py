@@ -30,6 +30,7 @@ from chainyard.analysis import diagnose_arrays
 from chainyard.diagnostics import integrated_time_report, walkers_as_chains
 from chainyard.engine.metropolis import accepts
 from chainyard.provenance.inspect import inspect_store
+from tests.conftest import cli
 
 RHO = 0.8
 BIVARIATE = f"""
@@ -315,3 +316,44 @@ def test_kidiq_ensemble_metropolis_accept_reject_agree(tmp_path: Path) -> None:
         assert abs(m - exact[key][0]) < 4 * s, (key, m, s, exact[key])
     rate = inspect_store(ar)["sampler"]["accept_reject"]["rate"]
     assert rate > 0.005  # the envelope is usable (about 1/M of the normalised target)
+
+
+def test_diagnose_reference_flags_a_wrong_run(tmp_path: Path) -> None:
+    """``diagnose --reference``: an MH run of the same N(0, 1) is consistent with an
+    accept-reject reference; an MH run of N(0.3, 1) differs (two-sample KS)."""
+    ar_sampler = {
+        "kind": "accept_reject",
+        "envelope": {"normal": {"loc": 0.0, "scale": 2.0}},
+        "log_bound": math.log(2.0),
+        "draws": 3_000,
+        "chains": 2,
+    }
+    mh_sampler = {"kind": "metropolis_hastings", "chains": 4, "steps": 3_000, "proposal_sd": 2.4}
+    stores = {}
+    for name, sampler, loc in (
+        ("ref", ar_sampler, 0.0),
+        ("same", mh_sampler, 0.0),
+        ("shifted", mh_sampler, 0.3),
+    ):
+        folder = tmp_path / name
+        folder.mkdir()
+        model = (
+            "import math\n\ndef log_prob(theta, data):\n"
+            f"    return -0.5 * (float(theta[0]) - {loc}) ** 2 - 0.5 * math.log(2 * math.pi)\n"
+        )
+        stores[name] = _sample(folder, sampler, model, PARAMS[:1]).path
+    for name, differs in (("same", False), ("shifted", True)):
+        record = tmp_path / f"{name}.json"
+        res = cli(
+            "diagnose",
+            str(stores[name]),
+            "--reference",
+            str(stores["ref"]),
+            "--json",
+            str(record),
+        )
+        assert res.returncode == 0, res.stderr
+        assert "Compared with reference" in res.stdout
+        ref = json.loads(record.read_text())["reference"]
+        assert ref["reference_kind"] == "accept_reject"
+        assert ref["params"]["x"]["differs"] is differs, ref
