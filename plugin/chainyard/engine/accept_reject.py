@@ -74,20 +74,34 @@ class Envelope:
         )
 
     def draw(self, gen: np.random.Generator, n: int) -> NDArray[np.float64]:
-        """``n`` proposals, shape (n, params): all standard normals, then all uniforms."""
+        """``n`` proposals, shape (n, params). From the stream: an (n, params) block of
+        standard normals if any entry is normal, then an (n, params) block of uniforms if any
+        entry is uniform (each column uses its own kind's block)."""
         p = self.a.size
-        z = gen.standard_normal((n, p))
-        u = gen.random((n, p))
-        return np.where(self.normal, self.a + self.b * z, self.a + (self.b - self.a) * u)
+        out = np.empty((n, p))
+        if self.normal.any():
+            z = gen.standard_normal((n, p))
+            np.copyto(out, self.a + self.b * z, where=self.normal)
+        if not self.normal.all():
+            u = gen.random((n, p))
+            np.copyto(out, self.a + (self.b - self.a) * u, where=~self.normal)
+        return out
 
     def log_density(self, x: NDArray[np.float64]) -> NDArray[np.float64]:
         """log g(x) for rows x, shape (n, params) -> (n,)."""
-        z = (x - self.a) / self.b
-        normal = -0.5 * z * z - np.log(self.b) - _HALF_LOG_2PI
-        inside = (x >= self.a) & (x < self.b)
-        width = np.where(self.normal, 1.0, self.b - self.a)  # normal entries: unused
-        uniform = np.where(inside, -np.log(width), -np.inf)
-        return np.sum(np.where(self.normal, normal, uniform), axis=1)
+        total = np.zeros(x.shape[0])
+        if self.normal.any():
+            a, b = self.a[self.normal], self.b[self.normal]
+            z = (x[:, self.normal] - a) / b
+            total += (
+                np.sum(-0.5 * z * z, axis=1) - float(np.sum(np.log(b))) - a.size * (_HALF_LOG_2PI)
+            )
+        if not self.normal.all():
+            low, high = self.a[~self.normal], self.b[~self.normal]
+            xs = x[:, ~self.normal]
+            inside = np.all((xs >= low) & (xs < high), axis=1)
+            total += np.where(inside, -float(np.sum(np.log(high - low))), -np.inf)
+        return total
 
 
 def initial_accept_reject_state(spec: AcceptRejectSpec, seed: int, replica: int) -> dict[str, Any]:
