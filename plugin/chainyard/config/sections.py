@@ -87,14 +87,17 @@ class ModelSpec(_Strict):
     @field_validator("log_prob", "data_loader")
     @classmethod
     def _function_reference(cls, value: str | None) -> str | None:
-        if value is None:
-            return value
-        module, sep, func = value.rpartition(":")
-        if not sep or not module or not func.isidentifier():
-            raise ValueError(
-                "must look like 'path/to/module.py:function' or 'package.module:function'"
-            )
+        return function_reference(value)
+
+
+def function_reference(value: str | None) -> str | None:
+    """Check a 'path/to/module.py:function' or 'package.module:function' reference."""
+    if value is None:
         return value
+    module, sep, func = value.rpartition(":")
+    if not sep or not module or not func.isidentifier():
+        raise ValueError("must look like 'path/to/module.py:function' or 'package.module:function'")
+    return value
 
 
 # --------------------------------------------------------------------------- parameters
@@ -398,13 +401,8 @@ class KernelSpec(_ChainSampler):
 
     @field_validator("kernel")
     @classmethod
-    def _function_reference(cls, value: str) -> str:
-        module, sep, func = value.rpartition(":")
-        if not sep or not module or not func.isidentifier():
-            raise ValueError(
-                "must look like 'path/to/module.py:function' or 'package.module:function'"
-            )
-        return value
+    def _function_reference(cls, value: str) -> str | None:
+        return function_reference(value)
 
     @property
     def blobs(self) -> tuple[str, ...]:

@@ -27,7 +27,7 @@ from numpy.typing import NDArray
 
 from chainyard.config import AcceptRejectSpec, NormalEnvelope
 from chainyard.engine.chains import (
-    chain_generators,
+    fresh_chain_states,
     generator_from_json,
     generator_to_json,
 )
@@ -106,12 +106,14 @@ class Envelope:
 
 def initial_accept_reject_state(spec: AcceptRejectSpec, seed: int, replica: int) -> dict[str, Any]:
     """The driver record before the first draw (fresh streams, no block yet)."""
-    gens = chain_generators(seed, replica, spec.chains)
     return {
         "sampler": "accept_reject",
         "bit_generator": "PCG64",
         "block": BLOCK,
-        "chains": [{"block_start": generator_to_json(g), "used": None} for g in gens],
+        "chains": [
+            {"block_start": start, "used": None}
+            for start in fresh_chain_states(seed, replica, spec.chains)
+        ],
     }
 
 

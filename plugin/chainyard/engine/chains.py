@@ -21,6 +21,7 @@ from chainyard.streams import SAMPLER_STREAM, spawn_key
 
 __all__ = [
     "chain_generators",
+    "fresh_chain_states",
     "generator_from_json",
     "generator_to_json",
     "generators_from_json",
@@ -31,6 +32,11 @@ def chain_generators(seed: int, replica: int, chains: int) -> list[np.random.Gen
     """The fresh per-chain generators of one replica (see module docstring)."""
     parent = np.random.SeedSequence(seed, spawn_key=spawn_key(replica, SAMPLER_STREAM))
     return [np.random.Generator(np.random.PCG64(child)) for child in parent.spawn(chains)]
+
+
+def fresh_chain_states(seed: int, replica: int, chains: int) -> list[dict[str, Any]]:
+    """The JSON records of every chain's fresh stream (see :func:`chain_generators`)."""
+    return [generator_to_json(g) for g in chain_generators(seed, replica, chains)]
 
 
 def generator_to_json(gen: np.random.Generator) -> dict[str, Any]:

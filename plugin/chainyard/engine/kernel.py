@@ -23,7 +23,7 @@ from numpy.typing import NDArray
 
 from chainyard.config import KernelSpec, RunConfig
 from chainyard.engine.chains import (
-    chain_generators,
+    fresh_chain_states,
     generator_from_json,
     generator_to_json,
     generators_from_json,
@@ -51,11 +51,10 @@ def load_kernel(config: RunConfig) -> Callable[..., Any]:
 
 def initial_kernel_state(spec: KernelSpec, seed: int, replica: int) -> dict[str, Any]:
     """The driver record before the first step (fresh per-chain streams)."""
-    gens = chain_generators(seed, replica, spec.chains)
     return {
         "sampler": "kernel",
         "bit_generator": "PCG64",
-        "chains": [generator_to_json(g) for g in gens],
+        "chains": fresh_chain_states(seed, replica, spec.chains),
     }
 
 

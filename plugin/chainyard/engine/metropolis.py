@@ -28,7 +28,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from chainyard.config import MetropolisSpec
-from chainyard.engine.chains import chain_generators, generator_to_json, generators_from_json
+from chainyard.engine.chains import fresh_chain_states, generator_to_json, generators_from_json
 from chainyard.engine.protocol import StepRows
 from chainyard.errors import ModelError
 from chainyard.model import LoadedModel
@@ -72,12 +72,11 @@ def target_acceptance(spec: MetropolisSpec, n_params: int) -> float:
 
 def initial_metropolis_state(spec: MetropolisSpec, seed: int, replica: int) -> dict[str, Any]:
     """The driver record before the first step (fresh streams, scale 1, nothing frozen)."""
-    gens = chain_generators(seed, replica, spec.chains)
     return {
         "sampler": "metropolis_hastings",
         "bit_generator": "PCG64",
         "block": None,  # set by the driver at its first record
-        "chains": [generator_to_json(g) for g in gens],
+        "chains": fresh_chain_states(seed, replica, spec.chains),
         "log_scale": [0.0] * spec.chains,
         "window_accepted": [0] * spec.chains,
         "proposal": None,
