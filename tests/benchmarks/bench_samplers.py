@@ -203,9 +203,9 @@ def main() -> None:
         jobs: dict[str, Callable[[], float]] = {}
         same: dict[str, bool] = {}
 
-        def add(name: str, sampler: dict, plain: Callable) -> None:
+        def add(name: str, sampler: dict, plain: Callable, storage: dict | None = None) -> None:
             for n in (short, long):
-                config = _config(folder, {**sampler, "steps": n})
+                config = _config(folder, {**sampler, "steps": n}, storage)
 
                 def ours(config: chainyard.RunConfig = config, n: int = n) -> float:
                     took, last = _chainyard(folder, config)
@@ -219,6 +219,10 @@ def main() -> None:
 
         for name, (sampler, plain) in samplers.items():
             add(name, sampler, plain)
+        # the same MH runs committing every 50,000 steps instead of 2,000 (cheap steps)
+        sparse = "metropolis_hastings, commits every 50,000 steps"
+        samplers[sparse] = samplers["metropolis_hastings"]
+        add(sparse, *samplers[sparse], {"commit_every_steps": 50_000})
         jobs["accept_reject chainyard"] = lambda: _chainyard(folder, ar)[0]
         jobs["accept_reject plain"] = lambda: _plain_accept_reject(ar_draws * CHAINS, log_m)
         times: dict[str, list[float]] = {k: [] for k in jobs}

@@ -284,6 +284,10 @@ def format_validation_error(error: ValidationError, source: str) -> list[str]:
                 f"{where}: not a setting of kind {own} (it has "
                 f"{', '.join(sampler_keys(own)[:3])}, ...)"
             )
+        elif kind == "sampler_kind" and not isinstance(item.get("input"), dict):
+            lines.append(
+                f"{where} = {_short(item.get('input'))}: must be a mapping of sampler settings"
+            )
         elif kind == "sampler_kind":
             lines.append(f"{source}: sampler.kind = {_short(_kind_of(item.get('input')))}: {msg}")
         elif kind == "extra_forbidden":
