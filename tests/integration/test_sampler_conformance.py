@@ -153,3 +153,13 @@ def test_store_layout_and_verify(kind: str, references: dict[str, Path]) -> None
     res = cli("verify", str(references[kind]), "--replay", "200")
     assert res.returncode == 0, res.stdout + res.stderr
     assert "bitwise identical" in res.stdout + res.stderr
+    res = cli("inspect", str(references[kind]))
+    assert res.returncode == 0, res.stderr
+    if kind != "ensemble":
+        assert f"sampler    {kind} (the walkers axis holds independent chains)" in res.stdout
+    if kind == "metropolis_hastings":  # the frozen proposal is a recorded decision
+        proposal = store.commit_record["random_state"]["proposal"]
+        assert proposal["policy"] == "adapted" and proposal["frozen_at_step"] == 300
+        assert len(proposal["proposal_sd"]) == 4 and "proposal   adapted:" in res.stdout
+    if kind == "accept_reject":
+        assert "acceptance rate" in res.stdout and "binomial SE" in res.stdout
