@@ -172,6 +172,13 @@ def _cmd_diagnose(args: argparse.Namespace) -> int:
     stores = open_replicas(args.stores)
     config = _run_config(args, args.stores[0])
     result = diagnose(stores, config.targets)
+    if args.reference:
+        from chainyard.analysis.diagnose import compare_with_reference
+
+        reference = open_replicas(args.reference)
+        result["reference"] = compare_with_reference(
+            stores, result, reference, ", ".join(args.reference)
+        )
     if args.json:
         write_record(args.json, "chainyard.diagnostics", result, stores)
     print(format_table(result, title=args.title or ""))
@@ -302,6 +309,14 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--title", default=None, help="heading for the table")
     p.add_argument(
         "--strict", action="store_true", help="exit with status 1 when the targets are not met"
+    )
+    p.add_argument(
+        "--reference",
+        nargs="+",
+        default=None,
+        metavar="STORE",
+        help="compare the draws with a reference run's stores (e.g. accept-reject) by a "
+        "two-sample Kolmogorov-Smirnov test per parameter",
     )
     p.set_defaults(func=_cmd_diagnose)
 

@@ -16,6 +16,13 @@ What is compared (documented in every diagnostics record, ``what_each_check_comp
   (draws / tau, Sokal 1997) is reported beside them. Multivariate ESS (Vats, Flegal and
   Jones 2019, Biometrika 106(2)) on the walker-mean traces of all replicas.
 
+The basis depends on the sampler kind (recorded as ``basis`` in the result): the walkers of
+an ensemble are not independent, so R-hat uses one walker-mean trace per replica as above;
+the chains of Metropolis-Hastings and user kernels are independent chains, so R-hat (split,
+rank-normalised) uses every chain of every replica directly; accept-reject draws are
+independent, so ESS is the number of draws (tau 1) and its acceptance rate with binomial
+standard error is reported (``accept_reject``).
+
 Memory is bounded by the size of one parameter *column* (that parameter for every walker of
 every replica), not by the store: see :func:`diagnose`. :func:`diagnose_arrays` runs the same
 code on draws held in memory.
@@ -43,7 +50,7 @@ from chainyard.diagnostics import (
     rhat_folded,
 )
 from chainyard.diagnostics._validation import MIN_DRAWS
-from chainyard.diagnostics.acceptance import acceptance_band
+from chainyard.diagnostics.acceptance import accept_reject_rate, acceptance_band
 from chainyard.diagnostics.nested import nested_rhat_folded_inplace, nested_rhat_of_scores
 from chainyard.diagnostics.pooled import pooled_summary
 from chainyard.errors import ChainyardError, StoreError
@@ -67,6 +74,31 @@ WHAT_IS_COMPARED = (
     "reported (tau_max); growth: whole "
     "run vs its first half. mESS: walker-mean traces of all replicas."
 )
+
+
+#: what R-hat and ESS treat as chains, per sampler kind
+BASIS = {
+    "ensemble": (
+        "ensemble: R-hat on one walker-mean trace per replica; ESS/MCSE with every walker "
+        "as a chain"
+    ),
+    "metropolis_hastings": (
+        "independent chains: R-hat and ESS/MCSE with every chain of every replica as a chain"
+    ),
+    "kernel": "independent chains: R-hat and ESS/MCSE with every chain of every replica as a chain",
+    "accept_reject": (
+        "independent draws: ESS = number of draws (tau = 1), MCSE = sd / sqrt(draws); R-hat "
+        "with every chain as a chain"
+    ),
+}
+
+
+def sampler_kind(stores: Sequence[Any]) -> str:
+    """The sampler kind of a run's stores (``ensemble`` for stores that do not record one)."""
+    attrs = getattr(stores[0], "attrs", None) or {}
+    sampler = (attrs.get("config") or {}).get("sampler") or {}
+    kind = attrs.get("sampler_kind") or sampler.get("kind") or "ensemble"
+    return kind if kind in BASIS else "ensemble"
 
 
 class ArrayReplica:
@@ -119,6 +151,7 @@ def diagnose_arrays(
     accepted: npt.NDArray[np.bool_] | None = None,
     names: Sequence[str] | None = None,
     move_kinds: Sequence[str] | None = None,
+    kind: str = "ensemble",
 ) -> dict[str, Any]:
     """:func:`diagnose` on draws held in memory (same code, same result dict).
 
@@ -134,6 +167,8 @@ def diagnose_arrays(
         Parameter names (default ``x0, x1, ...``).
     move_kinds : sequence of str, optional
         The run's move kinds for the acceptance band (default: ensemble moves).
+    kind : str
+        Sampler kind, for the basis of R-hat and ESS (:data:`BASIS`).
 
     Returns
     -------
@@ -161,6 +196,7 @@ def diagnose_arrays(
         replicas,  # type: ignore[arg-type]
         targets or TargetsSpec(),
         move_kinds=move_kinds,
+        kind=kind,
     )
 
 
@@ -259,8 +295,12 @@ def _param_diagnostics(
     x: FloatArray,
     work: FloatArray,
     walker_means: FloatArray,
+    kind: str = "ensemble",
 ) -> dict[str, Any]:
     """Diagnostics of parameter ``j``; ``x`` and ``work`` are reused buffers (one column each).
+
+    ``kind`` sets the basis (:data:`BASIS`): for an ensemble R-hat uses the walker-mean
+    traces, for independent chains every chain.
 
     Memory: ``x`` (the draws of all walkers of all replicas), ``work`` and, during each rank
     normalisation, one index array of the same length: three columns, plus blocks of a few
@@ -268,7 +308,14 @@ def _param_diagnostics(
     nested R-hat needs the raw draws after the pooled summary has overwritten them.
     """
     read_column(stores, j, steps, x, walker_means)
-    replica_chains = np.ascontiguousarray(walker_means)  # (replicas, steps), small
+    # independent chains are chains for R-hat directly: x, before it is overwritten below
+    replica_chains = np.ascontiguousarray(walker_means) if kind == "ensemble" else x
+    rhats = (
+        _finite(rhat(replica_chains)),
+        _finite(rhat_bulk(replica_chains)),
+        _finite(rhat_folded(replica_chains)),
+    )
+    del replica_chains
     reports = []
     row = 0
     for s in stores:  # tau per replica, walkers averaged; rows of x are that replica's walkers
@@ -298,9 +345,9 @@ def _param_diagnostics(
         "q50": pooled["q50"],
         "q95": pooled["q95"],
         "rhat_nested": nested,
-        "rhat": _finite(rhat(replica_chains)),
-        "rhat_bulk": _finite(rhat_bulk(replica_chains)),
-        "rhat_folded": _finite(rhat_folded(replica_chains)),
+        "rhat": rhats[0],
+        "rhat_bulk": rhats[1],
+        "rhat_folded": rhats[2],
         "ess_bulk": _finite(pooled["ess_bulk"]),
         "ess_tail": _finite(pooled["ess_tail"]),
         "ess_tau": float(draws_total / tau) if tau > 0 else None,
@@ -316,6 +363,22 @@ def _param_diagnostics(
         "tau_reliable": all(r.reliable for r in reports),
         "tau_messages": [r.message for r in reports if r.message],
     }
+    if kind == "accept_reject":  # independent draws by construction
+        n = float(draws_total)
+        sd = pooled["sd"]
+        out.update(
+            ess_bulk=n,
+            ess_tail=n,
+            ess_tau=n,
+            tau=1.0,
+            tau_max=1.0,
+            tau_per_replica=[1.0] * len(stores),
+            steps_per_tau=float(steps),
+            tau_growth=1.0,
+            tau_reliable=True,
+            tau_messages=[],
+            mcse_mean=_finite(sd / np.sqrt(n)) if sd is not None else None,
+        )
     return out
 
 
@@ -323,7 +386,9 @@ def _param_diagnostics(
 MIN_STEPS = MIN_DRAWS
 
 
-def _move_kinds(stores: Sequence[Any]) -> list[str] | None:
+def _move_kinds(stores: Sequence[Any], kind: str) -> list[str] | None:
+    if kind != "ensemble":
+        return [kind]
     try:
         return [m.kind for m in stores[0].config.sampler.moves]
     except (AttributeError, ChainyardError):  # in-memory replicas, or no readable config
@@ -335,6 +400,7 @@ def diagnose(
     targets: TargetsSpec | None = None,
     *,
     move_kinds: Sequence[str] | None = None,
+    kind: str | None = None,
 ) -> dict[str, Any]:
     """Diagnostics per parameter, acceptance per replica, mESS, and the verdict.
 
@@ -353,6 +419,8 @@ def diagnose(
         Targets for the verdict (default: the first store's config targets).
     move_kinds : sequence of str, optional
         Move kinds for the acceptance band (default: from the first store's config).
+    kind : str, optional
+        Sampler kind (default: the stores' recorded kind); sets the basis (:data:`BASIS`).
 
     Returns
     -------
@@ -367,6 +435,7 @@ def diagnose(
         If the shortest replica has fewer than :data:`MIN_STEPS` steps.
     """
     targets = targets or stores[0].config.targets
+    kind = kind or sampler_kind(stores)
     steps = min(s.steps_done for s in stores)
     if steps < MIN_STEPS:
         raise StoreError(
@@ -381,9 +450,9 @@ def diagnose(
     params = {}
     min_spt = targets.min_steps_per_tau or 50.0
     for j, name in enumerate(names):
-        params[name] = _param_diagnostics(stores, j, steps, min_spt, x, work, means[:, :, j])
+        params[name] = _param_diagnostics(stores, j, steps, min_spt, x, work, means[:, :, j], kind)
     del x, work
-    kinds = list(move_kinds) if move_kinds is not None else _move_kinds(stores)
+    kinds = list(move_kinds) if move_kinds is not None else _move_kinds(stores, kind)
     band = acceptance_band(kinds, len(names))
     acceptance = []
     for s in stores:
@@ -394,6 +463,8 @@ def diagnose(
         mess = float(multivariate_ess(means))
     except ValueError:
         mess = float("nan")
+    if kind == "accept_reject":
+        mess = float(steps * chains)  # independent draws
     del means
     multivariate = {
         "ess": _finite(mess),
@@ -413,7 +484,13 @@ def diagnose(
         stuck_walkers={a["replica"]: a["stuck_walkers"] for a in acceptance},
     )
     bad_acceptance = [a for a in acceptance if a["messages"]]
+    extra: dict[str, Any] = {}
+    if kind == "accept_reject":
+        extra["accept_reject"] = accept_reject_summary(stores, steps)
     return {
+        "sampler_kind": kind,
+        "basis": BASIS[kind],
+        **extra,
         "replicas": len(stores),
         "steps": steps,
         "walkers": stores[0].walkers,
@@ -427,6 +504,75 @@ def diagnose(
         "what_is_compared": WHAT_IS_COMPARED,
         "what_each_check_compares": dict(WHAT_EACH_CHECK_COMPARES),
     }
+
+
+def compare_with_reference(
+    stores: Sequence[Store],
+    result: dict[str, Any],
+    reference: Sequence[Store],
+    label: str,
+) -> dict[str, Any]:
+    """Two-sample tests of every parameter of ``stores`` against a reference run.
+
+    Each side's draws (all walkers or chains of all replicas, as given: after burn-in) are
+    compared per parameter by :func:`chainyard.diagnostics.twosample.compare_samples`, with
+    the bulk ESS of each side as its effective size (the reference's from its own
+    diagnostics, so an accept-reject reference counts every draw).
+
+    Memory: one parameter column of each run at a time.
+    """
+    from chainyard.diagnostics.twosample import compare_samples
+
+    names = stores[0].param_names
+    missing = [n for n in names if n not in reference[0].param_names]
+    if missing:
+        raise StoreError(
+            f"{label}: the reference run has no parameter {missing[0]!r} (it has "
+            f"{', '.join(reference[0].param_names)})"
+        )
+    ref_result = diagnose(reference, result_targets(result))
+    out: dict[str, Any] = {
+        "reference": label,
+        "reference_kind": ref_result["sampler_kind"],
+        "method": "two-sample Kolmogorov-Smirnov with effective sizes (ESS bulk), "
+        "energy distance beside it (Szekely and Rizzo 2013)",
+        "params": {},
+    }
+    for name in names:
+        a = _all_draws(stores, stores[0].param_names.index(name), result["steps"])
+        j = reference[0].param_names.index(name)
+        b = _all_draws(reference, j, ref_result["steps"])
+        out["params"][name] = compare_samples(
+            a, b, result["params"][name]["ess_bulk"], ref_result["params"][name]["ess_bulk"]
+        )
+    return out
+
+
+def result_targets(result: dict[str, Any]) -> TargetsSpec:
+    """The targets a diagnostics result was judged by."""
+    return TargetsSpec.model_validate(result["targets"])
+
+
+def _all_draws(stores: Sequence[Store], j: int, steps: int) -> FloatArray:
+    """Parameter ``j`` of every walker or chain of every replica, first ``steps`` rows."""
+    chains = sum(s.walkers for s in stores)
+    out = np.empty((chains, steps))
+    read_column(stores, j, steps, out, np.empty((len(stores), steps)))
+    return out
+
+
+def accept_reject_summary(stores: Sequence[Any], steps: int) -> dict[str, Any] | None:
+    """Acceptance rate with its binomial SE over the replicas' first ``steps`` draws (None
+    when the stores hold no proposal counts, e.g. draws held in memory)."""
+    from chainyard.engine.accept_reject import PROPOSALS_BLOB
+
+    name = f"blob/{PROPOSALS_BLOB}"
+    if not all(name in getattr(s, "array_names", lambda: ())() for s in stores):
+        return None
+    counts = np.concatenate([s.read_rows(name, 0, steps) for s in stores], axis=1)
+    sampler = (stores[0].attrs.get("config") or {}).get("sampler") or {}
+    bound = sampler.get("log_bound")
+    return accept_reject_rate(counts, float(bound) if bound is not None else None)
 
 
 def _num(value: Any, fmt: str) -> str:
@@ -460,8 +606,9 @@ def format_table(result: dict[str, Any], title: str = "") -> str:
     lines = []
     if title:
         lines.append(title)
+    unit = "walkers" if result.get("sampler_kind", "ensemble") == "ensemble" else "chains"
     lines.append(
-        f"{result['replicas']} replica(s) x {result['walkers']} walkers x "
+        f"{result['replicas']} replica(s) x {result['walkers']} {unit} x "
         f"{result['steps']:,} steps (after burn-in)"
     )
     lines.append(head)
@@ -481,9 +628,40 @@ def format_table(result: dict[str, Any], title: str = "") -> str:
     lines.append("")
     lines.extend(result["verdict"]["lines"])
     lines.extend(f"warning: {m}" for m in result["acceptance_warnings"])
+    if result.get("basis"):
+        lines.append(f"Basis: {result['basis']}")
+    ar = result.get("accept_reject")
+    if ar:
+        lines.append(accept_reject_line(ar))
+    if result.get("reference"):
+        lines.extend(reference_lines(result["reference"]))
     lines.append("What each check compares:")
     lines.extend(
         f"  {key}: {text}" for key, text in result.get("what_each_check_compares", {}).items()
     )
     lines.append("Diagnostics can show non-convergence; they cannot prove convergence.")
     return "\n".join(lines)
+
+
+def accept_reject_line(ar: dict[str, Any]) -> str:
+    """One line: acceptance rate, binomial SE, proposals per draw (and 1/M if known)."""
+    text = (
+        f"Accept-reject: acceptance rate {ar['rate']:.4f} +- {ar['se']:.4f} (binomial SE; "
+        f"{ar['draws']:,} draws from {ar['proposals']:,} proposals, "
+        f"{ar['proposals_per_draw']:.3g} per draw)"
+    )
+    if ar.get("one_over_m") is not None:
+        text += f"; 1/M = {ar['one_over_m']:.4f} (equal for a normalised target)"
+    return text
+
+
+def reference_lines(ref: dict[str, Any]) -> list[str]:
+    """The two-sample comparison with a reference run, one line per parameter."""
+    lines = [f"Compared with reference {ref['reference']} ({ref['method']}):"]
+    for name, r in ref["params"].items():
+        lines.append(
+            f"  {name}: KS D = {r['ks_statistic']:.4f}, p = {r['ks_pvalue']:.3g} (effective "
+            f"sizes {r['n_effective']:.0f} vs {r['m_effective']:.0f}); "
+            f"{'differs' if r['differs'] else 'consistent'}"
+        )
+    return lines

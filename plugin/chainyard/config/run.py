@@ -26,14 +26,19 @@ from chainyard.config.policies import (
 from chainyard.config.sections import (
     CODEC_MAX_LEVEL,
     NAME_PATTERN,
+    SAMPLER_KINDS,
+    AcceptRejectSpec,
+    AnySamplerSpec,
     DESnookerMove,
     DifferentialEvolutionMove,
     GaussianMove,
+    MetropolisSpec,
     ModelSpec,
     Parameter,
     SamplerSpec,
     StorageSpec,
     WalkMove,
+    sampler_keys,
 )
 from chainyard.config.yamlfile import read_yaml_file
 from chainyard.errors import ConfigError
@@ -46,7 +51,12 @@ class RunConfig(_Strict):
 
     model: ModelSpec
     parameters: tuple[Parameter, ...] = Field(description="Parameters in theta order.")
-    sampler: SamplerSpec
+    sampler: AnySamplerSpec = Field(
+        description=(
+            "The sampler; 'kind' chooses it (default 'ensemble'). For the other kinds the "
+            "store's walkers axis holds independent chains."
+        )
+    )
     storage: StorageSpec = Field(default_factory=StorageSpec)
     seed: int = Field(ge=0, description="Root seed; replicas get independent spawned streams.")
     replicas: int = Field(default=1, ge=1, description="Independent replicas (for workflows).")
@@ -75,14 +85,15 @@ class RunConfig(_Strict):
     def _consistent(self) -> RunConfig:
         if not self.parameters:
             raise ValueError("parameters: at least one parameter is required")
-        if not self.sampler.moves:
+        ensemble = isinstance(self.sampler, SamplerSpec)
+        if ensemble and not self.sampler.moves:
             raise ValueError("sampler.moves: at least one move is required")
         names = [p.name for p in self.parameters]
         dupes = sorted({n for n in names if names.count(n) > 1})
         if dupes:
             raise ValueError(f"parameter names must be unique; repeated: {', '.join(dupes)}")
         n = len(names)
-        if self.sampler.walkers < 2 * n:
+        if ensemble and self.sampler.walkers < 2 * n:
             raise ValueError(
                 f"sampler.walkers = {self.sampler.walkers}: must be at least 2 x parameters "
                 f"= {2 * n}"
@@ -99,6 +110,7 @@ class RunConfig(_Strict):
             raise ValueError(f"sampler.blobs must be unique; repeated: {', '.join(blob_dupes)}")
         for i, move in enumerate(self.sampler.moves):
             _check_move(i, move, n, self.sampler.walkers)
+        _check_chain_sampler(self.sampler, n)
         _check_chunk_size(self)
         _check_codec_level(self.storage)
         return self
@@ -150,8 +162,34 @@ class RunConfig(_Strict):
     def with_steps(self, steps: int) -> RunConfig:
         """A copy with a different total step count (same base directory)."""
         data = self.model_dump()
-        data["sampler"]["steps"] = steps
+        data["sampler"][steps_key(data["sampler"])] = steps
         return parse_config(data, base_dir=self._base_dir, source=self._source)
+
+
+def steps_key(sampler: dict[str, Any]) -> str:
+    """The key holding the run length in a (stored) sampler mapping: 'draws' for
+    accept-reject, 'steps' for every other kind."""
+    return "draws" if sampler.get("kind") == "accept_reject" else "steps"
+
+
+def _check_chain_sampler(sampler: Any, n_params: int) -> None:
+    """Settings of the independent-chain kinds that depend on the parameter count."""
+    sd = sampler.proposal_sd if isinstance(sampler, MetropolisSpec) else None
+    if isinstance(sd, tuple) and len(sd) != n_params:
+        raise ValueError(
+            f"sampler.proposal_sd has {len(sd)} values; need 1 or {n_params} (one per parameter)"
+        )
+    if isinstance(sampler, AcceptRejectSpec):
+        if not isinstance(sampler.envelope, tuple) and n_params != 1:
+            raise ValueError(
+                f"sampler.envelope: a single mapping is for one parameter; give a list of "
+                f"{n_params} (one per parameter, in theta order)"
+            )
+        if isinstance(sampler.envelope, tuple) and len(sampler.envelope) != n_params:
+            raise ValueError(
+                f"sampler.envelope has {len(sampler.envelope)} entries; need {n_params} (one "
+                "per parameter, in theta order)"
+            )
 
 
 def _check_move(i: int, move: Any, n_params: int, walkers: int) -> None:
@@ -193,7 +231,8 @@ def _check_chunk_size(config: RunConfig) -> None:
 
     steps = config.storage.chunk_steps
     walkers = config.sampler.walkers
-    row = len(config.parameters) + 2 + len(config.sampler.blobs)
+    engine_blobs = 1 if isinstance(config.sampler, AcceptRejectSpec) else 0  # proposal counts
+    row = len(config.parameters) + 2 + len(config.sampler.blobs) + engine_blobs
     size = steps * walkers * row * 8
     limit = limits.value("chunk_bytes")
     if size > limit:
@@ -239,6 +278,18 @@ def format_validation_error(error: ValidationError, source: str) -> list[str]:
         if kind == "union_tag_not_found":
             key = (item.get("ctx") or {}).get("discriminator", "kind").strip("'")
             lines.append(f"{where}.{key}: required key is missing" if loc else f"{where}: {msg}")
+        elif kind == "extra_forbidden" and _other_kind_key(item["loc"]):
+            key, own = _other_kind_key(item["loc"])
+            lines.append(
+                f"{where}: not a setting of kind {own} (it has "
+                f"{', '.join(sampler_keys(own)[:3])}, ...)"
+            )
+        elif kind == "sampler_kind" and not isinstance(item.get("input"), dict):
+            lines.append(
+                f"{where} = {_short(item.get('input'))}: must be a mapping of sampler settings"
+            )
+        elif kind == "sampler_kind":
+            lines.append(f"{source}: sampler.kind = {_short(_kind_of(item.get('input')))}: {msg}")
         elif kind == "extra_forbidden":
             lines.append(f"{where}: unknown key (check the spelling; see `chainyard schema`)")
         elif kind == "missing":
@@ -257,7 +308,22 @@ _POLICY_TAGS = {
 }  # fmt: skip
 
 
+def _other_kind_key(loc: tuple[int | str, ...]) -> tuple[str, str] | None:
+    """(key, kind) when ``loc`` is a key of another sampler kind given under ``kind``."""
+    if len(loc) != 3 or loc[0] != "sampler" or loc[1] not in SAMPLER_KINDS:
+        return None
+    key, own = str(loc[2]), str(loc[1])
+    others = {k for name in SAMPLER_KINDS if name != own for k in sampler_keys(name)}
+    return (key, own) if key in others | {"walkers", "steps", "draws"} else None
+
+
+def _kind_of(value: Any) -> Any:
+    return value.get("kind") if isinstance(value, dict) else value
+
+
 def _clean_loc(loc: tuple[int | str, ...]) -> str:
+    if len(loc) >= 2 and loc[0] == "sampler" and loc[1] in SAMPLER_KINDS:
+        loc = (loc[0], *loc[2:])  # the kind tag pydantic puts into the path
     if len(loc) >= 2 and loc[0] in ("burn_in", "thinning") and loc[1] in _POLICY_TAGS:
         loc = (loc[0], *loc[2:])
     parts: list[str] = []

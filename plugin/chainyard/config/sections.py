@@ -87,14 +87,17 @@ class ModelSpec(_Strict):
     @field_validator("log_prob", "data_loader")
     @classmethod
     def _function_reference(cls, value: str | None) -> str | None:
-        if value is None:
-            return value
-        module, sep, func = value.rpartition(":")
-        if not sep or not module or not func.isidentifier():
-            raise ValueError(
-                "must look like 'path/to/module.py:function' or 'package.module:function'"
-            )
+        return function_reference(value)
+
+
+def function_reference(value: str | None) -> str | None:
+    """Check a 'path/to/module.py:function' or 'package.module:function' reference."""
+    if value is None:
         return value
+    module, sep, func = value.rpartition(":")
+    if not sep or not module or not func.isidentifier():
+        raise ValueError("must look like 'path/to/module.py:function' or 'package.module:function'")
+    return value
 
 
 # --------------------------------------------------------------------------- parameters
@@ -241,16 +244,7 @@ class GaussianMove(_Move):
     @field_validator("proposal_sd", mode="before")
     @classmethod
     def _positive_sd(cls, value: Any) -> Any:
-        values = list(value) if isinstance(value, list | tuple) else [value]
-        ok = bool(values) and all(
-            isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v) and v > 0
-            for v in values
-        )
-        if not ok:
-            raise ValueError(
-                "must be a positive finite number, or a list of them (one per parameter)"
-            )
-        return value
+        return _check_sd(value)
 
 
 MoveSpec = Annotated[
@@ -260,8 +254,13 @@ MoveSpec = Annotated[
 
 
 class SamplerSpec(_Strict):
-    """The ensemble sampler."""
+    """The ensemble sampler (kind ``ensemble``, the default when ``kind`` is absent)."""
 
+    kind: Literal["ensemble"] = Field(
+        default="ensemble",
+        exclude=True,  # the default kind is left out of the normalised config (stable hashes)
+        description="Sampler kind; 'ensemble' (the default) is emcee's ensemble of walkers.",
+    )
     walkers: int = Field(ge=2, description="Number of walkers (at least 2 x parameters).")
     steps: int = Field(ge=1, description="Total number of steps in the finished run.")
     moves: tuple[MoveSpec, ...] = Field(
@@ -290,6 +289,219 @@ class SamplerSpec(_Strict):
             "the run is refused."
         ),
     )
+
+
+def _check_sd(value: Any) -> Any:
+    values = list(value) if isinstance(value, list | tuple) else [value]
+    ok = bool(values) and all(
+        isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v) and v > 0
+        for v in values
+    )
+    if not ok:
+        raise ValueError("must be a positive finite number, or a list of them (one per parameter)")
+    return value
+
+
+class _ChainSampler(_Strict):
+    """Settings shared by the samplers of independent chains.
+
+    The store's walkers axis holds the chains: ``walkers`` is an alias of ``chains`` so that
+    the store, diagnostics and workflow code read every kind alike.
+    """
+
+    chains: int = Field(
+        default=4, ge=1, description="Independent chains, each with its own random stream."
+    )
+    initial_positions: str | None = Field(
+        default=None,
+        description=(
+            "Optional .npy or .csv file of shape (chains, params) with every chain's start; "
+            "overrides the parameters' 'init'."
+        ),
+    )
+    init_retries: int = Field(
+        default=100,
+        ge=0,
+        description="Times a chain whose start has log_prob -inf is redrawn from its 'init'.",
+    )
+
+    @property
+    def walkers(self) -> int:
+        """The store's walkers axis: one entry per chain."""
+        return self.chains
+
+    @property
+    def moves(self) -> tuple[MoveSpec, ...]:
+        """No ensemble moves (an empty tuple, so ensemble-only code paths skip them)."""
+        return ()
+
+
+class MetropolisSpec(_ChainSampler):
+    """Random-walk Metropolis-Hastings: independent chains with Gaussian proposals."""
+
+    kind: Literal["metropolis_hastings"]
+    steps: int = Field(ge=1, description="Total number of steps per chain in the finished run.")
+    proposal_sd: float | tuple[float, ...] = Field(
+        description=(
+            "Standard deviation of the Gaussian random-walk proposal (parameter units): one "
+            "value for every parameter, or one per parameter."
+        )
+    )
+    adapt_steps: int = Field(
+        default=0,
+        ge=0,
+        description=(
+            "Length of the adaptation phase (steps). During it each chain's proposal scale is "
+            "tuned towards 'target_acceptance'; it is frozen afterwards and recorded. 0: no "
+            "adaptation. Steps of the phase are stored; burn-in should discard them."
+        ),
+    )
+    target_acceptance: float | None = Field(
+        default=None,
+        gt=0,
+        lt=1,
+        description=(
+            "Acceptance rate the adaptation aims at. None: 0.44 for one parameter, 0.234 for "
+            "more (Roberts, Gelman and Gilks 1997; Roberts and Rosenthal 2001)."
+        ),
+    )
+    blobs: tuple[Annotated[str, Field(pattern=NAME_PATTERN)], ...] = Field(
+        default=(),
+        description="Names of extra scalar values log_prob returns, stored per step and chain.",
+    )
+
+    @field_validator("proposal_sd", mode="before")
+    @classmethod
+    def _positive_sd(cls, value: Any) -> Any:
+        return _check_sd(value)
+
+
+class KernelSpec(_ChainSampler):
+    """A user-written transition kernel (e.g. a Gibbs sweep) run on independent chains."""
+
+    kind: Literal["kernel"]
+    kernel: str = Field(
+        description=(
+            "The kernel, 'path/to/module.py:function' (relative to the config file) or "
+            "'package.module:function'. Called as step(state, rng, data) with state the "
+            "parameter vector (params,) and rng the chain's own numpy Generator; returns the "
+            "new state, or (state, log_prob). All randomness must come from rng."
+        ),
+        examples=["gibbs.py:sweep"],
+    )
+    steps: int = Field(ge=1, description="Total number of steps per chain in the finished run.")
+    check_rng: bool = Field(
+        default=True,
+        description=(
+            "At the first commit of a run, rerun the first steps of chain 0 from the recorded "
+            "state and random state and stop if they differ bitwise (a kernel drawing from "
+            "another source of randomness cannot be resumed exactly)."
+        ),
+    )
+
+    @field_validator("kernel")
+    @classmethod
+    def _function_reference(cls, value: str) -> str | None:
+        return function_reference(value)
+
+    @property
+    def blobs(self) -> tuple[str, ...]:
+        """No blobs for kernels."""
+        return ()
+
+
+class NormalEnvelope(_Strict):
+    """Envelope density g for one parameter: a normal distribution."""
+
+    normal: NormalSpec
+
+
+class UniformEnvelope(_Strict):
+    """Envelope density g for one parameter: a uniform distribution on [low, high)."""
+
+    uniform: UniformSpec
+
+
+EnvelopeSpec = Annotated[
+    Annotated[NormalEnvelope, Tag("normal")] | Annotated[UniformEnvelope, Tag("uniform")],
+    Discriminator(
+        _init_kind,
+        custom_error_type="envelope_kind",
+        custom_error_message="must be exactly one of {normal: {loc, scale}} or "
+        "{uniform: {low, high}}",
+    ),
+]
+
+
+class AcceptRejectSpec(_ChainSampler):
+    """Accept-reject sampling: exact independent draws under an envelope M g(x) >= f(x)."""
+
+    kind: Literal["accept_reject"]
+    envelope: EnvelopeSpec | tuple[EnvelopeSpec, ...] = Field(
+        description=(
+            "The envelope density g, a product of one distribution per parameter (normal or "
+            "uniform): a single mapping when there is one parameter, else a list in theta "
+            "order."
+        )
+    )
+    log_bound: float = Field(
+        description="log M, with log f(x) <= log M + log g(x) everywhere (f: the model)."
+    )
+    draws: int = Field(ge=1, description="Accepted draws per chain in the finished run.")
+
+    @property
+    def steps(self) -> int:
+        """The store's steps axis: one accepted draw per step."""
+        return self.draws
+
+    @property
+    def envelopes(self) -> tuple[NormalEnvelope | UniformEnvelope, ...]:
+        """The envelope as one entry per parameter."""
+        return self.envelope if isinstance(self.envelope, tuple) else (self.envelope,)
+
+    @property
+    def blobs(self) -> tuple[str, ...]:
+        """No model blobs (the proposal counts are stored by the engine)."""
+        return ()
+
+
+#: sampler kinds with their spec classes (the default kind first)
+SAMPLER_KINDS: dict[str, type[_Strict]] = {
+    "ensemble": SamplerSpec,
+    "metropolis_hastings": MetropolisSpec,
+    "kernel": KernelSpec,
+    "accept_reject": AcceptRejectSpec,
+}
+
+
+def _sampler_kind(value: Any) -> str | None:
+    if isinstance(value, dict):
+        kind = value.get("kind", "ensemble")
+        return kind if isinstance(kind, str) else None
+    return getattr(value, "kind", None)
+
+
+AnySamplerSpec = Annotated[
+    Annotated[SamplerSpec, Tag("ensemble")]
+    | Annotated[MetropolisSpec, Tag("metropolis_hastings")]
+    | Annotated[KernelSpec, Tag("kernel")]
+    | Annotated[AcceptRejectSpec, Tag("accept_reject")],
+    Discriminator(
+        _sampler_kind,
+        custom_error_type="sampler_kind",
+        custom_error_message="must be one of ensemble (default), "
+        "metropolis_hastings, kernel, accept_reject",
+    ),
+]
+
+
+def sampler_keys(kind: str) -> list[str]:
+    """The settings of one sampler kind: chains or walkers first, then its own settings."""
+    cls = SAMPLER_KINDS[kind]
+    shared = list(_ChainSampler.model_fields) if kind != "ensemble" else []
+    own = [k for k in cls.model_fields if k not in shared and k != "kind"]
+    first = ["chains"] if shared else []
+    return first + own + [k for k in shared if k not in first]
 
 
 # --------------------------------------------------------------------------- storage

@@ -1,4 +1,8 @@
-"""Acceptance-rate diagnostics for an emcee ensemble.
+"""Acceptance-rate diagnostics: walkers of an ensemble, chains, and accept-reject sampling.
+
+Independent Metropolis-Hastings chains are judged like Gaussian random-walk moves (the same
+band; the stuck rule flags single chains). Accept-reject runs report the rate of accepted
+proposals with its binomial standard error (:func:`accept_reject_rate`).
 
 Stuck-walker rule (chosen here, documented): walker ``w`` with acceptance
 fraction ``f_w`` is flagged when it is both *relatively* low,
@@ -105,7 +109,7 @@ def acceptance_band(move_kinds: Sequence[str] | None, n_params: int) -> tuple[fl
     -------
     (float, float)
     """
-    if move_kinds and all(k == "gaussian" for k in move_kinds):
+    if move_kinds and all(k in ("gaussian", "metropolis_hastings") for k in move_kinds):
         return (0.15, 0.5) if n_params >= 5 else (0.15, 0.6)
     return (ENSEMBLE_FLOOR, 1.0)
 
@@ -179,3 +183,50 @@ def acceptance_report(
         in_band=in_band,
         messages=tuple(messages),
     )
+
+
+def accept_reject_rate(
+    proposals: npt.ArrayLike, log_bound: float | None = None
+) -> dict[str, object]:
+    """Acceptance rate of an accept-reject run, per chain and overall, with binomial SEs.
+
+    The rate is accepted draws / proposals, ``p = n / N``; its standard error is the binomial
+    ``sqrt(p (1 - p) / N)`` (common practice, no source; N itself is random, which this
+    approximation ignores). For a normalised target the rate estimates ``1 / M`` (Robert and
+    Casella 2004, section 2.3).
+
+    Parameters
+    ----------
+    proposals : array_like, shape (steps, chains)
+        Proposals each stored draw took (the accepted one included).
+    log_bound : float, optional
+        The run's log M; adds ``one_over_m`` for comparison.
+    """
+    arr = np.asarray(proposals, dtype=np.float64)
+    if arr.ndim != 2 or arr.size == 0:
+        raise ValueError(f"proposals must have shape (steps, chains); got {arr.shape}")
+    return rate_from_counts(arr.shape[0], arr.sum(axis=0), log_bound)
+
+
+def rate_from_counts(
+    draws: int, proposals: npt.ArrayLike, log_bound: float | None = None
+) -> dict[str, object]:
+    """:func:`accept_reject_rate` from totals: ``draws`` per chain, ``proposals`` per chain
+    (shape (chains,))."""
+    per_chain = np.asarray(proposals, dtype=np.float64)
+    total = float(per_chain.sum())
+    n = draws * per_chain.size
+    rate = n / total
+    rates = draws / per_chain
+    out: dict[str, object] = {
+        "draws": int(n),
+        "proposals": int(total),
+        "rate": float(rate),
+        "se": float(np.sqrt(rate * (1.0 - rate) / total)),
+        "per_chain": to_builtin(rates),
+        "per_chain_se": to_builtin(np.sqrt(rates * (1.0 - rates) / per_chain)),
+        "proposals_per_draw": float(total / n),
+    }
+    if log_bound is not None and -log_bound < 700:  # beyond: no float (an unnormalised f)
+        out["one_over_m"] = float(np.exp(-log_bound))
+    return out

@@ -32,6 +32,8 @@ IDENTITY_LABELS = {
     "init_retries": "sampler.init_retries",
     "parameters": "parameters (names, init or bounds)",
     "sampler_kind": "sampler kind",
+    "sampler_settings": "sampler settings",
+    "kernel_source": "sampler.kernel file content",
 }
 
 
@@ -49,7 +51,7 @@ def run_identity(config: RunConfig, replica: int, sampler_kind: str) -> dict[str
     model = config.model
     source = resolve_source(model.log_prob, config.base_dir)
     loader_src = resolve_source(model.data_loader, config.base_dir) if model.data_loader else None
-    return {
+    out: dict[str, Any] = {
         "model_source": _file_record(source, model.log_prob.rpartition(":")[0]),
         "extra_sources": [_file_record(config.resolve(s), s) for s in model.extra_sources],
         "data": _file_record(config.resolve(model.data) if model.data else None, model.data),
@@ -65,8 +67,8 @@ def run_identity(config: RunConfig, replica: int, sampler_kind: str) -> dict[str
         "seed": config.seed,
         "replica": replica,
         "walkers": config.sampler.walkers,
-        "moves": norm["sampler"]["moves"],
-        "blobs": norm["sampler"]["blobs"],
+        "moves": norm["sampler"].get("moves", []),
+        "blobs": list(config.sampler.blobs),
         "init_retries": config.sampler.init_retries,
         "parameters": [
             {"name": p["name"], "init": p["init"], "bounds": p["bounds"]}
@@ -74,6 +76,19 @@ def run_identity(config: RunConfig, replica: int, sampler_kind: str) -> dict[str
         ],
         "sampler_kind": sampler_kind,
     }
+    if config.sampler.kind != "ensemble":  # every setting but the run length shapes the draws
+        out["sampler_settings"] = {
+            k: v for k, v in norm["sampler"].items() if k not in ("steps", "draws")
+        }
+    kernel = getattr(config.sampler, "kernel", None)
+    if kernel:  # a user kernel's code shapes the draws like the model's
+        module = kernel.rpartition(":")[0]
+        record = _file_record(resolve_source(kernel, config.base_dir), module)
+        out["kernel_source"] = record
+        if module.endswith(".py") or "/" in module or "\\" in module:
+            # packed, recorded and verified with the other source files
+            out["extra_sources"] = [*out["extra_sources"], record]
+    return out
 
 
 def _short(value: Any) -> str:

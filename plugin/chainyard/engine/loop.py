@@ -17,10 +17,11 @@ import numpy as np
 from chainyard.config import RunConfig, config_hash
 from chainyard.engine.buffer import StepBuffer
 from chainyard.engine.commit import CommitJob
-from chainyard.engine.ensemble import EnsembleDriver
+from chainyard.engine.drivers import make_driver
 from chainyard.engine.guards import check_deterministic
 from chainyard.engine.stopping import Interrupted, StopFlag
 from chainyard.engine.writer import Committer, process_writer_available
+from chainyard.errors import StoreError
 from chainyard.model import LoadedModel
 from chainyard.progress import Progress
 from chainyard.provenance import host_record, software_versions, utc_now
@@ -91,15 +92,16 @@ def advance(
     walkers, n_params = last[POSITION].shape
     n_blobs = len(blob_names)
     blobs0 = _blob_columns(last, blob_names, walkers)
-    driver = EnsembleDriver(
-        model,
-        config.sampler.moves,
-        last[POSITION],
-        last[LOG_PROB],
-        blobs0,
-        record["random_state"],
-        check_start=(done == 0),
-    )
+    try:
+        driver = make_driver(
+            config, model, last[POSITION], last[LOG_PROB], blobs0, record["random_state"], step=done
+        )
+    except ValueError as exc:
+        raise StoreError(
+            f"{store.path}: the last commit's random state does not fit this sampler ({exc}); "
+            "the store is damaged"
+        ) from None
+    model_blobs = tuple(config.sampler.blobs)  # the engine's own blobs are not the model's
     bytes_per_step = walkers * (n_params + 2 + n_blobs) * 8
     pending_cap = max(1, min(st.commit_every_steps, MAX_PENDING_BYTES // bytes_per_step))
     buf = StepBuffer(walkers, n_params, n_blobs, store.chunk_steps, pending_cap)
@@ -154,9 +156,13 @@ def advance(
                 model,
                 start_state[POSITION],
                 start_state[LOG_PROB],
-                _blob_columns(start_state, blob_names, walkers),
+                _blob_columns(start_state, model_blobs, walkers),
             )
             start_state = None
+        if first_commit:
+            check_rng = getattr(driver, "check_reproducible", None)
+            if check_rng is not None:
+                check_rng()  # a user kernel's randomness must all come from its rng
         if writer is None:
             writer = open_writer()
         writer.wait()

@@ -26,8 +26,15 @@ from collections.abc import Iterator
 from pathlib import Path
 from typing import Any, TextIO
 
-from chainyard.config import RunConfig, config_hash
-from chainyard.engine.ensemble import EnsembleDriver
+import numpy as np
+
+from chainyard.config import KernelSpec, RunConfig, config_hash, steps_key
+from chainyard.engine.drivers import (
+    driver_kind,
+    engine_blob_names,
+    initial_random_state,
+    store_blob_names,
+)
 from chainyard.engine.guards import (
     committed_steps,
     path_state,
@@ -56,7 +63,7 @@ from chainyard.store.files import discard_folder, remove_discarded
 from chainyard.store.integrity import check_resume_base
 from chainyard.store.layout import BLOB, COMMIT_FILE, LOG_PROB, POSITION
 from chainyard.store.lock import real_store_path
-from chainyard.streams import random_state_to_json, sampler_random_state, spawn_key
+from chainyard.streams import spawn_key
 from chainyard.testhooks import instant
 
 __all__ = ["Interrupted", "sample"]
@@ -66,8 +73,9 @@ def _store_attrs(config: RunConfig, replica: int, identity: dict[str, Any]) -> d
     norm = config.normalised()
     return {
         "param_names": list(config.param_names),
-        "blob_names": list(config.sampler.blobs),
+        "blob_names": list(store_blob_names(config)),
         "walkers": config.sampler.walkers,
+        "sampler_kind": config.sampler.kind,
         "replica": replica,
         "seed": config.seed,
         "spawn_key": list(spawn_key(replica, 1)),
@@ -135,7 +143,11 @@ def sample(
         model = load_model(config)
     except ConfigError as exc:
         raise exc.located(config.source) from None
-    identity = run_identity(config, replica, EnsembleDriver.kind)
+    identity = run_identity(config, replica, driver_kind(config))
+    if isinstance(config.sampler, KernelSpec):
+        from chainyard.engine.kernel import load_kernel
+
+        load_kernel(config)  # a missing or broken kernel is refused before anything is written
     label = f"{path.name}"
     say = Progress(1, 0, mode="log", stream=stream, label=label).message
     if not restart and _complete_read_only(config, path, identity, say):
@@ -348,7 +360,8 @@ def _lock_fds(lock: StoreLock) -> list[int]:
 
 
 def _stored_steps(store: Store) -> int:
-    return int(store.attrs["config"]["sampler"]["steps"])
+    sampler = store.attrs["config"]["sampler"]
+    return int(sampler[steps_key(sampler)])
 
 
 def _check_identity(store: Store, identity: dict[str, Any], path: Path) -> None:
@@ -367,13 +380,13 @@ def _create(
     start = {POSITION: pos, LOG_PROB: lp}
     for k, b in enumerate(config.sampler.blobs):
         start[f"{BLOB}/{b}"] = blobs[:, k]
+    for b in engine_blob_names(config):
+        start[f"{BLOB}/{b}"] = np.zeros(config.sampler.walkers)  # nothing drawn yet
     st = config.storage
     record = {
         "format_version": 1,
         "steps_done": 0,
-        "random_state": random_state_to_json(
-            sampler_random_state(config.seed, replica).get_state()
-        ),
+        "random_state": initial_random_state(config, replica),
         "checksums": {},
         "segments": [],
         "updated_utc": utc_now(),
@@ -384,7 +397,7 @@ def _create(
         attrs=_store_attrs(config, replica, identity),
         walkers=config.sampler.walkers,
         n_params=len(config.parameters),
-        blob_names=config.sampler.blobs,
+        blob_names=store_blob_names(config),
         capacity=config.sampler.steps,
         chunk_steps=st.chunk_steps,
         codec=st.codec,

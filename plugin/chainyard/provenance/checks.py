@@ -157,7 +157,9 @@ def check_consistency(store: Store) -> list[Finding]:
                 f"computed {_short(canonical_sha256(cfg))})",
             )
         )
-    sampler = cfg.get("sampler") or {}
+    from chainyard.engine.drivers import stored_layout
+
+    sampler = stored_layout(cfg.get("sampler") or {})
     replica = attrs.get("replica")
     _expect(out, where, "seed", attrs.get("seed"), cfg.get("seed"))
     _expect(out, where, "identity seed", ident.get("seed"), cfg.get("seed"))
@@ -167,7 +169,7 @@ def check_consistency(store: Store) -> list[Finding]:
     _expect(out, where, "spawn_key", attrs.get("spawn_key"), [replica, 1])
     names = [p.get("name") for p in cfg.get("parameters") or []]
     _expect(out, where, "param_names", attrs.get("param_names"), names)
-    _expect(out, where, "blob_names", attrs.get("blob_names"), sampler.get("blobs"))
+    _expect(out, where, "blob_names", attrs.get("blob_names"), sampler.get("blob_names"))
     _expect(out, where, "identity moves", ident.get("moves"), sampler.get("moves"))
     params = [
         {"name": p.get("name"), "init": p.get("init"), "bounds": p.get("bounds")}
@@ -233,10 +235,10 @@ def _check_history(store: Store, attrs: dict[str, Any], record: dict[str, Any]) 
                 "(a continued run stopped before its first commit)",
             )
         )
-    from chainyard.streams import random_state_from_json
+    from chainyard.engine.drivers import check_random_state
 
     try:
-        random_state_from_json(record.get("random_state") or {})
+        check_random_state(record.get("random_state"))
     except (ValueError, KeyError, TypeError) as exc:
         out.append(Finding("problem", "commit.json", f"random_state is malformed ({exc})"))
     return out

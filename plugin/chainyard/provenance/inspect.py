@@ -14,6 +14,8 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from chainyard.errors import StoreError
 from chainyard.provenance.record import provenance_record, store_digest
 from chainyard.provenance.verify import DAMAGE, describe_damage, verify_metadata
@@ -131,9 +133,10 @@ def _summary(store: Store, diagnostics: Sequence[str | Path]) -> dict[str, Any]:
         "steps": {
             "stored": store.steps_done,
             "sampled": run.get("steps"),
-            "requested": (cfg.get("sampler") or {}).get("steps"),
+            "requested": _requested(cfg.get("sampler") or {}),
             "chunk_steps": store.chunk_steps,
         },
+        "sampler": _sampler_facts(store),
         "when": {
             "started_utc": run.get("started_utc"),
             "ended_utc": run.get("ended_utc"),
@@ -160,6 +163,39 @@ def _summary(store: Store, diagnostics: Sequence[str | Path]) -> dict[str, Any]:
             "problems": [str(f) for f in integrity.problems],
         },
     }
+
+
+def _requested(sampler: dict[str, Any]) -> Any:
+    return sampler.get("draws" if sampler.get("kind") == "accept_reject" else "steps")
+
+
+def _sampler_facts(store: Store) -> dict[str, Any]:
+    """Sampler kind, what the walkers axis holds, the frozen Metropolis-Hastings proposal and
+    the accept-reject acceptance rate with its binomial SE (over every stored draw)."""
+    sampler = (store.attrs.get("config") or {}).get("sampler") or {}
+    kind = sampler.get("kind", "ensemble")
+    out: dict[str, Any] = {
+        "kind": kind,
+        "walkers_axis": "walkers" if kind == "ensemble" else "chains",
+    }
+    state = store.commit_record.get("random_state")
+    if kind == "metropolis_hastings" and isinstance(state, dict):
+        out["proposal"] = state.get("proposal")
+    if kind == "accept_reject" and store.steps_done:
+        from chainyard.diagnostics.acceptance import rate_from_counts
+        from chainyard.engine.accept_reject import PROPOSALS_BLOB
+
+        name = f"blob/{PROPOSALS_BLOB}"
+        if name in store.array_names():
+            total = np.zeros(store.walkers)
+            for a in range(0, store.steps_done, store.chunk_steps):  # one chunk at a time
+                b = min(store.steps_done, a + store.chunk_steps)
+                total += store.read_rows(name, a, b).sum(axis=0)
+            bound = sampler.get("log_bound")
+            out["accept_reject"] = rate_from_counts(
+                store.steps_done, total, None if bound is None else float(bound)
+            )
+    return out
 
 
 def _history(segs: list[dict[str, Any]]) -> str:
@@ -197,6 +233,7 @@ def _format(s: dict[str, Any]) -> str:
     ]
     if what.get("description"):
         lines.append(f"  about      {what['description']}")
+    lines += _sampler_lines(s.get("sampler") or {})
     sampled = steps["sampled"]
     lines.append(
         f"  steps      {steps['stored']:,} stored"
@@ -261,3 +298,22 @@ def _format(s: dict[str, Any]) -> str:
         )
     )
     return "\n".join(lines)
+
+
+def _sampler_lines(facts: dict[str, Any]) -> list[str]:
+    """The sampler line(s) of ``inspect``: kind, frozen proposal, accept-reject rate."""
+    kind = facts.get("kind", "ensemble")
+    if kind == "ensemble":
+        return []
+    lines = [f"  sampler    {kind} (the walkers axis holds independent chains)"]
+    prop = facts.get("proposal")
+    if isinstance(prop, dict):
+        lines.append(f"  proposal   {prop.get('policy')}: {prop.get('reason')}")
+    ar = facts.get("accept_reject")
+    if ar:
+        from chainyard.analysis.diagnose import accept_reject_line
+
+        lines.append(
+            "  acceptance " + accept_reject_line(ar).removeprefix("Accept-reject: acceptance ")
+        )
+    return lines

@@ -179,10 +179,10 @@ def _materialise_pack_sources(store: Store, into: Path) -> Path | None:
 
 
 def _config(store: Store, base: Path, steps: int) -> Any:
-    from chainyard.config import parse_config
+    from chainyard.config import parse_config, steps_key
 
     data = store.attrs["config"]
-    data["sampler"]["steps"] = max(1, steps)
+    data["sampler"][steps_key(data["sampler"])] = max(1, steps)
     try:
         return parse_config(data, base_dir=base, source=f"{store.path} (stored config)")
     except ConfigError as exc:
@@ -191,11 +191,11 @@ def _config(store: Store, base: Path, steps: int) -> Any:
 
 def _check_inputs(store: Store, config: Any, base: Path) -> None:
     """Refuse before importing anything if model or data differ from the recorded ones."""
-    from chainyard.engine import EnsembleDriver
+    from chainyard.engine.drivers import driver_kind
     from chainyard.engine.identity import describe_differences, run_identity
 
     diffs = describe_differences(
-        store.attrs.get("identity", {}), run_identity(config, store.replica, EnsembleDriver.kind)
+        store.attrs.get("identity", {}), run_identity(config, store.replica, driver_kind(config))
     )
     if diffs:
         raise VerificationError(
@@ -254,13 +254,16 @@ def _difference(
 
 def _start(store: Store, config: Any, model: Any, a: int, segment: int | None) -> tuple[Any, ...]:
     """Positions, log-prob, blobs and RNG state before step ``a`` (and any start difference)."""
+    from chainyard.engine.drivers import engine_blob_names, initial_random_state
     from chainyard.engine.initial import initial_state
-    from chainyard.streams import random_state_to_json, sampler_random_state
 
     names = store.blob_names
     if a == 0:
         pos, lp, blobs, _ = initial_state(config, model, store.replica)
-        rng = random_state_to_json(sampler_random_state(config.seed, store.replica).get_state())
+        extra = len(engine_blob_names(config))
+        if extra:  # the engine's blobs start at zero (nothing drawn yet)
+            blobs = np.column_stack([blobs, np.zeros((len(pos), extra))])
+        rng = initial_random_state(config, store.replica)
         stored = store.start_state()
         diff = _difference("start/position", -1, stored["position"], pos) or _difference(
             "start/log_prob", -1, stored["log_prob"], lp
@@ -281,7 +284,7 @@ def _start(store: Store, config: Any, model: Any, a: int, segment: int | None) -
 
 
 def _run(store: Store, base: Path, a: int, b: int, segment: int | None) -> ReplayResult:
-    from chainyard.engine import EnsembleDriver
+    from chainyard.engine.drivers import make_driver
     from chainyard.model import load_model
 
     config = _config(store, base, b)
@@ -301,7 +304,10 @@ def _run(store: Store, base: Path, a: int, b: int, segment: int | None) -> Repla
             f"{store.path}: replaying steps {a}-{b - 1} covers none of this store's rows (its "
             f"first row is source step {int(rows[0]) if rows.size else 0}); replay more steps"
         )
-    driver = EnsembleDriver(model, config.sampler.moves, pos, lp, blobs, rng, check_start=(a == 0))
+    try:
+        driver = make_driver(config, model, pos, lp, blobs, rng, step=a)
+    except ValueError as exc:
+        raise VerificationError(f"{store.path}: cannot replay: {exc}") from None
     blob_names = store.blob_names
     stored = _StoredRows(store)
     for step, out in enumerate(driver.steps(b - a), start=a):
