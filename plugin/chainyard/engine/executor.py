@@ -1,7 +1,7 @@
 """The small interface between the worker pool and whatever runs its workers.
 
-A batch of walkers is cut into contiguous :class:`SliceTask` s, at most one per worker. An
-executor hands each task to a worker that holds its own :class:`~chainyard.model.LoadedModel`
+A batch of walkers is cut into contiguous :class:`SliceTask` s. An executor hands each task
+to a free worker that holds its own :class:`~chainyard.model.LoadedModel`
 (loaded once, from the paths in a :class:`WorkerSpec`) and returns one :class:`SliceOutcome`
 per task, in task order. What a worker does with a task is :func:`evaluate_task`, the same
 for every executor; only the transport differs. The shipped executor runs local processes
@@ -104,10 +104,11 @@ class Executor(Protocol):
         ...
 
     def run(self, tasks: list[SliceTask]) -> list[SliceOutcome]:
-        """Evaluate ``tasks`` (at most one per worker) and return their outcomes in order.
+        """Evaluate ``tasks`` (any number; a free worker takes the next) and return their
+        outcomes in task order.
 
-        Waits for every task. A worker that is lost raises ModelError (one line) after the
-        others have answered.
+        Waits for every task given out. A worker that is lost raises ModelError (one line)
+        after the others have answered.
         """
         ...
 

@@ -1,7 +1,8 @@
 """Evaluating the walkers' log-probabilities in worker processes (``sample --workers``).
 
 Each batch the sampler asks for (a whole ensemble, or the half an ensemble move updates) is
-cut into contiguous slices, one per worker; each worker evaluates its slice with its own
+cut into contiguous slices (``SLICES_PER_WORKER``); each free worker evaluates the next slice
+with its own
 guarded model (loaded once, from the run's paths) and the answers are put back together in
 walker order. Every value comes from the same function on the same row, so the draws are
 bitwise those of a serial run (for a vectorised model: as long as a row's value does not
@@ -36,10 +37,15 @@ from chainyard.errors import ConfigError, ModelError
 __all__ = ["WorkerPool", "available_cpus", "parse_workers", "pool_pays", "worker_pool"]
 
 #: seconds to start the workers and load the model in them (measured on the development
-#: machine, 2 cores, loaded: 0.5-1.5 s; see tests/benchmarks/RESULTS.md)
-WORKER_START_SECONDS = 1.0
+#: machine, 2 cores, loaded: 0.2-1.2 s; see tests/benchmarks/RESULTS.md)
+WORKER_START_SECONDS = 0.75
 #: seconds one pooled call adds (slicing, pipes, waking the workers; measured 0.1-0.3 ms)
 CALL_OVERHEAD_SECONDS = 3e-4
+#: a batch for a non-vectorised model is cut into up to this many slices per worker (at
+#: least 2 walkers each), handed out as workers become free: a worker slowed down by other
+#: jobs on the machine then holds up the batch by one small slice only. A vectorised model
+#: gets one slice per worker (each call has its own fixed cost).
+SLICES_PER_WORKER = 4
 #: model calls per step (an ensemble move evaluates each half of the walkers in turn)
 CALLS_PER_STEP = 2
 #: the pool must make the run at least this much faster to be chosen by "auto"
@@ -162,7 +168,7 @@ class WorkerPool:
             self._start(model)
             return self.evaluate(model, thetas)
         assert self.executor is not None
-        k = min(self.size, n)
+        k = min(self.size if model.vectorized else self.size * SLICES_PER_WORKER, n // 2 or 1)
         tasks = [SliceTask(a, thetas[a:b], n, model.step) for a, b in _slices(n, k)]
         outcomes = self.executor.run(tasks)
         for o in outcomes:

@@ -27,7 +27,7 @@ import struct
 import subprocess
 import sys
 import traceback
-from multiprocessing.connection import Connection
+from multiprocessing.connection import Connection, wait
 from pathlib import Path
 
 import numpy as np
@@ -157,35 +157,51 @@ class ProcessExecutor:
             raise
 
     def run(self, tasks: list[SliceTask]) -> list[SliceOutcome]:
-        """Evaluate one task per worker, in parallel; outcomes in task order."""
+        """Evaluate ``tasks`` on the workers, each taking the next task as soon as it is
+        free (a worker slowed down by other jobs on the machine holds up no one); outcomes
+        in task order."""
         if self._broken is not None:
             raise self._broken
-        used = self._pool[: len(tasks)]
+        out: list[SliceOutcome | None] = [None] * len(tasks)
+        todo = iter(range(len(tasks)))
+        busy: dict[Connection, tuple[_Worker, int]] = {}
         lost: ModelError | None = None
+
+        def give(w: _Worker) -> None:
+            nonlocal lost
+            i = next(todo, None)
+            if i is None or lost is not None:
+                return
+            t = tasks[i]
+            rows, cols = t.thetas.shape
+            head = _TASK.pack(-1 if t.step is None else t.step, t.offset, t.total, rows, cols)
+            try:
+                w.send.send_bytes(head + np.ascontiguousarray(t.thetas).tobytes())
+            except OSError:
+                lost = w.lost(_doing(t))
+                return
+            busy[w.recv] = (w, i)
+
         try:
-            for w, t in zip(used, tasks, strict=True):
-                rows, cols = t.thetas.shape
-                head = _TASK.pack(-1 if t.step is None else t.step, t.offset, t.total, rows, cols)
-                try:
-                    w.send.send_bytes(head + np.ascontiguousarray(t.thetas).tobytes())
-                except OSError:
-                    lost = lost or w.lost(_doing(t))
-            out: list[SliceOutcome] = []
-            for w, t in zip(used, tasks, strict=True):
-                try:
-                    answer = w.recv.recv_bytes()
-                except (EOFError, OSError):
-                    lost = lost or w.lost(_doing(t))
-                    out.append(SliceOutcome(None, None))
-                    continue
-                out.append(_outcome(answer))
+            for w in self._pool:
+                give(w)
+            while busy:
+                for conn in wait(list(busy)):
+                    w, i = busy.pop(conn)  # type: ignore[index]
+                    try:
+                        answer = w.recv.recv_bytes()
+                    except (EOFError, OSError):
+                        lost = lost or w.lost(_doing(tasks[i]))
+                        continue
+                    out[i] = _outcome(answer)
+                    give(w)
         except BaseException:  # an interrupt while waiting: answers may be left in the pipes
             self._broken = ModelError("the worker pool was interrupted")
             raise
         if lost is not None:
             self._broken = lost
             raise lost
-        return out
+        return out  # type: ignore[return-value]
 
     def close(self) -> None:
         """Close the request pipes (workers exit), wait a little, then kill what is left."""
