@@ -1,8 +1,8 @@
 """Evaluating the walkers' log-probabilities in worker processes (``sample --workers``).
 
 Each batch the sampler asks for (a whole ensemble, or the half an ensemble move updates) is
-cut into contiguous slices (``SLICES_PER_WORKER``); each free worker evaluates the next slice
-with its own
+cut into contiguous slices (one per worker, or up to ``SLICES_PER_WORKER`` for a costly
+non-vectorised model); each free worker evaluates the next slice with its own
 guarded model (loaded once, from the run's paths) and the answers are put back together in
 walker order. Every value comes from the same function on the same row, so the draws are
 bitwise those of a serial run (for a vectorised model: as long as a row's value does not
@@ -41,11 +41,15 @@ __all__ = ["WorkerPool", "available_cpus", "parse_workers", "pool_pays", "worker
 WORKER_START_SECONDS = 0.75
 #: seconds one pooled call adds (slicing, pipes, waking the workers; measured 0.1-0.3 ms)
 CALL_OVERHEAD_SECONDS = 3e-4
-#: a batch for a non-vectorised model is cut into up to this many slices per worker (at
-#: least 2 walkers each), handed out as workers become free: a worker slowed down by other
-#: jobs on the machine then holds up the batch by one small slice only. A vectorised model
-#: gets one slice per worker (each call has its own fixed cost).
+#: a batch for a non-vectorised model is cut into up to this many slices per worker,
+#: handed out as workers become free: a worker slowed down by other jobs on the machine then
+#: holds up the batch by one small slice only. A vectorised model gets one slice per worker
+#: (each call has its own fixed cost).
 SLICES_PER_WORKER = 4
+#: ... as long as each slice carries at least this many times a slice's round trip of work
+SLICE_WORK_FACTOR = 20
+#: seconds one slice's round trip to a worker costs (measured 0.1 ms, 2 cores)
+SLICE_ROUND_TRIP_SECONDS = 1e-4
 #: model calls per step (an ensemble move evaluates each half of the walkers in turn)
 CALLS_PER_STEP = 2
 #: the pool must make the run at least this much faster to be chosen by "auto"
@@ -150,6 +154,8 @@ class WorkerPool:
         self.executor: Executor | None = None
         self._timings: list[float] = []  # seconds per walker of the calls timed by "auto"
         self._timed = 0.0
+        #: seconds of one model call per walker (timed by "auto", then from pooled batches)
+        self._row_seconds: float | None = None
         if workers is None and self.size < 2:
             self.mode = "serial"
             say(f"workers auto: {cpus} CPU available; evaluating the model in this process")
@@ -168,15 +174,27 @@ class WorkerPool:
             self._start(model)
             return self.evaluate(model, thetas)
         assert self.executor is not None
-        k = min(self.size if model.vectorized else self.size * SLICES_PER_WORKER, n // 2 or 1)
+        k = min(self.size * self._slices_per_worker(model, n), n)
         tasks = [SliceTask(a, thetas[a:b], n, model.step) for a, b in _slices(n, k)]
+        t0 = time.perf_counter()
         outcomes = self.executor.run(tasks)
+        # the batch's wall time spread over the rows each worker had (an upper bound)
+        self._row_seconds = (time.perf_counter() - t0) * min(self.size, k) / n
         for o in outcomes:
             if o.error is not None:  # the first failing slice holds the first failing walker
                 raise ModelError(o.error)
         parts = [o.values for o in outcomes]
         out = np.concatenate(parts) if len(parts) > 1 else parts[0]  # type: ignore[arg-type]
         return model.check_rows(thetas, out)  # type: ignore[no-any-return]
+
+    def _slices_per_worker(self, model: Any, n: int) -> int:
+        """1 for a vectorised model or cheap rows, up to ``SLICES_PER_WORKER`` otherwise."""
+        c = self._row_seconds
+        if model.vectorized or c is None:
+            return 1
+        work = c * n / self.size  # seconds of model calls per worker in this batch
+        k = int(work / (SLICE_WORK_FACTOR * SLICE_ROUND_TRIP_SECONDS))
+        return max(1, min(SLICES_PER_WORKER, k))
 
     def _timed_call(self, model: Any, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
         t0 = time.perf_counter()
@@ -185,7 +203,7 @@ class WorkerPool:
         self._timings.append(seconds / thetas.shape[0])
         self._timed += seconds
         if len(self._timings) >= AUTO_TIMED_CALLS or self._timed >= AUTO_TIMING_SECONDS:
-            c = min(self._timings)
+            c = self._row_seconds = min(self._timings)
             if pool_pays(c, self.walkers, self.steps, self.size):
                 self.say(
                     f"workers auto: a model call takes {_per_walker(c)} per walker; "
@@ -194,6 +212,7 @@ class WorkerPool:
                 self.mode = "start"
             else:
                 self.mode = "serial"
+                model.parallel = None  # later calls go straight to the model
                 self.say(
                     f"workers auto: a model call takes {_per_walker(c)} per walker, too little "
                     f"for {self.size} worker processes to pay off; evaluating in this process"
@@ -254,7 +273,8 @@ def worker_pool(
         config.sampler.steps,
         say,
     )
-    model.parallel = pool
+    if pool.mode != "serial":
+        model.parallel = pool
     try:
         yield
     finally:
