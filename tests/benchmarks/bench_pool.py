@@ -179,6 +179,28 @@ def _emcee_run(model_path: Path, steps: int, pool: bool) -> float:
     return _clocked("emcee pool" if pool else "emcee", go)
 
 
+def _interleaved_batches(cfg: object, repeats: int) -> dict[str, list[float]]:
+    """Seconds per 16-walker batch: serial, chainyard's pool, multiprocessing.Pool.map."""
+    from chainyard.engine.executor import WorkerSpec
+    from chainyard.engine.pool import WorkerPool
+    from chainyard.model import load_model
+
+    model = load_model(cfg)  # type: ignore[arg-type]
+    spec = WorkerSpec(cfg.normalised(), str(cfg.base_dir), cfg.source)  # type: ignore[attr-defined]
+    pool = WorkerPool(spec, 2, 2, WALKERS, 1000, lambda line: None)
+    thetas = np.random.default_rng(SEED).standard_normal((WALKERS // 2, 2))
+    out: dict[str, list[float]] = {"serial": [], "chainyard pool": [], "emcee pool": []}
+    with multiprocessing.get_context("fork").Pool(2) as mp:
+        pool.evaluate(model, thetas)  # starts the workers
+        mp.map(_emcee_fn, list(thetas))
+        for _ in range(repeats):
+            out["serial"].append(_time(lambda: model.evaluate_serial(thetas)))
+            out["chainyard pool"].append(_time(lambda: pool.evaluate(model, thetas)))
+            out["emcee pool"].append(_time(lambda: mp.map(_emcee_fn, list(thetas))))
+    pool.close()
+    return out
+
+
 def _spread(xs: list[float]) -> str:
     return f"{statistics.median(xs):.2f}x ({min(xs):.2f} .. {max(xs):.2f})"
 
@@ -221,6 +243,8 @@ def main() -> None:
                         _emcee_run(costly / "model.py", costly_steps, "pool" in name)
                     )
             print(f"round {r + 1}: " + ", ".join(f"{k} {v[-1]:.2f}s" for k, v in times.items()))
+        batches = _interleaved_batches(cfg, 40 if args.quick else 150)
+        print("batches", {k: round(statistics.median(v) * 1e3, 2) for k, v in batches.items()})
         cheap: dict[str, dict[str, list[float]]] = {}
         for label, (text, vec) in CHEAP_MODELS.items():
             folder = work / label.replace(" ", "_")
@@ -305,6 +329,25 @@ def main() -> None:
             f"{statistics.median(d['auto']):.2f} | {_spread(r)} | {_spread(rc)} | no slowdown "
             f"(<= 1.05x in wall or CPU time; noise): **{ok}** |"
         )
+    b_serial = statistics.median(batches["serial"])
+    b_pool = statistics.median(batches["chainyard pool"])
+    b_emcee = statistics.median(batches["emcee pool"])
+    lines += [
+        "",
+        "### 3. One batch at a time, interleaved (less disturbed by the machine's load)",
+        "",
+        "The half-ensemble batch the stretch move evaluates (16 walkers of the section 1 "
+        "model), evaluated in turn serially, by chainyard's pool of 2 workers and by "
+        "emcee's way (`multiprocessing.Pool(2).map`, as `EnsembleSampler` calls it), "
+        f"{len(batches['serial'])} times each, interleaved so that all three see the same "
+        "load. Pools are started before timing.",
+        "",
+        "| evaluation of one batch | median ms | speed-up vs serial |",
+        "|---|---|---|",
+        f"| serial (this process) | {b_serial * 1e3:.2f} | 1.00x |",
+        f"| chainyard, 2 workers | {b_pool * 1e3:.2f} | {b_serial / b_pool:.2f}x |",
+        f"| multiprocessing.Pool(2).map | {b_emcee * 1e3:.2f} | {b_serial / b_emcee:.2f}x |",
+    ]
     lines += [
         "",
         f'What auto said (vectorised): "{runs.logs.get("cheap vectorised auto", "")}"',

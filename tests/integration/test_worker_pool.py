@@ -25,6 +25,7 @@ from tests.reliability.conftest import snapshot
 #: and a fault chosen by CY_FAULT for the error cases
 SCALAR_MODEL = """
 import os
+import time
 
 import numpy as np
 
@@ -32,6 +33,8 @@ FAULT = os.environ.get("CY_FAULT", "")
 
 
 def log_prob(theta, data):
+    if FAULT == "hang" and theta[0] > 0.8:
+        time.sleep(600)
     if FAULT == "raise" and theta[0] > 0.8:
         raise ValueError("x too large for this model")
     if FAULT == "nan" and theta[1] < -0.7:
@@ -83,6 +86,7 @@ def _config(steps: int, vectorized: bool = False, **sampler: object) -> dict:
     )
     cfg["parameters"][0]["bounds"] = [-1.5, None]
     cfg["model"]["vectorized"] = vectorized
+    cfg["model"]["call_time_limit_seconds"] = 1.0
     return cfg
 
 
@@ -125,7 +129,7 @@ def _error_line(stderr: str) -> str:
     return lines[0]
 
 
-@pytest.mark.parametrize("fault", ["raise", "nan", "exit"])
+@pytest.mark.parametrize("fault", ["raise", "nan", "exit", "hang"])
 def test_worker_model_error_is_the_serial_error(fault: str, tmp_path: Path) -> None:
     """A model error in a worker ends in the serial run's line and exit 3; committed bytes
     are unchanged."""

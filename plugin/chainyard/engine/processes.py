@@ -27,6 +27,7 @@ import struct
 import subprocess
 import sys
 import traceback
+from collections import deque
 from multiprocessing.connection import Connection, wait
 from pathlib import Path
 
@@ -45,6 +46,10 @@ THREAD_VARIABLES = (
     "VECLIB_MAXIMUM_THREADS",
     "NUMEXPR_NUM_THREADS",
 )
+#: tasks in a worker's pipe at a time (the next is there when it finishes one)
+QUEUED_PER_WORKER = 2
+#: tasks larger than this (bytes) are queued one at a time (pipes hold 64 KiB on Linux)
+PIPE_SAFE_BYTES = 16 * 1024
 #: seconds a worker has to exit after its request pipe is closed before it is killed
 EXIT_WAIT_SECONDS = 2.0
 
@@ -157,20 +162,29 @@ class ProcessExecutor:
             raise
 
     def run(self, tasks: list[SliceTask]) -> list[SliceOutcome]:
-        """Evaluate ``tasks`` on the workers, each taking the next task as soon as it is
-        free (a worker slowed down by other jobs on the machine holds up no one); outcomes
-        in task order."""
+        """Evaluate ``tasks`` on the workers; outcomes in task order.
+
+        Each worker has ``QUEUED_PER_WORKER`` tasks in its pipe and gets the next one as
+        each answer comes back: a worker slowed down by other jobs on the machine holds up
+        little, and no worker waits for the parent between two tasks.
+        """
         if self._broken is not None:
             raise self._broken
         out: list[SliceOutcome | None] = [None] * len(tasks)
         todo = iter(range(len(tasks)))
-        busy: dict[Connection, tuple[_Worker, int]] = {}
+        queued: dict[Connection, tuple[_Worker, deque[int]]] = {
+            w.recv: (w, deque()) for w in self._pool
+        }
         lost: ModelError | None = None
+        # a second task only where it surely fits in the pipe beside the first: a worker
+        # blocked writing a large answer must never wait for a parent blocked writing to it
+        small = all(t.thetas.nbytes <= PIPE_SAFE_BYTES for t in tasks)
+        depth = QUEUED_PER_WORKER if small else 1
 
         def give(w: _Worker) -> None:
             nonlocal lost
-            i = next(todo, None)
-            if i is None or lost is not None:
+            i = next(todo, None) if lost is None else None
+            if i is None:
                 return
             t = tasks[i]
             rows, cols = t.thetas.shape
@@ -179,21 +193,24 @@ class ProcessExecutor:
                 w.send.send_bytes(head + np.ascontiguousarray(t.thetas).tobytes())
             except OSError:
                 lost = w.lost(_doing(t))
+                queued.pop(w.recv, None)
                 return
-            busy[w.recv] = (w, i)
+            queued[w.recv][1].append(i)
 
         try:
-            for w in self._pool:
-                give(w)
-            while busy:
-                for conn in wait(list(busy)):
-                    w, i = busy.pop(conn)  # type: ignore[index]
+            for _ in range(depth):
+                for w in self._pool:
+                    give(w)
+            while any(q for _, q in queued.values()):
+                for conn in wait([c for c, (_, q) in queued.items() if q]):
+                    w, q = queued[conn]  # type: ignore[index]
                     try:
                         answer = w.recv.recv_bytes()
                     except (EOFError, OSError):
-                        lost = lost or w.lost(_doing(tasks[i]))
+                        lost = lost or w.lost(_doing(tasks[q[0]]))
+                        del queued[conn]  # type: ignore[arg-type]
                         continue
-                    out[i] = _outcome(answer)
+                    out[q.popleft()] = _outcome(answer)
                     give(w)
         except BaseException:  # an interrupt while waiting: answers may be left in the pipes
             self._broken = ModelError("the worker pool was interrupted")
