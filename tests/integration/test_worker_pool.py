@@ -19,6 +19,7 @@ import pytest
 
 import chainyard
 from tests.conftest import assert_same_store, base_config, cli, popen_cli, write_run
+from tests.integration.test_exact_resume import _wait_for_commits
 from tests.reliability.conftest import snapshot
 
 #: a scalar model with a blob, one bounded parameter (rows outside: -inf, model not called)
@@ -230,15 +231,8 @@ def _alive(pid: int) -> bool:
 
 
 def _wait_steps(store: Path, steps: int, timeout: float = 60) -> None:
-    t0 = time.monotonic()
-    while time.monotonic() - t0 < timeout:
-        try:
-            if chainyard.open_store(store).steps_done >= steps:
-                return
-        except chainyard.StoreError:
-            pass
-        time.sleep(0.02)
-    raise AssertionError(f"{store} never reached {steps} steps")
+    _wait_for_commits(time.monotonic(), store, steps, timeout)
+    assert chainyard.open_store(store).steps_done >= steps, f"{store} never reached {steps}"
 
 
 KILL_CONFIG = base_config(
