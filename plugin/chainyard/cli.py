@@ -221,7 +221,13 @@ def _workers(text: str) -> int | str:
     """An argparse type: a whole number >= 1 or ``auto``."""
     if text.strip().lower() == "auto":
         return "auto"
-    return _int_at_least(1)(text)
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 1 or auto, got {text!r}")
+    return value
 
 
 _workers.__name__ = "N or auto"
