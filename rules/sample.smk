@@ -2,6 +2,8 @@
 # Snakemake never deletes; the declared output is a hard-linked copy published at the end.
 # A killed job resumes from its last commit on the next run or retry; a larger `steps`
 # extends the chains exactly; a changed model, data or sampling setting starts over.
+# `threads` (chainyard.sample_threads) are the CPUs the job may use for the model's worker
+# processes; they are not a rerun trigger and not part of the store's identity.
 
 
 rule sample:
@@ -18,7 +20,7 @@ rule sample:
         chainyard_version=CY_VERSION,
     log:
         run_path("logs", "{run}", "sample-replica-{replica}.log"),
-    threads: 1
+    threads: int(CY.get("sample_threads", 1))  # the model's worker processes (--workers auto)
     conda:
         "envs/chainyard.yaml"
     resources:

@@ -43,6 +43,8 @@ def _cmd_sample(args: argparse.Namespace) -> int:
         restart=args.restart,
         progress=args.progress,
         progress_interval=args.progress_interval,
+        workers=args.workers,
+        cpus=args.cpus,
     )
     templated = REPLICA_FIELD in args.out
     if not args.until_targets:
@@ -222,6 +224,22 @@ def _int_at_least(low: int) -> Callable[[str], int]:
     return parse
 
 
+def _workers(text: str) -> int | str:
+    """An argparse type: a whole number >= 1 or ``auto``."""
+    if text.strip().lower() == "auto":
+        return "auto"
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 1 or auto, got {text!r}")
+    return value
+
+
+_workers.__name__ = "N or auto"
+
+
 def _positive_seconds(text: str) -> float:
     """An argparse type: a finite number of seconds > 0."""
     try:
@@ -276,6 +294,23 @@ def _parser() -> argparse.ArgumentParser:
         default=10.0,
         metavar="SECONDS",
         help="seconds between progress log lines (default 10)",
+    )
+    p.add_argument(
+        "--workers",
+        type=_workers,
+        default=1,
+        metavar="N|auto",
+        help="worker processes evaluating the walkers' log-probabilities (default 1: this "
+        "process); auto: up to --cpus, only where timing the first model calls shows it pays. "
+        "The draws are the same for any count",
+    )
+    p.add_argument(
+        "--cpus",
+        type=_int_at_least(1),
+        default=None,
+        metavar="N",
+        help="CPUs this run may use (default: those the process may run on): caps auto and "
+        "the BLAS/OpenMP threads of each worker (cpus // workers)",
     )
     p.set_defaults(func=_cmd_sample)
 

@@ -222,6 +222,10 @@ class LoadedModel:
     in_user_call : bool
         True while a batch of user calls is in progress (cheap to read, e.g. from a signal
         handler deciding whether the process is stuck in the model).
+    parallel : object or None
+        Set by :mod:`chainyard.engine.pool` while a run may evaluate batches in worker
+        processes: ``parallel.evaluate(model, thetas)`` then answers every call, with the
+        same values and errors as :meth:`evaluate_serial`.
     """
 
     func: Any
@@ -240,15 +244,20 @@ class LoadedModel:
         """Whether any parameter has a finite bound (outside them: -inf, model not called)."""
         self.step: int | None = None
         self.in_user_call = False
+        self.parallel: Any = None
         self._alarm: _Alarm | None = None
+        #: (offset, total) while a worker evaluates rows offset.. of a batch of ``total``
+        self._frame: tuple[int, int] | None = None
 
     # ------------------------------------------------------------------ messages
     def _values(self, theta: NDArray[np.float64]) -> str:
         return ", ".join(f"{n}={v:.6g}" for n, v in zip(self.param_names, theta, strict=True))
 
     def _at(self, thetas: NDArray[np.float64], i: int) -> str:
-        n = thetas.shape[0]
-        who = f"walker {i}" if n == self.walkers or not self.walkers else f"proposal {i} of {n}"
+        n, row = thetas.shape[0], i
+        if self._frame is not None:  # a worker's slice: name the row of the whole batch
+            row, n = i + self._frame[0], self._frame[1]
+        who = f"walker {row}" if n == self.walkers or not self.walkers else f"proposal {row} of {n}"
         step = f"step {self.step}, " if self.step is not None else ""
         return f"at {step}{who} ({self._values(thetas[i])})"
 
@@ -262,8 +271,11 @@ class LoadedModel:
         n = thetas.shape[0]
         step = f" at step {self.step}" if self.step is not None else ""
         tail = f": {hint}" if hint else ""
+        part = ""
+        if self._frame is not None:  # a worker's slice of a larger batch
+            part = f" of the slice a worker got (rows from {self._frame[0]} of {self._frame[1]})"
         return ModelError(
-            f"model.log_prob (vectorized) {what}{step} for {n} walkers "
+            f"model.log_prob (vectorized) {what}{step} for {n} walkers{part} "
             f"(first: {self._values(thetas[0])}){tail}"
         )
 
@@ -306,31 +318,73 @@ class LoadedModel:
         ndarray, shape (walkers,) or (walkers, 1 + n_blobs)
             Log-probability (and blobs, NaN for walkers outside the bounds).
         """
+        if self.parallel is not None:
+            return self.parallel.evaluate(self, thetas)  # type: ignore[no-any-return]
+        return self.evaluate_serial(thetas)
+
+    def evaluate_serial(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
+        """:meth:`__call__` in this process (the worker pool's fallback and reference)."""
+        return self._guarded(self._evaluate, thetas)
+
+    def evaluate_slice(
+        self, thetas: NDArray[np.float64], offset: int, total: int, step: int | None
+    ) -> NDArray[np.float64]:
+        """Rows ``offset .. offset + len(thetas)`` of a batch of ``total`` (in a worker).
+
+        The user calls, bounds, time limit and type checks are those of :meth:`__call__` and
+        messages name the row of the whole batch; the check for NaN and +inf is left to
+        :meth:`check_rows` on the whole batch, so that the first bad walker is named as in
+        a serial run.
+
+        Returns
+        -------
+        ndarray, shape (k,) or (k, 1 + n_blobs)
+        """
+        self.step = step
+        self._frame = (offset, total)
+        try:
+            return self._guarded(self._rows, thetas)
+        finally:
+            self._frame = None
+
+    def _guarded(self, work: Any, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
+        """``work(thetas)`` with the call-time limit armed (main thread only)."""
         self.in_user_call = True
         try:
             if self.call_time_limit is None:
-                return self._evaluate(thetas)
+                return work(thetas)  # type: ignore[no-any-return]
             if threading.current_thread() is not threading.main_thread():
-                return self._evaluate(thetas)  # not enforced outside the main thread
+                return work(thetas)  # type: ignore[no-any-return]  # not enforced here
             with _Alarm(self.call_time_limit) as alarm:
                 self._alarm = alarm
                 try:
-                    return self._evaluate(thetas)
+                    return work(thetas)  # type: ignore[no-any-return]
                 finally:
                     self._alarm = None
         finally:
             self.in_user_call = False
 
     def _evaluate(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
+        return self.check_rows(thetas, self._rows(thetas))
+
+    def check_rows(
+        self, thetas: NDArray[np.float64], out: NDArray[np.float64]
+    ) -> NDArray[np.float64]:
+        """``out`` (from :meth:`_rows` or gathered slices), or the ModelError naming the first
+        walker whose log-probability is NaN or +inf."""
+        lp = out if out.ndim == 1 else out[:, 0]
+        # a sum that is NaN or +inf flags any NaN or +inf (or a finite overflow) in one
+        # cheap pass; the exact check runs only then
+        if not np.add.reduce(lp) < np.inf and not (lp < np.inf).all():
+            self._raise_bad(thetas, lp)
+        return out
+
+    def _rows(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Every walker's values, not yet checked for NaN or +inf."""
         if self.n_blobs == 0 and not self.bounded:
-            lp = (
-                self._call_vectorized_plain(thetas) if self.vectorized else self._loop_plain(thetas)
-            )
-            # a sum that is NaN or +inf flags any NaN or +inf (or a finite overflow) in one
-            # cheap pass; the exact check runs only then
-            if not np.add.reduce(lp) < np.inf and not (lp < np.inf).all():
-                self._raise_bad(thetas, lp)
-            return lp
+            if self.vectorized:
+                return self._call_vectorized_plain(thetas)
+            return self._loop_plain(thetas)
         n = thetas.shape[0]
         inside = np.all((thetas >= self.lower) & (thetas <= self.upper), axis=1)
         out = np.full((n, 1 + self.n_blobs), np.nan)
@@ -348,8 +402,6 @@ class LoadedModel:
                     except BaseException as exc:
                         raise self._fail(thetas, int(i), *self._raised(exc)) from None
                     self._split_scalar(result, thetas, int(i), out[i])
-        if not (out[:, 0] < np.inf).all():
-            self._raise_bad(thetas, out[:, 0])
         return out[:, 0] if self.n_blobs == 0 else out
 
     def _split_scalar(

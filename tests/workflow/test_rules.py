@@ -30,8 +30,9 @@ SAMPLING_RULES = {"chainyard_sample"}
 
 @pytest.fixture(scope="module")
 def finished(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """A small two-replica workflow, run to completion once with --cores 2."""
-    folder = make_workflow(tmp_path_factory.mktemp("wf"), {"gauss": gauss_run()})
+    """A small two-replica workflow, run to completion once with --cores 2 (2 CPUs per
+    sampling job: the model's calls may use 2 worker processes)."""
+    folder = make_workflow(tmp_path_factory.mktemp("wf"), {"gauss": gauss_run()}, sample_threads=2)
     res = snakemake(folder, "--cores", "2")
     assert res.returncode == 0, res.stdout + res.stderr
     return folder
@@ -82,6 +83,20 @@ def test_more_replicas_samples_only_new_ones(finished: Path) -> None:
         assert planned_jobs(finished).get("chainyard_sample") == 1
     finally:
         write_config(finished, {"gauss": gauss_run()})
+
+
+def test_sample_threads_change_reruns_nothing(finished: Path) -> None:
+    """The sampling jobs got the rule's threads as CPUs (their cheap vectorised model stays
+    in the job's process, said in one line); changing them is not a rerun trigger, since the
+    worker count never changes a draw."""
+    logs = finished / "results" / "logs" / "gauss"
+    for replica in (0, 1):
+        log = (logs / f"sample-replica-{replica}.log").read_text()
+        auto = [ln for ln in log.splitlines() if "workers auto:" in ln]
+        assert len(auto) == 1 and "evaluating in this process" in auto[0], log
+    for threads in (1, 3):
+        write_config(finished, {"gauss": gauss_run()}, sample_threads=threads)
+        assert planned_jobs(finished) == {}
 
 
 def test_model_change_reruns_sampling(finished: Path) -> None:

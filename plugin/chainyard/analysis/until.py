@@ -84,6 +84,8 @@ def sample_until_targets(
     progress: str = "auto",
     progress_interval: float = 10.0,
     stream: TextIO | None = None,
+    workers: int | str = 1,
+    cpus: int | None = None,
 ) -> tuple[Store, bool]:
     """Sample ``sampler.steps`` in every replica, then extend all by ``check_every`` until met.
 
@@ -125,6 +127,8 @@ def sample_until_targets(
                 progress=progress,
                 progress_interval=progress_interval,
                 stream=stream,
+                workers=workers,
+                cpus=cpus,
             )
             for path, r in zip(paths, indices, strict=True)
         ]

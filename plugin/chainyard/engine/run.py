@@ -46,6 +46,7 @@ from chainyard.engine.identity import describe_differences, run_identity
 from chainyard.engine.initial import initial_state
 from chainyard.engine.loop import advance
 from chainyard.engine.marker import previous_run_line, read_marker, remove_marker, write_marker
+from chainyard.engine.pool import worker_pool
 from chainyard.engine.stopping import Interrupted, StopFlag, stop_on_signals
 from chainyard.errors import (
     ChainyardError,
@@ -102,6 +103,8 @@ def sample(
     progress: str = "auto",
     progress_interval: float = 10.0,
     stream: TextIO | None = None,
+    workers: int | str = 1,
+    cpus: int | None = None,
 ) -> Store:
     """Create, resume or extend the store of one replica until it holds ``sampler.steps``.
 
@@ -121,6 +124,13 @@ def sample(
         Seconds between progress log lines.
     stream : file, optional
         Where progress goes (default standard error).
+    workers : int or "auto"
+        Worker processes evaluating the log-probabilities (1: this process; ``"auto"``: up
+        to ``cpus``, where timing shows it pays); see :mod:`chainyard.engine.pool`. Not part
+        of the store's identity: the draws are the same for any count.
+    cpus : int, optional
+        CPUs the run may use (default: those this process may run on): caps ``"auto"`` and
+        the BLAS/OpenMP threads of each worker.
 
     Returns
     -------
@@ -152,7 +162,11 @@ def sample(
     say = Progress(1, 0, mode="log", stream=stream, label=label).message
     if not restart and _complete_read_only(config, path, identity, say):
         return Store.open(path)
-    with _ignore_file_size_signal(), stop_on_signals() as stop:
+    with (
+        _ignore_file_size_signal(),
+        stop_on_signals() as stop,
+        worker_pool(model, config, workers, cpus, say),
+    ):
         try:
             with writer_lock(path) as lock:
                 marker = read_marker(path)

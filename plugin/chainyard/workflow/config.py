@@ -40,6 +40,14 @@ class WorkflowConfig(_Strict):
     sample_retries: int = Field(
         default=2, ge=0, description="Retries of a killed sampling job (each resumes)."
     )
+    sample_threads: int = Field(
+        default=1,
+        ge=1,
+        description=(
+            "CPUs of a sampling job (the rule's threads): its model calls run in up to this "
+            "many worker processes where timing shows it pays (sample --workers auto)."
+        ),
+    )
 
     @field_validator("runs")
     @classmethod

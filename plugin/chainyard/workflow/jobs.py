@@ -17,7 +17,9 @@ def _dispatch(sm: Any) -> None:
     p = sm.params
     step = p.step
     if step == "sample":
-        steps.sample_step(p.settings, p.base_dir, int(p.replica), p.resumable, sm.output[0])
+        steps.sample_step(
+            p.settings, p.base_dir, int(p.replica), p.resumable, sm.output[0], cpus=sm.threads
+        )
     elif step == "decide":
         steps.decide_step(p.what, p.policy, list(sm.input), sm.output[0])
     elif step == "derive":

@@ -73,16 +73,21 @@ def sample_step(
     resumable: str,
     output: str,
     progress_interval: float = 10.0,
+    cpus: int = 1,
 ) -> None:
     """Sample (or resume, or extend) one replica, then publish it at ``output``.
 
     If the resumable store was made with different settings (the rule reran because the model,
     data or a sampling setting changed), it is discarded and sampling starts over; the log
-    says why.
+    says why. With ``cpus`` (the rule's threads) > 1 the model's calls run in up to that many
+    worker processes where timing shows it pays (``workers="auto"``).
     """
     config = parse_config(json.loads(settings), base_dir=Path(base_dir), source="run settings")
+    pool: dict[str, Any] = {"workers": "auto" if cpus > 1 else 1, "cpus": cpus}
     try:
-        sample(config, resumable, replica, progress="log", progress_interval=progress_interval)
+        sample(
+            config, resumable, replica, progress="log", progress_interval=progress_interval, **pool
+        )
     except StoreConflictError as exc:
         print(f"chainyard: {exc}; the workflow changed these settings: starting over", flush=True)
         sample(
@@ -92,6 +97,7 @@ def sample_step(
             restart=True,
             progress="log",
             progress_interval=progress_interval,
+            **pool,
         )
     link_tree(Path(resumable), Path(output))
 
