@@ -28,6 +28,7 @@ import pytest
 import chainyard
 from tests.cluster.slurm_cluster import SlurmCluster
 from tests.cluster.workflow_runs import (
+    EXAMPLE,
     finish,
     reduced_example,
     start_snakemake,
@@ -37,6 +38,7 @@ from tests.cluster.workflow_runs import (
     zarr_stores,
 )
 from tests.conftest import assert_same_store
+from tests.workflow.conftest import gauss_run, make_workflow, planned_jobs
 
 STEPS = 2000
 REPLICAS = 2
@@ -178,3 +180,41 @@ def test_example_workflow_on_slurm(slurm: SlurmCluster, work: Path) -> None:
     with contextlib.suppress(FileNotFoundError):
         assert ((on_slurm / "results/cooling/summary.csv").read_bytes()
                 == (local / "results/cooling/summary.csv").read_bytes())
+
+
+@pytest.mark.slow
+def test_job_groups_on_slurm(slurm: SlurmCluster, work: Path) -> None:
+    """A run's replicas in one SLURM job and all its later steps in another.
+
+    Without groups the same workflow is one SLURM job per Snakemake job (the test above).
+    """
+    folder = make_workflow(work / "grouped", {"a": gauss_run(steps=1000)})
+    shutil.copytree(EXAMPLE / "profiles" / "slurm", folder / "profiles" / "slurm")
+    plan = planned_jobs(folder)
+    rules = [rule for rule in plan if rule != "all"]
+    groups = [f"{r}={'sampling' if r == 'chainyard_sample' else 'steps'}" for r in rules]
+    proc, log = start_snakemake(
+        folder, "--workflow-profile", "profiles/slurm", *FAST_POLLING, "--groups", *groups,
+        "--group-components", f"sampling={plan['chainyard_sample']}", env=slurm.env())
+    try:
+        code = finish(proc, SLURM_RUN_TIMEOUT)
+    finally:
+        stop_group(proc)
+    text = log.read_text()
+    assert code == 0, text[-5000:]
+    run_id = re.search(r"^SLURM run ID: (\S+)", text, re.MULTILINE)
+    assert run_id is not None, text[:3000]
+    ours = {jid: job for jid, job in slurm.jobs().items() if job["name"] == run_id[1]}
+    done = slurm.completed_jobs()
+    assert sum(plan.values()) > 2 * len(ours)
+    assert sorted(job["comment"].split("_", 2)[1] for job in ours.values()) == [
+        "sampling", "steps"]
+    for jid in ours:
+        assert done[jid]["JobState"] == "COMPLETED", done[jid]
+    # the sampling group runs the replicas side by side: their threads and memory add up
+    sampling = next(jid for jid, job in ours.items() if "sampling" in job["comment"])
+    assert int(done[sampling]["ProcCnt"]) == plan["chainyard_sample"]
+    assert f"mem={plan['chainyard_sample'] * SAMPLE_MEM_MB}M" in done[sampling]["Tres"]
+    for replica in range(plan["chainyard_sample"]):
+        store = chainyard.open_store(folder / f"results/a/draws/replica-{replica}.zarr")
+        assert store.steps_done == 1000
