@@ -95,11 +95,13 @@ def ensure_packages(log: Path, timeout: float = 300) -> float:
         return 0.0
     start = time.monotonic()
     env = {**os.environ, "DEBIAN_FRONTEND": "noninteractive"}
-    install = ["apt-get", "install", "-y", "-q", "--no-install-recommends", *PACKAGES]
+    wait_lock = ["-o", "DPkg::Lock::Timeout=120"]  # a fresh machine may be upgrading itself
+    install = ["apt-get", *wait_lock, "install", "-y", "-q", "--no-install-recommends",
+               *PACKAGES]
     with log.open("a") as out:
         ok = _run_logged(install, out, env, timeout)
         if not ok:
-            _run_logged(["apt-get", "update", "-q"], out, env, timeout)
+            _run_logged(["apt-get", *wait_lock, "update", "-q"], out, env, timeout)
             ok = _run_logged(install, out, env, timeout)
     if not ok or packages_missing():
         tail = "\n".join(log.read_text(errors="replace").splitlines()[-15:])
@@ -229,6 +231,33 @@ class SlurmCluster:
             except subprocess.TimeoutExpired:
                 proc.kill()
                 proc.wait(timeout=15)
+        leftovers = self.job_processes()  # processes that outlived their jobs
+        for pid in leftovers:
+            with contextlib.suppress(OSError):
+                os.kill(pid, signal.SIGKILL)
+        if leftovers:
+            print(f"SLURM test cluster: killed {len(leftovers)} processes left by its jobs")
+
+    def job_processes(self) -> list[int]:
+        """Processes started by this cluster's jobs that are still alive.
+
+        A job's processes carry ``SLURM_JOB_ID`` and this cluster's folder (its wrappers are
+        first on their ``PATH``); a process that survived its job's end (one left behind by
+        a parent that died first) is found this way.
+        """
+        marker = str(self.root).encode() + b"/"
+        found = []
+        for entry in Path("/proc").iterdir():
+            if not entry.name.isdigit() or int(entry.name) == os.getpid():
+                continue
+            try:
+                environ = (entry / "environ").read_bytes().split(b"\0")
+            except OSError:
+                continue
+            if (any(v.startswith(b"SLURM_JOB_ID=") for v in environ)
+                    and any(marker in v for v in environ)):
+                found.append(int(entry.name))
+        return found
 
     # -- starting -------------------------------------------------------------------------
 
@@ -280,6 +309,9 @@ class SlurmCluster:
                    and "UP" in self.command("scontrol", "ping").stdout, 30)
         self._spawn("slurmd", "-D", "-f", str(self.conf), "-N", NODE)
         self._wait("the node to take jobs", self._node_ready, 30)
+        exposed = {a for a in self.listening_addresses() if not a.startswith("127.")}
+        if exposed:
+            raise RuntimeError(f"SLURM daemons listen beyond loopback: {sorted(exposed)}")
 
     def _node_ready(self) -> bool:
         res = self.command("sinfo", "--noheader", "-n", NODE, "-o", "%T")
@@ -310,7 +342,7 @@ SlurmctldDebug=info
 SlurmdDebug=info
 SlurmdParameters=config_overrides
 MailProg=/bin/true
-ProctrackType=proctrack/linuxproc
+ProctrackType=proctrack/pgid
 TaskPlugin=task/none
 MpiDefault=none
 SwitchType=switch/none
@@ -358,9 +390,12 @@ def _decode_address(hexaddr: str, width: int) -> str:
 def slurm_cluster(parent: Path | None = None) -> Iterator[SlurmCluster]:
     """Start a loopback cluster in a new temporary folder; stop it and remove the folder.
 
-    The folder is short (``/tmp/cy-slurm-*``) because munge's socket path must fit in
-    108 bytes. Cleans up even when starting fails half way.
+    The folder is in ``parent`` (default: the temporary folder, or /tmp when that path is
+    too long for munge's socket, which must fit in 108 bytes). Cleans up even when starting
+    fails half way.
     """
+    if parent is None and len(tempfile.gettempdir()) > 40:
+        parent = Path("/tmp")
     root = Path(tempfile.mkdtemp(prefix="cy-slurm-", dir=parent))
     cluster = SlurmCluster(root)
     try:

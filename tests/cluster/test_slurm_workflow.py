@@ -141,8 +141,10 @@ def test_example_workflow_on_slurm(slurm: SlurmCluster, work: Path) -> None:
             ran[job.rule] = ran.get(job.rule, 0) + 1
             assert job.slurm_ids, f"{job.rule} {job.wildcards} was not submitted to SLURM"
     assert ran == planned
+    slurm_ids = {i for job in jobs.values() for i in job.slurm_ids}
+    done = wait_for("the job completion log", lambda: (
+        slurm.completed_jobs() if slurm_ids <= slurm.completed_jobs().keys() else None), 30)
     known = slurm.jobs()  # the controller's records (kept MinJobAge seconds)
-    done = slurm.completed_jobs()  # the job completion log
     for job in (j for j in jobs.values() if j.rule != "all"):
         values = "_".join(v.split("=", 1)[1] for v in job.wildcards.split(", ") if "=" in v)
         for attempt, slurm_id in enumerate(job.slurm_ids, start=1):
