@@ -26,7 +26,7 @@ from pathlib import Path
 import pytest
 
 import chainyard
-from tests.cluster.slurm_cluster import SlurmCluster
+from tests.cluster.slurm_cluster import NODE, SlurmCluster
 from tests.cluster.workflow_runs import (
     EXAMPLE,
     finish,
@@ -38,7 +38,7 @@ from tests.cluster.workflow_runs import (
     zarr_stores,
 )
 from tests.conftest import assert_same_store
-from tests.workflow.conftest import gauss_run, make_workflow, planned_jobs
+from tests.workflow.conftest import gauss_run, make_workflow, planned_jobs, snakemake
 
 STEPS = 2000
 REPLICAS = 2
@@ -152,6 +152,7 @@ def test_example_workflow_on_slurm(slurm: SlurmCluster, work: Path) -> None:
             assert known[slurm_id]["comment"] == f"rule_{job.rule}_wildcards_{values}"
             last = attempt == len(job.slurm_ids)
             assert record["JobState"] == ("COMPLETED" if last else "CANCELLED"), record
+            assert record["NodeList"] == NODE, record
             # resources: threads -> CPUs, mem_mb -> memory, runtime (minutes) -> time limit
             runtime = int(job.resources["runtime"])
             if job.rule == "chainyard_sample":
@@ -179,6 +180,10 @@ def test_example_workflow_on_slurm(slurm: SlurmCluster, work: Path) -> None:
     assert len(stores) >= REPLICAS
     for rel in stores:
         assert_same_store(on_slurm / "results" / rel, local / "results" / rel)
+    # and a rerun finds nothing to do
+    again = snakemake(on_slurm, "-n", "--workflow-profile", "profiles/slurm", *threads,
+                      env=slurm.env())
+    assert "Nothing to be done" in again.stdout + again.stderr, again.stdout + again.stderr
     with contextlib.suppress(FileNotFoundError):
         assert ((on_slurm / "results/cooling/summary.csv").read_bytes()
                 == (local / "results/cooling/summary.csv").read_bytes())
