@@ -55,6 +55,9 @@ PROGRAMS = {
 COMMANDS = ("srun", "sbatch", "squeue", "scontrol", "sinfo", "scancel", "sacct", "sacctmgr",
             "sshare", "salloc", "sstat")
 NODE = "localhost"
+#: test folders (cluster and workflows) start with this; each records its owner process
+PREFIX = "cy-slurm"
+OWNER_FILE = "owner.pid"
 PARTITION = "debug"
 #: seconds a finished job stays visible to squeue (Snakemake's plugin polls with squeue)
 MIN_JOB_AGE = 600
@@ -231,7 +234,7 @@ class SlurmCluster:
             except subprocess.TimeoutExpired:
                 proc.kill()
                 proc.wait(timeout=15)
-        leftovers = self.job_processes()  # processes that outlived their jobs
+        leftovers = self.job_processes()  # job steps and processes that outlived their jobs
         for pid in leftovers:
             with contextlib.suppress(OSError):
                 os.kill(pid, signal.SIGKILL)
@@ -239,25 +242,9 @@ class SlurmCluster:
             print(f"SLURM test cluster: killed {len(leftovers)} processes left by its jobs")
 
     def job_processes(self) -> list[int]:
-        """Processes started by this cluster's jobs that are still alive.
-
-        A job's processes carry ``SLURM_JOB_ID`` and this cluster's folder (its wrappers are
-        first on their ``PATH``); a process that survived its job's end (one left behind by
-        a parent that died first) is found this way.
-        """
-        marker = str(self.root).encode() + b"/"
-        found = []
-        for entry in Path("/proc").iterdir():
-            if not entry.name.isdigit() or int(entry.name) == os.getpid():
-                continue
-            try:
-                environ = (entry / "environ").read_bytes().split(b"\0")
-            except OSError:
-                continue
-            if (any(v.startswith(b"SLURM_JOB_ID=") for v in environ)
-                    and any(marker in v for v in environ)):
-                found.append(int(entry.name))
-        return found
+        """Processes of this cluster still alive besides its daemons (see processes_of)."""
+        daemons = {proc.pid for proc in self.procs.values() if proc.poll() is None}
+        return [pid for pid in processes_of(self.root) if pid not in daemons]
 
     # -- starting -------------------------------------------------------------------------
 
@@ -386,17 +373,73 @@ def _decode_address(hexaddr: str, width: int) -> str:
     return socket.inet_ntop(family, words)
 
 
+def processes_of(folder: Path) -> list[int]:
+    """Live processes (other than this one) whose environment names ``folder``.
+
+    The daemons get ``SLURM_CONF`` in the folder, job steps inherit it from slurmd, and jobs
+    and Snakemake have the folder's wrappers first on ``PATH``.
+    """
+    marker = str(folder).encode() + b"/"
+    found = []
+    for entry in Path("/proc").iterdir():
+        if not entry.name.isdigit() or int(entry.name) == os.getpid():
+            continue
+        with contextlib.suppress(OSError):
+            if marker in (entry / "environ").read_bytes():
+                found.append(int(entry.name))
+    return found
+
+
+def scratch_parent() -> Path:
+    """Where test folders go: the temporary folder, or /tmp when its path is too long for
+    munge's socket path (at most 108 bytes)."""
+    tmp = tempfile.gettempdir()
+    return Path("/tmp") if len(tmp) > 40 else Path(tmp)
+
+
+def _start_time(pid: int) -> str:
+    """Start time of a process (clock ticks since boot; tells a reused pid apart)."""
+    return Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[19]
+
+
+def owned_folder(prefix: str) -> Path:
+    """A new folder under :func:`scratch_parent` that records this process as its owner."""
+    folder = Path(tempfile.mkdtemp(prefix=prefix, dir=scratch_parent()))
+    (folder / OWNER_FILE).write_text(f"{os.getpid()} {_start_time(os.getpid())}")
+    return folder
+
+
+def reap_abandoned() -> list[Path]:
+    """Remove what killed test sessions left behind: the folders of owners no longer alive,
+    and the processes (job steps, jobs) that still name them. Returns the folders removed."""
+    removed = []
+    for folder in scratch_parent().glob(f"{PREFIX}*"):
+        try:
+            pid, start = (folder / OWNER_FILE).read_text().split()
+            if _start_time(int(pid)) == start:
+                continue  # its owner is running
+        except ValueError:
+            continue  # not one of ours
+        except OSError:
+            if not (folder / OWNER_FILE).exists():
+                continue
+        for orphan in processes_of(folder):
+            with contextlib.suppress(OSError):
+                os.kill(orphan, signal.SIGKILL)
+        shutil.rmtree(folder, ignore_errors=True)
+        removed.append(folder)
+    return removed
+
+
 @contextlib.contextmanager
-def slurm_cluster(parent: Path | None = None) -> Iterator[SlurmCluster]:
+def slurm_cluster() -> Iterator[SlurmCluster]:
     """Start a loopback cluster in a new temporary folder; stop it and remove the folder.
 
-    The folder is in ``parent`` (default: the temporary folder, or /tmp when that path is
-    too long for munge's socket, which must fit in 108 bytes). Cleans up even when starting
-    fails half way.
+    Cleans up even when starting fails half way. Folders and processes that a killed test
+    session left behind are removed first (:func:`reap_abandoned`).
     """
-    if parent is None and len(tempfile.gettempdir()) > 40:
-        parent = Path("/tmp")
-    root = Path(tempfile.mkdtemp(prefix="cy-slurm-", dir=parent))
+    reap_abandoned()
+    root = owned_folder(f"{PREFIX}-")
     cluster = SlurmCluster(root)
     try:
         cluster.start()

@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import re
 import shutil
-import tempfile
 import time
 from collections.abc import Iterator
 from pathlib import Path
@@ -25,7 +24,7 @@ from pathlib import Path
 import pytest
 
 import chainyard
-from tests.cluster.slurm_cluster import NODE, SlurmCluster
+from tests.cluster.slurm_cluster import NODE, PREFIX, SlurmCluster, owned_folder
 from tests.cluster.workflow_runs import (
     EXAMPLE,
     finish,
@@ -59,7 +58,7 @@ FAST_POLLING = ("--slurm-init-seconds-before-status-checks", "1",
 @pytest.fixture
 def work() -> Iterator[Path]:
     """A temporary folder removed afterwards, pass or fail."""
-    folder = Path(tempfile.mkdtemp(prefix="cy-slurm-wf-"))
+    folder = owned_folder(f"{PREFIX}-workflow-")
     try:
         yield folder
     finally:
