@@ -332,7 +332,6 @@ MailProg=/bin/true
 ProctrackType=proctrack/pgid
 TaskPlugin=task/none
 MpiDefault=none
-SwitchType=switch/none
 SchedulerType=sched/backfill
 SelectType=select/cons_tres
 SelectTypeParameters=CR_CPU
