@@ -5,6 +5,10 @@ controller's state, the daemons' logs, the job completion log and wrapper script
 SLURM commands. The three daemons (munged, slurmctld, slurmd) run in the foreground as
 children of the test process, so stopping them means signalling exactly the processes this
 module started; they also get SIGTERM if the test process dies (``PR_SET_PDEATHSIG``).
+Stopping cancels the cluster's jobs first and then kills any process still naming the folder
+in its environment (a job step, or a job's process that outlived its parent). A folder whose
+owner process died (a test session killed outright) is removed, with its processes, when the
+next cluster starts.
 
 Traps this module handles (found while setting such a cluster up by hand):
 
