@@ -1,0 +1,183 @@
+"""A run's draws in ArviZ's data model (an xarray DataTree), and which draws are exported.
+
+Layout (what :func:`to_datatree` returns and ``chainyard export`` writes)
+------------------------------------------------------------------------
+* ``posterior``: one variable per parameter (config order), then one per blob, each of dims
+  ``(chain, draw)``. **chain = replica x walker**: the replicas sorted by index, and within
+  each its walkers, so chain ``c`` is walker ``c % walkers`` of the ``c // walkers``-th
+  replica given; the non-index coordinates ``replica (chain)`` and ``walker (chain)`` name
+  both. ``draw`` counts the exported draws from 0; the coordinate ``step (draw)`` is the
+  sampler step after which the draw was taken (1 = the first step of the sampled run), so
+  burn-in and thinning stay visible. Blobs (extra values the model returns) are derived
+  quantities of each draw and sit in ``posterior`` beside the parameters, as ArviZ places
+  generated quantities; the group's attribute ``blob_names`` lists them.
+* ``sample_stats``: ``lp`` (log-probability of the draw, ArviZ's name) and ``accepted``
+  (bool: whether the walker's proposal was accepted at that step), same dims.
+* Variable attributes ``units`` and ``long_name`` (CF conventions) from the config's
+  ``unit`` and ``label``; ``reference_value`` where the config gives one.
+* Root attributes: ``chainyard_provenance`` (a JSON string: the provenance record of every
+  replica store and the selection), ``chainyard_selection`` (one line), and the usual
+  ``created_at`` / ``creation_library`` keys.
+
+Memory: :func:`to_datatree` holds the exported draws once (``chains x draws x (params +
+blobs + 2) x 8`` bytes) and reads the stores a few stored chunks at a time.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Iterator, Sequence
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from chainyard.analysis.records import input_identity
+from chainyard.analysis.selection import Selection, row_map, same_run
+from chainyard.store import Store
+
+if TYPE_CHECKING:  # pragma: no cover
+    import xarray as xr
+
+__all__ = ["provenance_attrs", "read_blocks", "to_datatree"]
+
+#: bytes of stored rows read at once (whole stored chunks, at least one)
+READ_BYTES = 1 << 23
+
+
+def read_blocks(
+    store: Store, selection: Selection
+) -> Iterator[tuple[int, int, dict[str, NDArray[Any]]]]:
+    """Kept rows of every per-step array, a few stored chunks at a time.
+
+    Yields
+    ------
+    (a, b, rows)
+        Kept draws ``[a, b)`` and ``rows[name]`` of shape ``(b - a, walkers[, params])`` for
+        every name in ``store.array_names()``.
+    """
+    row_bytes = 8 * store.walkers * (len(store.param_names) + len(store.blob_names) + 2)
+    per = max(1, (READ_BYTES // max(row_bytes, 1)) // selection.factor)
+    per = max(per, store.chunk_steps // selection.factor, 1)
+    for a in range(0, selection.draws, per):
+        b = min(selection.draws, a + per)
+        lo = selection.discard + a * selection.factor
+        hi = selection.discard + (b - 1) * selection.factor + 1
+        yield a, b, {n: store.read_rows(n, lo, hi, selection.factor) for n in store.array_names()}
+
+
+def _variable_attrs(store: Store) -> dict[str, dict[str, Any]]:
+    """CF-style ``units``/``long_name`` (and ``reference_value``) per parameter."""
+    out: dict[str, dict[str, Any]] = {}
+    for p in store.config.parameters:
+        attrs: dict[str, Any] = {}
+        if p.unit:
+            attrs["units"] = p.unit
+        if p.label:
+            attrs["long_name"] = p.label
+        ref = getattr(p, "reference_value", None)
+        if ref is not None:
+            attrs["reference_value"] = float(ref)
+        out[p.name] = attrs
+    return out
+
+
+def provenance_attrs(stores: Sequence[Store], selection: Selection) -> dict[str, Any]:
+    """Root attributes: the provenance of every replica and the selection (JSON string)."""
+    import chainyard
+    from chainyard.provenance import utc_now
+    from chainyard.provenance.record import provenance_record
+
+    body = {
+        "format": "chainyard.export",
+        "format_version": 1,
+        "selection": {
+            "description": selection.description,
+            "discard": selection.discard,
+            "factor": selection.factor,
+            "draws": selection.draws,
+            "first_step": selection.first_step,
+            "step_stride": selection.step_stride,
+            "records": [input_identity(r) for r in selection.records],
+        },
+        "chains": "chain = replica x walker (replicas sorted by index, walkers within each)",
+        "stores": [provenance_record(s) for s in stores],
+    }
+    return {
+        "created_at": utc_now(),
+        "creation_library": "chainyard",
+        "creation_library_version": chainyard.__version__,
+        "creation_library_language": "Python",
+        "sampler": str(stores[0].attrs.get("identity", {}).get("sampler_kind", "")),
+        "chainyard_selection": selection.description,
+        "chainyard_provenance": json.dumps(body, sort_keys=True, allow_nan=False),
+    }
+
+
+def to_datatree(stores: Sequence[Store] | Store, selection: Selection | None = None) -> xr.DataTree:
+    """The draws of a run's replica stores as an ArviZ DataTree (layout: module docstring).
+
+    Parameters
+    ----------
+    stores : Store or sequence of Store
+        Replica stores of one run at one stage (checked with :func:`same_run`).
+    selection : Selection, optional
+        Rows to export (:func:`choose_selection`); default every committed row of the
+        shortest replica as it is stored.
+
+    Returns
+    -------
+    xarray.DataTree
+        Groups ``posterior`` and ``sample_stats``; opens with ``arviz_base``.
+    """
+    import xarray as xr
+
+    stores = sorted([stores] if isinstance(stores, Store) else list(stores), key=_replica)
+    same_run(stores)
+    if selection is None:
+        offset, stride = row_map(stores[0].attrs)
+        n = min(s.steps_done for s in stores)
+        selection = Selection(0, 1, n, 1 + offset, stride, "the stores' committed draws")
+    first = stores[0]
+    names, blobs, walkers = first.param_names, first.blob_names, first.walkers
+    chains, n = walkers * len(stores), selection.draws
+    post = {v: np.empty((chains, n)) for v in (*names, *blobs)}
+    lp = np.empty((chains, n))
+    acc = np.empty((chains, n), dtype=bool)
+    for r, s in enumerate(stores):
+        rows = slice(r * walkers, (r + 1) * walkers)
+        for a, b, block in read_blocks(s, selection):
+            for j, name in enumerate(names):
+                post[name][rows, a:b] = block["position"][:, :, j].T
+            for name in blobs:
+                post[name][rows, a:b] = block[f"blob/{name}"].T
+            lp[rows, a:b] = block["log_prob"].T
+            acc[rows, a:b] = block["accepted"].T
+    coords = {
+        "chain": np.arange(chains),
+        "draw": np.arange(n),
+        "replica": ("chain", np.repeat([s.replica for s in stores], walkers)),
+        "walker": ("chain", np.tile(np.arange(walkers), len(stores))),
+        "step": ("draw", selection.steps()),
+    }
+    var_attrs = _variable_attrs(first)
+    dims = ("chain", "draw")
+    posterior = xr.Dataset(
+        {v: (dims, post[v], var_attrs.get(v, {})) for v in (*names, *blobs)},
+        coords=coords,
+        attrs={"blob_names": list(blobs), "parameter_names": list(names)},
+    )
+    stats = xr.Dataset(
+        {
+            "lp": (dims, lp, {"long_name": "log-probability of the draw"}),
+            "accepted": (dims, acc, {"long_name": "the walker's proposal was accepted"}),
+        },
+        coords=coords,
+    )
+    tree = xr.DataTree.from_dict({"posterior": posterior, "sample_stats": stats})
+    tree.attrs = provenance_attrs(stores, selection)
+    return tree
+
+
+def _replica(store: Store) -> int:
+    return store.replica
