@@ -165,12 +165,14 @@ def plot_step(
         tau_history_plot,
         trace_plot,
     )
+    from chainyard.report.references import reference_values
 
     raw_stores = open_replicas(raw)
     final_stores = open_replicas(final)
     cut = int(read_record(burn_in, BURN_IN_KIND)["decision"]["steps_discarded"])
     diag = read_record(diagnostics, DIAGNOSTICS_KIND)
-    trace_plot(raw_stores, cut, outputs["traces"])
+    refs = reference_values(raw_stores[0])  # the config's reference_value entries
+    trace_plot(raw_stores, cut, outputs["traces"], references=refs)
     tau_history_plot(final_stores, outputs["tau"], diagnostics=diag)
-    pairs_plot(final_stores, outputs["pairs"])
+    pairs_plot(final_stores, outputs["pairs"], references=refs)
     acceptance_plot(raw_stores, outputs["acceptance"], diag)
