@@ -10,7 +10,8 @@ Layout (what :func:`to_datatree` returns and ``chainyard export`` writes)
   sampler step after which the draw was taken (1 = the first step of the sampled run), so
   burn-in and thinning stay visible. Blobs (extra values the model returns) are derived
   quantities of each draw and sit in ``posterior`` beside the parameters, as ArviZ places
-  generated quantities; the group's attribute ``blob_names`` lists them.
+  generated quantities; the group's attributes ``parameter_names`` and ``blob_names`` list both
+  (comma-separated).
 * ``sample_stats``: ``lp`` (log-probability of the draw, ArviZ's name) and ``accepted``
   (bool: whether the walker's proposal was accepted at that step), same dims.
 * Variable attributes ``units`` and ``long_name`` (CF conventions) from the config's
@@ -27,6 +28,7 @@ from __future__ import annotations
 
 import json
 from collections.abc import Iterator, Sequence
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -39,7 +41,7 @@ from chainyard.store import Store
 if TYPE_CHECKING:  # pragma: no cover
     import xarray as xr
 
-__all__ = ["provenance_attrs", "read_blocks", "to_datatree"]
+__all__ = ["build_datatree", "provenance_attrs", "read_blocks", "to_datatree"]
 
 #: bytes of stored rows read at once (whole stored chunks, at least one)
 READ_BYTES = 1 << 23
@@ -114,16 +116,57 @@ def provenance_attrs(stores: Sequence[Store], selection: Selection) -> dict[str,
     }
 
 
-def to_datatree(stores: Sequence[Store] | Store, selection: Selection | None = None) -> xr.DataTree:
-    """The draws of a run's replica stores as an ArviZ DataTree (layout: module docstring).
+def to_datatree(
+    stores: Sequence[Store | str | Path] | Store | str | Path,
+    *,
+    raw: bool = False,
+    burn_in_record: str | Path | None = None,
+    thinning_record: str | Path | None = None,
+) -> xr.DataTree:
+    """A run's draws as an ArviZ DataTree, choosing the draws as ``chainyard export`` does.
+
+    Parameters
+    ----------
+    stores : Store, path, or a sequence of them
+        The replica stores of one run: derived stores (after burn-in/thinning) as they are,
+        or sampled stores with ``burn_in_record`` (and ``thinning_record``) or ``raw``.
+    raw : bool
+        Every committed draw of sampled stores (burn-in included).
+    burn_in_record, thinning_record : str or Path, optional
+        Decision records to apply to sampled stores.
+
+    Returns
+    -------
+    xarray.DataTree
+        Layout in the module docstring.
+
+    Raises
+    ------
+    StoreError
+        Stores of different runs or stages, or a sampled store without records or ``raw``.
+    """
+    from chainyard.analysis.selection import choose_selection
+
+    items = [stores] if isinstance(stores, Store | str | Path) else list(stores)
+    opened = [s if isinstance(s, Store) else Store.open(s) for s in items]
+    selection = choose_selection(
+        opened, raw=raw, burn_in_record=burn_in_record, thinning_record=thinning_record
+    )
+    return build_datatree(opened, selection)
+
+
+def build_datatree(
+    stores: Sequence[Store] | Store, selection: Selection | None = None
+) -> xr.DataTree:
+    """The DataTree of ``stores`` under ``selection`` (layout: module docstring).
 
     Parameters
     ----------
     stores : Store or sequence of Store
         Replica stores of one run at one stage (checked with :func:`same_run`).
     selection : Selection, optional
-        Rows to export (:func:`choose_selection`); default every committed row of the
-        shortest replica as it is stored.
+        Rows to export (:func:`~chainyard.analysis.selection.choose_selection`); default every
+        committed row of the shortest replica as it is stored.
 
     Returns
     -------
@@ -165,7 +208,8 @@ def to_datatree(stores: Sequence[Store] | Store, selection: Selection | None = N
     posterior = xr.Dataset(
         {v: (dims, post[v], var_attrs.get(v, {})) for v in (*names, *blobs)},
         coords=coords,
-        attrs={"blob_names": list(blobs), "parameter_names": list(names)},
+        # comma-separated: netCDF turns a one-element list attribute into a plain string
+        attrs={"blob_names": ",".join(blobs), "parameter_names": ",".join(names)},
     )
     stats = xr.Dataset(
         {

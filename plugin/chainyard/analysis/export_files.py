@@ -2,7 +2,7 @@
 
 Formats, chosen by the output's extension:
 
-* ``.nc``: the DataTree of :func:`chainyard.analysis.export.to_datatree` in netCDF-4 through
+* ``.nc``: the DataTree of :func:`chainyard.analysis.export.build_datatree` in netCDF-4 through
   h5netcdf (HDF5 via h5py's wheels: no netCDF-C library to install);
 * ``.zarr``: the same tree as a zarr store (a folder);
 * ``.csv``: one row per draw, columns ``chain, draw, replica, walker, step``, the parameters
@@ -23,13 +23,14 @@ from __future__ import annotations
 import json
 import os
 import shutil
+import warnings
 from collections.abc import Sequence
 from contextlib import suppress
 from pathlib import Path
 
 import numpy as np
 
-from chainyard.analysis.export import read_blocks, to_datatree
+from chainyard.analysis.export import build_datatree, read_blocks
 from chainyard.analysis.outputs import _enclosing_store, _swap_in, store_kind
 from chainyard.analysis.selection import Selection
 from chainyard.errors import ConfigError, StoreError
@@ -187,11 +188,14 @@ def export_run(
             rows = write_csv(stores, selection, tmp)
             what = f"{rows:,} rows"
         else:
-            tree = to_datatree(stores, selection)
+            tree = build_datatree(stores, selection)
             if ext == ".nc":
                 tree.to_netcdf(tmp, engine="h5netcdf")
-            else:
-                tree.to_zarr(tmp)
+            else:  # consolidated metadata (zarr warns it is outside the v3 spec): readers
+                # such as arviz-base open the tree without a fallback warning
+                with warnings.catch_warnings():
+                    warnings.filterwarnings("ignore", message="Consolidated metadata")
+                    tree.to_zarr(tmp)
             what = f"{chains} chains x {selection.draws:,} draws"
         if ext == ".zarr" and os.path.lexists(target):
             _swap_in(tmp, target)
