@@ -306,3 +306,38 @@ def test_python_api_matches_the_export(run: Path) -> None:
     assert np.array_equal(one["posterior"]["zeta"].values, _expected_chains(run, "zeta")[8:])
     with pytest.raises(chainyard.StoreError, match="--raw"):
         chainyard.open_store(run / "r0.zarr").to_datatree()
+
+
+def test_trace_panel_texts_do_not_overlap(run: Path) -> None:
+    """Long parameter labels are panel titles that stay inside the figure and clear of the
+    neighbouring panels' texts; the log-prob range covers the steps after the cut only."""
+    from matplotlib.text import Text
+
+    from chainyard.report.plots import trace_figure
+
+    stores = open_replicas([run / "r0.zarr", run / "r1.zarr"])
+    cut = read_record(run / "burn_in.json", "chainyard.burn_in_decision")["decision"]
+    cut = int(cut["steps_discarded"])
+    fig = trace_figure(stores, cut, references={"zeta": 0.0})
+    fig.canvas.draw()
+    renderer = fig.canvas.get_renderer()
+    width = fig.bbox.width
+    ticks = {id(t) for ax in fig.axes for t in ax.get_xticklabels() + ax.get_yticklabels()}
+    texts = [  # titles, axis labels, annotations, legend entries (tick labels aside)
+        t
+        for t in fig.findobj(Text)
+        if t.get_visible() and t.get_text().strip() and id(t) not in ticks
+    ]
+    boxes = [(t.get_text(), t.get_window_extent(renderer)) for t in texts]
+    for name, box in boxes:
+        assert box.x0 >= 0 and box.x1 <= width, name
+    assert any("distance of the reflector" in name for name, _ in boxes)
+    for i, (name_a, a) in enumerate(boxes):
+        for name_b, b in boxes[i + 1 :]:
+            assert not a.overlaps(b), (name_a, name_b)
+    lp_axis = fig.axes[len(stores[0].param_names)]
+    after = np.concatenate([s.log_prob(cut).mean(axis=1) for s in stores])
+    low, high = lp_axis.get_ylim()
+    assert low <= after.min() and after.max() <= high
+    first = np.concatenate([s.log_prob(0, 1).mean(axis=1) for s in stores])
+    assert first.min() < low  # the start lies far below: excluded from the range

@@ -120,7 +120,8 @@ def _cmd_plot(args: argparse.Namespace) -> int:
     whole = views if derived else stores  # traces and acceptance: every sampled step
     cut = None if (derived or args.raw) else selection.discard
     folder.mkdir(parents=True, exist_ok=True)
-    trace_plot(whole, cut, folder / "traces.png", references=refs)
+    xlabel = "draw (after the stores' burn-in and thinning)" if derived else "step"
+    trace_plot(whole, cut, folder / "traces.png", references=refs, xlabel=xlabel)
     tau_history_plot(views, folder / "tau.png", diagnostics=diag)
     pairs_plot(views, folder / "pairs.png", references=refs)
     acceptance_plot(whole, folder / "acceptance.png", diag)

@@ -20,7 +20,14 @@ from matplotlib.lines import Line2D
 from chainyard.diagnostics import integrated_time_history
 from chainyard.store import Store
 
-__all__ = ["acceptance_plot", "axis_label", "pairs_plot", "tau_history_plot", "trace_plot"]
+__all__ = [
+    "acceptance_plot",
+    "axis_label",
+    "pairs_plot",
+    "tau_history_plot",
+    "trace_figure",
+    "trace_plot",
+]
 
 #: one colour per replica (cycled): a muted palette of our own
 REPLICA_COLOURS = (
@@ -120,7 +127,19 @@ def trace_plot(
     references: Mapping[str, float] | None = None,
     xlabel: str = "step",
 ) -> None:
-    """Traces of every parameter and the log-probability, one panel each.
+    """Write :func:`trace_figure` as a PNG at ``path``."""
+    fig = trace_figure(stores, cut, references=references, xlabel=xlabel)
+    _save(fig, path, stores)
+
+
+def trace_figure(
+    stores: Sequence[Any],
+    cut: int | None,
+    *,
+    references: Mapping[str, float] | None = None,
+    xlabel: str = "step",
+) -> Any:
+    """Traces of every parameter and the log-probability, one panel each (a Figure).
 
     Per replica: the walker mean (line) and the 5-95% band of its walkers; for the first
     replica also a few individual walkers (thin lines), to show mixing beyond the mean. The
@@ -213,7 +232,7 @@ def trace_plot(
         fontsize=10,
     )
     fig.tight_layout(rect=(0, 0.04, 1, 1))
-    _save(fig, path, stores)
+    return fig
 
 
 def tau_history_plot(
