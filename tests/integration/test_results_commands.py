@@ -181,6 +181,20 @@ def test_export_refusals_are_one_line(run: Path) -> None:
     assert "--burn-in-record" in line and "--raw" in line
     line = _one_line_error(cli("export", "r0.zarr", "t1.zarr", "-o", "a.nc", cwd=run), 4)
     assert "burn-in/thinning differ" in line
+    other_bi = run / "other_burn_in.json"
+    write_record(
+        other_bi,
+        "chainyard.burn_in_decision",
+        {"decision": {"steps_discarded": 5}},
+        [chainyard.open_store(run / "r0.zarr")],
+    )
+    line = _one_line_error(
+        cli(
+            "export", "r0.zarr", "r1.zarr", "--burn-in-record", other_bi.name, "-o", "a.nc", cwd=run
+        ),
+        4,
+    )
+    assert "decided on other stores than r1.zarr" in line
     line = _one_line_error(cli("export", "t0.zarr", "-o", "a.txt", cwd=run), 2)
     assert ".nc" in line and ".zarr" in line and ".csv" in line
     line = _one_line_error(cli("export", "t0.zarr", "t1.zarr", "-o", "t0.zarr", cwd=run), 4)

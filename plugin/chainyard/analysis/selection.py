@@ -96,6 +96,20 @@ def same_run(stores: Sequence[Store]) -> None:
             raise StoreError(f"{s.path}: no committed steps")
 
 
+def _check_decided_on(record: dict[str, Any], stores: Sequence[Store], path: Path) -> None:
+    """Refuse a burn-in record that was not decided on these stores as they are now."""
+    from chainyard.provenance.inputs import store_digest
+
+    decided = {i.get("sha256") for i in record.get("inputs", []) if isinstance(i, dict)}
+    for s in stores:
+        if store_digest(s) not in decided:
+            raise StoreError(
+                f"{path}: decided on other stores than {s.path} as it is now (a record "
+                "names its stores by content hash; extended or other stores need a new "
+                "`chainyard decide burn-in`)"
+            )
+
+
 def choose_selection(
     stores: Sequence[Store],
     *,
@@ -136,6 +150,7 @@ def choose_selection(
     if burn_in_record is not None:
         rec = read_record(burn_in_record, "chainyard.burn_in_decision")
         discard = int(rec["decision"]["steps_discarded"])
+        _check_decided_on(rec, stores, Path(burn_in_record))
     if thinning_record is not None:
         rec = read_record(thinning_record, "chainyard.thinning_decision")
         factor = int(rec["decision"]["factor"])
