@@ -215,6 +215,14 @@ def test_export_refusals_are_one_line(run: Path) -> None:
     assert (run / "exists.csv").read_text() == "keep me\n"
     proc = cli("export", "t0.zarr", "-o", "exists.csv", "--force", cwd=run)
     assert proc.returncode == 0 and (run / "exists.csv").read_text().startswith("chain,")
+    for _ in range(2):  # a zarr export is replaced with --force (swapped in whole)
+        proc = cli("export", "t0.zarr", "-o", "again.zarr", "--force", cwd=run)
+        assert proc.returncode == 0, proc.stderr
+    (run / "mine.zarr").mkdir()
+    (run / "mine.zarr" / "notes.txt").write_text("mine")
+    line = _one_line_error(cli("export", "t0.zarr", "-o", "mine.zarr", "--force", cwd=run), 4)
+    assert "not a zarr export written by chainyard" in line
+    assert (run / "mine.zarr" / "notes.txt").read_text() == "mine"
     assert tree_snapshot(run / "t0.zarr") == before
     assert not list(run.glob(".*.tmp"))
 
