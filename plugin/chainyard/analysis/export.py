@@ -21,7 +21,8 @@ Layout (what :func:`to_datatree` returns and ``chainyard export`` writes)
   ``created_at`` / ``creation_library`` keys.
 
 Memory: :func:`to_datatree` holds the exported draws once (``chains x draws x (params +
-blobs + 2) x 8`` bytes) and reads the stores a few stored chunks at a time.
+blobs + 2) x 8`` bytes); the file writers (:mod:`.export_files`) hold one replica's at a time
+(:func:`iter_replica_trees`). Stores are read a few stored chunks at a time.
 """
 
 from __future__ import annotations
@@ -41,7 +42,14 @@ from chainyard.store import Store
 if TYPE_CHECKING:  # pragma: no cover
     import xarray as xr
 
-__all__ = ["build_datatree", "provenance_attrs", "read_blocks", "to_datatree"]
+__all__ = [
+    "build_datatree",
+    "iter_replica_trees",
+    "provenance_attrs",
+    "read_blocks",
+    "replica_groups",
+    "to_datatree",
+]
 
 #: bytes of stored rows read at once (whole stored chunks, at least one)
 READ_BYTES = 1 << 23
@@ -155,10 +163,85 @@ def to_datatree(
     return build_datatree(opened, selection)
 
 
+def _prepared(
+    stores: Sequence[Store] | Store, selection: Selection | None
+) -> tuple[list[Store], Selection]:
+    """The stores sorted by replica (checked to be one run) and the selection to use."""
+    stores = sorted([stores] if isinstance(stores, Store) else list(stores), key=_replica)
+    same_run(stores)
+    if selection is None:
+        offset, stride = row_map(stores[0].attrs)
+        n = min(s.steps_done for s in stores)
+        selection = Selection(0, 1, n, 1 + offset, stride, "the stores' committed draws")
+    return stores, selection
+
+
+def replica_groups(store: Store, index: int, selection: Selection) -> dict[str, xr.Dataset]:
+    """The ``posterior`` and ``sample_stats`` datasets of one replica (its chains only).
+
+    ``index`` is the replica's position among the exported ones: its walkers are chains
+    ``index * walkers ...``. Memory: this replica's exported draws once.
+    """
+    import xarray as xr
+
+    names, blobs, walkers, n = store.param_names, store.blob_names, store.walkers, selection.draws
+    post = {v: np.empty((walkers, n)) for v in (*names, *blobs)}
+    lp = np.empty((walkers, n))
+    acc = np.empty((walkers, n), dtype=bool)
+    for a, b, block in read_blocks(store, selection):
+        for j, name in enumerate(names):
+            post[name][:, a:b] = block["position"][:, :, j].T
+        for name in blobs:
+            post[name][:, a:b] = block[f"blob/{name}"].T
+        lp[:, a:b] = block["log_prob"].T
+        acc[:, a:b] = block["accepted"].T
+    coords = {
+        "chain": index * walkers + np.arange(walkers),
+        "draw": np.arange(n),
+        "replica": ("chain", np.full(walkers, store.replica)),
+        "walker": ("chain", np.arange(walkers)),
+        "step": ("draw", selection.steps()),
+    }
+    var_attrs = _variable_attrs(store)
+    dims = ("chain", "draw")
+    posterior = xr.Dataset(
+        {v: (dims, post[v], var_attrs.get(v, {})) for v in (*names, *blobs)},
+        coords=coords,
+        # comma-separated: netCDF turns a one-element list attribute into a plain string
+        attrs={"blob_names": ",".join(blobs), "parameter_names": ",".join(names)},
+    )
+    stats = xr.Dataset(
+        {
+            "lp": (dims, lp, {"long_name": "log-probability of the draw"}),
+            "accepted": (dims, acc, {"long_name": "the walker's proposal was accepted"}),
+        },
+        coords=coords,
+    )
+    return {"posterior": posterior, "sample_stats": stats}
+
+
+def iter_replica_trees(
+    stores: Sequence[Store] | Store, selection: Selection | None = None
+) -> Iterator[xr.DataTree]:
+    """One DataTree per replica (sorted by index), the first with the root attributes.
+
+    Writing them one after the other along ``chain`` gives :func:`build_datatree`'s tree while
+    holding one replica's draws at a time.
+    """
+    import xarray as xr
+
+    stores, selection = _prepared(stores, selection)
+    for index, store in enumerate(stores):
+        tree = xr.DataTree.from_dict(replica_groups(store, index, selection))
+        if index == 0:
+            tree.attrs = provenance_attrs(stores, selection)
+        yield tree
+
+
 def build_datatree(
     stores: Sequence[Store] | Store, selection: Selection | None = None
 ) -> xr.DataTree:
-    """The DataTree of ``stores`` under ``selection`` (layout: module docstring).
+    """The DataTree of ``stores`` under ``selection`` (layout: module docstring), in memory.
 
     Parameters
     ----------
@@ -175,51 +258,13 @@ def build_datatree(
     """
     import xarray as xr
 
-    stores = sorted([stores] if isinstance(stores, Store) else list(stores), key=_replica)
-    same_run(stores)
-    if selection is None:
-        offset, stride = row_map(stores[0].attrs)
-        n = min(s.steps_done for s in stores)
-        selection = Selection(0, 1, n, 1 + offset, stride, "the stores' committed draws")
-    first = stores[0]
-    names, blobs, walkers = first.param_names, first.blob_names, first.walkers
-    chains, n = walkers * len(stores), selection.draws
-    post = {v: np.empty((chains, n)) for v in (*names, *blobs)}
-    lp = np.empty((chains, n))
-    acc = np.empty((chains, n), dtype=bool)
-    for r, s in enumerate(stores):
-        rows = slice(r * walkers, (r + 1) * walkers)
-        for a, b, block in read_blocks(s, selection):
-            for j, name in enumerate(names):
-                post[name][rows, a:b] = block["position"][:, :, j].T
-            for name in blobs:
-                post[name][rows, a:b] = block[f"blob/{name}"].T
-            lp[rows, a:b] = block["log_prob"].T
-            acc[rows, a:b] = block["accepted"].T
-    coords = {
-        "chain": np.arange(chains),
-        "draw": np.arange(n),
-        "replica": ("chain", np.repeat([s.replica for s in stores], walkers)),
-        "walker": ("chain", np.tile(np.arange(walkers), len(stores))),
-        "step": ("draw", selection.steps()),
+    parts = list(iter_replica_trees(stores, selection))
+    groups = {
+        g: xr.concat([t[g].to_dataset() for t in parts], dim="chain", data_vars="all")
+        for g in ("posterior", "sample_stats")
     }
-    var_attrs = _variable_attrs(first)
-    dims = ("chain", "draw")
-    posterior = xr.Dataset(
-        {v: (dims, post[v], var_attrs.get(v, {})) for v in (*names, *blobs)},
-        coords=coords,
-        # comma-separated: netCDF turns a one-element list attribute into a plain string
-        attrs={"blob_names": ",".join(blobs), "parameter_names": ",".join(names)},
-    )
-    stats = xr.Dataset(
-        {
-            "lp": (dims, lp, {"long_name": "log-probability of the draw"}),
-            "accepted": (dims, acc, {"long_name": "the walker's proposal was accepted"}),
-        },
-        coords=coords,
-    )
-    tree = xr.DataTree.from_dict({"posterior": posterior, "sample_stats": stats})
-    tree.attrs = provenance_attrs(stores, selection)
+    tree = xr.DataTree.from_dict(groups)
+    tree.attrs = dict(parts[0].attrs)
     return tree
 
 

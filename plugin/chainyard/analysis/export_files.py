@@ -5,6 +5,7 @@ Formats, chosen by the output's extension:
 * ``.nc``: the DataTree of :func:`chainyard.analysis.export.build_datatree` in netCDF-4 through
   h5netcdf (HDF5 via h5py's wheels: no netCDF-C library to install);
 * ``.zarr``: the same tree as a zarr store (a folder);
+  both written one replica at a time (memory: one replica's exported draws);
 * ``.csv``: one row per draw, columns ``chain, draw, replica, walker, step``, the parameters
   (config order), ``log_prob``, ``accepted`` (0/1) and the blobs; rows ordered by replica,
   then draw, then walker; floats written with 17 significant digits (exact round trip).
@@ -30,13 +31,16 @@ from pathlib import Path
 
 import numpy as np
 
-from chainyard.analysis.export import build_datatree, read_blocks
+from chainyard.analysis.export import iter_replica_trees, read_blocks
 from chainyard.analysis.outputs import _enclosing_store, _swap_in, store_kind
 from chainyard.analysis.selection import Selection
 from chainyard.errors import ConfigError, StoreError
 from chainyard.store import Store
 
-__all__ = ["FORMATS", "check_export_path", "export_run", "write_csv"]
+__all__ = ["FORMATS", "check_export_path", "export_run", "write_csv", "write_netcdf", "write_zarr"]
+
+#: the DataTree's groups
+GROUPS = ("posterior", "sample_stats")
 
 #: extension -> what is written
 FORMATS = {".nc": "netCDF-4 (h5netcdf)", ".zarr": "zarr", ".csv": "CSV"}
@@ -140,6 +144,54 @@ def write_csv(stores: Sequence[Store], selection: Selection, path: Path) -> int:
     return rows
 
 
+def write_netcdf(stores: Sequence[Store], selection: Selection, path: Path) -> None:
+    """The DataTree as netCDF-4 (h5netcdf), written one replica at a time.
+
+    The first replica is written by xarray with ``chain`` unlimited; each further one is
+    appended by growing ``chain`` and writing its slice of every variable along it.
+    """
+    import h5netcdf
+
+    trees = iter_replica_trees(stores, selection)
+    first = next(trees)
+    first.to_netcdf(path, engine="h5netcdf", unlimited_dims={f"/{g}": ["chain"] for g in GROUPS})
+    start = first["posterior"].sizes["chain"]
+    with h5netcdf.File(path, "a") as f:
+        for tree in trees:
+            stop = start + tree["posterior"].sizes["chain"]
+            for name in GROUPS:
+                group = f[name]
+                group.resize_dimension("chain", stop)
+                for var_name, var in tree[name].to_dataset().variables.items():
+                    if var.dims and var.dims[0] == "chain":
+                        values = var.values
+                        if values.dtype == bool:  # stored as int8 with dtype="bool" (xarray)
+                            values = values.astype(np.int8)
+                        group.variables[var_name][start:stop, ...] = values
+            start = stop
+
+
+def write_zarr(stores: Sequence[Store], selection: Selection, path: Path) -> None:
+    """The DataTree as a zarr store, one replica at a time (appended along ``chain``).
+
+    Metadata are consolidated at the end, so readers (arviz-base, xarray) open the tree
+    without a fallback; zarr warns that consolidated metadata are outside the v3 spec, and
+    that warning is silenced here.
+    """
+    import zarr
+
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="Consolidated metadata")
+        trees = iter_replica_trees(stores, selection)
+        next(trees).to_zarr(path, mode="w-", consolidated=False)
+        for tree in trees:
+            for name in GROUPS:
+                tree[name].to_dataset().to_zarr(
+                    path, group=name, mode="a", append_dim="chain", consolidated=False
+                )
+        zarr.consolidate_metadata(str(path))
+
+
 def _remove(path: Path) -> None:
     with suppress(OSError):
         if path.is_dir() and not path.is_symlink():
@@ -188,14 +240,7 @@ def export_run(
             rows = write_csv(stores, selection, tmp)
             what = f"{rows:,} rows"
         else:
-            tree = build_datatree(stores, selection)
-            if ext == ".nc":
-                tree.to_netcdf(tmp, engine="h5netcdf")
-            else:  # consolidated metadata (zarr warns it is outside the v3 spec): readers
-                # such as arviz-base open the tree without a fallback warning
-                with warnings.catch_warnings():
-                    warnings.filterwarnings("ignore", message="Consolidated metadata")
-                    tree.to_zarr(tmp)
+            (write_netcdf if ext == ".nc" else write_zarr)(stores, selection, tmp)
             what = f"{chains} chains x {selection.draws:,} draws"
         if ext == ".zarr" and os.path.lexists(target):
             _swap_in(tmp, target)
