@@ -170,6 +170,7 @@ def plot_step(
         tau_history_plot,
         trace_plot,
     )
+
     raw_stores = open_replicas(raw)
     final_stores = open_replicas(final)
     cut = int(read_record(burn_in, BURN_IN_KIND)["decision"]["steps_discarded"])
