@@ -167,6 +167,19 @@ def test_export_csv_rows_columns_and_recorded_selection(run: Path) -> None:
         c, d = int(row["chain"]), int(row["draw"])
         assert c == int(row["replica"]) * 8 + int(row["walker"])
         assert float(row["zeta"]) == zeta[c, d]  # 17 significant digits: exact
+    thin = run / "thinning.json"
+    write_record(thin, "chainyard.thinning_decision", {"decision": {"factor": 3}}, [])
+    proc = cli(
+        "export", "r0.zarr", "r1.zarr", "--burn-in-record", "burn_in.json",
+        "--thinning-record", thin.name, "-o", "thin.csv", cwd=run,
+    )  # fmt: skip
+    assert proc.returncode == 0, proc.stderr
+    with open(run / "thin.csv") as f:
+        thinned = list(csv.DictReader(f))
+    discard = chainyard.open_store(run / "t0.zarr").attrs["derived"]["discard"]
+    kept = range(discard, 800, 3)  # rows derive would keep: discard, discard + 3, ...
+    assert len(thinned) == 2 * 8 * len(kept)
+    assert sorted({int(r["step"]) for r in thinned}) == [k + 1 for k in kept]
     proc = cli("export", "r0.zarr", "r1.zarr", "--raw", "-o", "raw.csv", cwd=run)
     assert proc.returncode == 0, proc.stderr
     with open(run / "raw.csv") as f:
