@@ -57,7 +57,7 @@ def _quantiles(args: argparse.Namespace) -> tuple[float, ...]:
     from chainyard.analysis.summary_table import interval_quantiles
 
     if args.quantiles is None:
-        return interval_quantiles(args.interval)
+        return interval_quantiles(0.9 if args.interval is None else args.interval)
     out = []
     for text in args.quantiles.split(","):
         try:
@@ -179,15 +179,16 @@ def add_commands(sub: Any) -> None:
         help="posterior summary: mean, sd, MCSE, quantiles, ESS, R-hat, unit per parameter",
     )
     _selection_options(p)
-    p.add_argument(
+    which = p.add_mutually_exclusive_group()
+    which.add_argument(
         "--interval",
         type=_interval,
-        default=0.9,
+        default=None,
         metavar="P",
         help="central credible interval holding probability P: its ends and the median are "
         "reported (default 0.9: q5, q50, q95)",
     )
-    p.add_argument(
+    which.add_argument(
         "--quantiles",
         default=None,
         metavar="Q,Q,...",
