@@ -298,22 +298,26 @@ def tau_history_plot(
     handles, labels = axes[0, 0].get_legend_handles_labels()
     handles.append(Line2D([], [], color=CUT_COLOUR, linestyle="--", linewidth=0.9))
     labels.append("tau of the verdict (mean over replicas)")
-    fig.legend(
-        handles,
-        labels,
-        loc="lower center",
-        bbox_to_anchor=(0.5, -0.02),
-        ncols=min(4, len(labels)),
-        fontsize=7,
-        frameon=False,
-    )
     fig.suptitle(
         "Autocorrelation time vs steps after burn-in, per replica: trust tau where it is flat "
         "and below the dotted line",
         fontsize=9,
         y=1.03,
     )
-    fig.tight_layout(rect=(0, 0.08, 1, 1))
+    spare = len(names) < nrow * ncol  # an empty panel slot holds the legend
+    fig.tight_layout(rect=(0, 0 if spare else 0.08, 1, 1))
+    where: dict[str, Any] = {"loc": "lower center", "bbox_to_anchor": (0.5, -0.02)}
+    if spare:
+        slot = axes[-1, -1].get_position()
+        where = {"loc": "center", "bbox_to_anchor": (slot.x0, slot.y0, slot.width, slot.height)}
+    fig.legend(
+        handles,
+        labels,
+        ncols=1 if spare else min(4, len(labels)),
+        fontsize=7,
+        frameon=False,
+        **where,
+    )
     _save(fig, path, stores)
 
 
