@@ -186,6 +186,7 @@ def test_export_csv_rows_columns_and_recorded_selection(run: Path) -> None:
         assert sum(1 for _ in f) == 1 + 2 * 8 * 800
 
 
+@pytest.mark.slow  # about 15 command-line processes
 def test_export_refusals_are_one_line(run: Path) -> None:
     """Sampled stores without a record, other runs, bad extensions, existing files and
     stores as output are refused with one line; nothing is altered."""
