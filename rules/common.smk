@@ -80,6 +80,13 @@ def run_name(wildcards):
     return wildcards.run
 
 
+def reference_values(wildcards):
+    """The run's reference values from the current config (drawn on the plots), plain JSON."""
+    params = CY_RUNS[wildcards.run].config.parameters
+    refs = {p.name: p.reference_value for p in params if p.reference_value is not None}
+    return json.dumps(refs, sort_keys=True)
+
+
 def raw_stores(wildcards):
     return replica_stores(wildcards.run, "draws")
 

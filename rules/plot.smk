@@ -35,6 +35,7 @@ rule plot:
         ),
     params:
         step="plot",
+        references=reference_values,
         chainyard_version=CY_VERSION,
     log:
         run_path("logs", "{run}", "plot.log"),

@@ -10,6 +10,7 @@ replay(target, steps) -> ReplayResult
 provenance_record(target) -> dict   (format chainyard.provenance v1)
 pack_store(store, out) / unpack_store(pack, out)
 prov_json(record) -> str            (W3C PROV-JSON)
+to_datatree(stores, ...) -> DataTree (ArviZ data model; see chainyard.analysis.export)
 """
 
 from __future__ import annotations
@@ -30,6 +31,7 @@ from chainyard.errors import (
 )
 
 if TYPE_CHECKING:  # pragma: no cover
+    from chainyard.analysis.export import to_datatree
     from chainyard.config import RunConfig, json_schema, load_config, parse_config
     from chainyard.engine import sample
     from chainyard.provenance.pack import pack_store, unpack_store
@@ -60,6 +62,7 @@ _LAZY = {
     "replay": "chainyard.provenance.replay",
     "verify": "chainyard.provenance.verify",
     "Store": "chainyard.store",
+    "to_datatree": "chainyard.analysis.export",
 }
 
 
@@ -106,6 +109,7 @@ __all__ = [
     "provenance_record",
     "replay",
     "sample",
+    "to_datatree",
     "unpack_store",
     "verify",
 ]

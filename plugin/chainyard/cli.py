@@ -275,7 +275,10 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument(
         "--until-targets",
         action="store_true",
-        help="extend until the run's targets hold (see extend_until_targets); with "
+        help="extend until the run's targets (nested R-hat, steps per tau, ESS: the verdict of "
+        "`chainyard diagnose`) hold, checking every extend_until_targets.check_every steps up "
+        "to its max_steps/max_seconds (a required config section; exit 1 when that budget is "
+        "spent); with "
         "replicas > 1 give --out with {replica} (run/r{replica}.zarr): every replica is "
         "extended in turn and the verdict is diagnose's, across all replicas",
     )
@@ -315,8 +318,18 @@ def _parser() -> argparse.ArgumentParser:
     p.set_defaults(func=_cmd_sample)
 
     p = sub.add_parser("decide", help="record a burn-in or thinning decision for a run")
-    p.add_argument("what", choices=["burn-in", "thinning"])
-    p.add_argument("stores", nargs="+", help="the run's replica stores")
+    p.add_argument(
+        "what",
+        choices=["burn-in", "thinning"],
+        help="burn-in: steps to discard, decided on the sampled stores; thinning: the factor, "
+        "decided on the stores after burn-in (the config's burn_in/thinning policy)",
+    )
+    p.add_argument(
+        "stores",
+        nargs="+",
+        help="the run's replica stores: sampled ones for burn-in, derived (after burn-in) "
+        "ones for thinning",
+    )
     p.add_argument("--out", required=True, help="decision record (JSON) to write")
     p.add_argument(
         "--config", default=None, help="run config with the policy (default: the one stored)"
@@ -360,15 +373,17 @@ def _parser() -> argparse.ArgumentParser:
         help="validate a run configuration, load its data and evaluate the model once at "
         "replica 0's initial positions",
     )
-    p.add_argument("config")
+    p.add_argument("config", help="run configuration (YAML) to check")
     p.set_defaults(func=_cmd_check)
 
     p = sub.add_parser("schema", help="print the run configuration's JSON Schema")
     p.add_argument("--output", "-o", default=None, help="write to this file instead")
     p.set_defaults(func=_cmd_schema)
 
+    from chainyard.analysis.commands import add_commands as add_result_commands
     from chainyard.provenance.commands import add_commands
 
+    add_result_commands(sub)  # export, summarise, plot
     add_commands(sub)  # verify, inspect, pack, unpack, export-prov
     for command in sub.choices.values():  # also accepted after the command
         command.add_argument(

@@ -41,19 +41,28 @@ from chainyard.diagnostics import autocorrelation, integrated_time
 from chainyard.errors import StoreError
 from chainyard.store import Store
 
-__all__ = ["decide_burn_in", "decide_thinning", "tau_per_param"]
+__all__ = ["decide_burn_in", "decide_thinning", "tau_per_param", "tau_per_replica"]
+
+
+def tau_per_replica(stores: Sequence[Store], steps: int) -> list[dict[str, float]]:
+    """Each replica's own integrated autocorrelation time per parameter (in steps).
+
+    One parameter column of one replica is read at a time; walkers are averaged as in
+    Foreman-Mackey et al. (2013) (see :func:`chainyard.diagnostics.integrated_time`).
+    """
+    return [
+        {
+            name: float(integrated_time(s.column(j, 0, steps).T))
+            for j, name in enumerate(s.param_names)
+        }
+        for s in stores
+    ]
 
 
 def tau_per_param(stores: Sequence[Store], steps: int) -> dict[str, float]:
-    """Largest integrated autocorrelation time over replicas, per parameter (in steps).
-
-    One parameter column is read at a time; walkers are averaged as in Foreman-Mackey et al.
-    (2013) (see :func:`chainyard.diagnostics.integrated_time`).
-    """
-    out: dict[str, float] = {}
-    for j, name in enumerate(stores[0].param_names):
-        out[name] = max(float(integrated_time(s.column(j, 0, steps).T)) for s in stores)
-    return out
+    """Largest integrated autocorrelation time over replicas, per parameter (in steps)."""
+    per_replica = tau_per_replica(stores, steps)
+    return {name: max(t[name] for t in per_replica) for name in per_replica[0]}
 
 
 def _walker_mean_log_prob(store: Store, steps: int) -> NDArray[np.float64]:
@@ -113,10 +122,11 @@ def _decide_burn_in(stores: Sequence[Store], spec: BurnInSpec, steps: int) -> Bu
         return burn_in_from_tau(tau_per_param(stores, steps), spec.multiple, steps)
     traces = [_walker_mean_log_prob(s, steps) for s in stores]
     if isinstance(spec, DefaultBurnIn):
-        taus = tau_per_param(stores, steps)
+        # each replica's own tau: the combined cut (the largest) is the same as with the
+        # largest tau everywhere, and each per-replica entry records what that replica showed
         parts = [
             default_burn_in(t, taus, multiple=spec.multiple, max_fraction=spec.max_fraction)
-            for t in traces
+            for t, taus in zip(traces, tau_per_replica(stores, steps), strict=True)
         ]
     elif isinstance(spec, MserBurnIn):
         parts = [

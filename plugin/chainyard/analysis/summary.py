@@ -31,10 +31,15 @@ SUMMARY_COLUMNS = (
 
 
 def summarise(stores: Sequence[Store], diagnostics: dict[str, Any]) -> list[dict[str, Any]]:
-    """One row per parameter (columns :data:`SUMMARY_COLUMNS`), from a diagnostics result."""
+    """One row per parameter (columns :data:`SUMMARY_COLUMNS`), from a diagnostics result.
+
+    Rows follow the stores' parameter order (the config's), not the record's key order (a
+    diagnostics record read back from JSON has its keys sorted).
+    """
     units = {p.name: p.unit for p in stores[0].config.parameters}
     rows = []
-    for name, d in diagnostics["params"].items():
+    for name in stores[0].param_names:
+        d = diagnostics["params"][name]
         rows.append(
             {
                 "parameter": name,

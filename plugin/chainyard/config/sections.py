@@ -174,6 +174,14 @@ class Parameter(_Strict):
     )
     unit: str | None = Field(default=None, description="Unit for labels in plots and tables.")
     label: str | None = Field(default=None, description="Longer human label for plots.")
+    reference_value: float | None = Field(
+        default=None,
+        allow_inf_nan=False,
+        description=(
+            "Optional known or expected value (a simulation's truth, a previous estimate), "
+            "drawn on traces and marginals; never used in sampling or diagnostics."
+        ),
+    )
 
     @field_validator("bounds")
     @classmethod

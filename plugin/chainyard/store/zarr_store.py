@@ -417,6 +417,15 @@ class Store(RowWriter):
             raise StoreError(f"{self.path}: no array {name!r}; stored: {self.array_names()}")
         return read(self, f"{DRAWS}/{name}", start, stop, step)
 
+    def to_datatree(self, *, raw: bool = False, burn_in_record: Any = None) -> Any:
+        """This store's draws as an ArviZ DataTree (:func:`chainyard.to_datatree`, one replica).
+
+        A derived store as it is; a sampled store needs ``burn_in_record`` or ``raw=True``.
+        """
+        from chainyard.analysis.export import to_datatree
+
+        return to_datatree(self, raw=raw, burn_in_record=burn_in_record)
+
     # ------------------------------------------------------------------ raw keys
     def read_bytes(self, key: str) -> bytes | None:
         """Raw stored bytes of ``key`` (e.g. ``"zarr.json"``); None if there is no such key.

@@ -35,6 +35,7 @@ def _dispatch(sm: Any) -> None:
             sm.input.burn_in,
             sm.input.diagnostics,
             dict(sm.output.items()),
+            getattr(p, "references", "{}"),
         )
     else:  # pragma: no cover - the shipped rules set known steps
         raise ValueError(f"unknown chainyard step {step!r}")

@@ -163,8 +163,13 @@ def plot_step(
     burn_in: str,
     diagnostics: str,
     outputs: dict[str, str],
+    references: str = "{}",
 ) -> None:
-    """All plots of one run (see :mod:`chainyard.report.plots`)."""
+    """All plots of one run (see :mod:`chainyard.report.plots`).
+
+    ``references`` is the JSON of the current config's reference values (the stored config
+    keeps those of sampling time, and changing them must not resample).
+    """
     from chainyard.report.plots import (
         acceptance_plot,
         pairs_plot,
@@ -176,7 +181,8 @@ def plot_step(
     final_stores = open_replicas(final)
     cut = int(read_record(burn_in, BURN_IN_KIND)["decision"]["steps_discarded"])
     diag = read_record(diagnostics, DIAGNOSTICS_KIND)
-    trace_plot(raw_stores, cut, outputs["traces"])
+    refs = {str(k): float(v) for k, v in json.loads(references).items()}
+    trace_plot(raw_stores, cut, outputs["traces"], references=refs)
     tau_history_plot(final_stores, outputs["tau"], diagnostics=diag)
-    pairs_plot(final_stores, outputs["pairs"])
+    pairs_plot(final_stores, outputs["pairs"], references=refs)
     acceptance_plot(raw_stores, outputs["acceptance"], diag)
