@@ -1,5 +1,6 @@
 # Helpers and config validation shared by the chainyard rules.
 import json
+import sys
 
 import chainyard
 import chainyard.workflow as cy_workflow
@@ -8,13 +9,16 @@ from snakemake.exceptions import WorkflowError
 from snakemake.utils import validate
 
 
-# 1. JSON Schema (generated from the pydantic models) through snakemake's validator,
-# 2. pydantic itself for precise one-line messages and the checks a schema cannot express.
-validate(config, cy_workflow.schema_path(), set_default=False)
+# 1. pydantic first: chainyard's one-line messages (as `chainyard check` prints them),
+# 2. then the JSON Schema (generated from the same models) through snakemake's validator.
 try:
     CY_RUNS = cy_workflow.load_workflow_config(config, source="config")
 except ConfigError as exc:
-    raise WorkflowError("chainyard: invalid config:\n" + str(exc)) from None
+    # one line per problem and chainyard's exit status, no traceback of the Snakefile
+    for line in str(exc).splitlines():
+        print(f"chainyard: error: {line}", file=sys.stderr)
+    sys.exit(exc.exit_code)
+validate(config, cy_workflow.schema_path(), set_default=False)
 
 CY = config["chainyard"]
 CY_RESULTS = CY.get("results", "results")
