@@ -68,6 +68,12 @@ def sample_runtime(wildcards, attempt):
     return CY_SAMPLE_RUNTIME * attempt
 
 
+def job_attempt(wildcards, attempt):
+    """Snakemake's attempt number, as a resource: a retry of a job whose earlier attempt ended
+    in a failure no retry can mend fails at once (see chainyard.workflow.retry)."""
+    return attempt
+
+
 def burn_in_policy(wildcards):
     return CY_RUNS[wildcards.run].param("burn_in")
 

@@ -6,14 +6,16 @@ import contextlib
 import sys
 from typing import Any
 
-from chainyard.engine import Interrupted
+from chainyard.engine.stopping import Interrupted
 from chainyard.errors import ChainyardError
-from chainyard.workflow import steps
+from chainyard.workflow.retry import RetryNote
 
 __all__ = ["run_job"]
 
 
 def _dispatch(sm: Any) -> None:
+    from chainyard.workflow import steps  # after the retry check: a refused retry loads nothing
+
     p = sm.params
     step = p.step
     if step == "sample":
@@ -55,8 +57,20 @@ def run_job(sm: Any) -> None:
             f = stack.enter_context(open(log, "w", buffering=1))
             stack.enter_context(contextlib.redirect_stdout(f))
             stack.enter_context(contextlib.redirect_stderr(f))
+        note = RetryNote.for_job(sm)
+        earlier = note.earlier_failure() if note is not None else None
         try:
-            _dispatch(sm)
+            if earlier is not None:
+                code = int(earlier["exit_code"])
+                print(
+                    f"chainyard: error: not retried: attempt {earlier['attempt']} ended with "
+                    f"exit status {code}, which a retry cannot mend: {earlier['message']}",
+                    file=sys.stderr,
+                )
+                sys.stderr.flush()
+            else:
+                _dispatch(sm)
+                code = 0
         except Interrupted as exc:
             code = 128 + exc.signum
         except ChainyardError as exc:
@@ -64,6 +78,8 @@ def run_job(sm: Any) -> None:
                 print(f"chainyard: error: {line}", file=sys.stderr)
             sys.stderr.flush()
             code = exc.exit_code
+            if note is not None:
+                note.remember(code, str(exc))
         except OSError as exc:  # a storage fault the engine or store did not name
             from chainyard.cli import os_error_exit, report_internal
 
@@ -74,7 +90,8 @@ def run_job(sm: Any) -> None:
 
             code = report_internal(exc, f"job {p_step(sm)}", True)
         else:
-            code = 0
+            if code == 0 and note is not None:
+                note.clear()
     if code:
         if log:
             print(f"chainyard: job failed; see {log}", file=sys.__stderr__)
