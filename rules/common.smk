@@ -38,10 +38,10 @@ def run_path(run, *parts):
     return "/".join([CY_RESULTS, run, *parts])
 
 
-def replica_stores(run, stage):
-    """The replica stores of one run at one stage (draws, trimmed, final)."""
+def replica_stores(run):
+    """The sampled replica stores of one run."""
     n = CY_RUNS[run].config.replicas
-    return [run_path(run, stage, f"replica-{r}.zarr") for r in range(n)]
+    return [run_path(run, "draws", f"replica-{r}.zarr") for r in range(n)]
 
 
 def sample_inputs(wildcards):
@@ -91,22 +91,26 @@ def run_name(wildcards):
 
 
 def raw_stores(wildcards):
-    return replica_stores(wildcards.run, "draws")
+    return replica_stores(wildcards.run)
 
 
-def trimmed_stores(wildcards):
-    return replica_stores(wildcards.run, "trimmed")
-
-
-def final_stores(wildcards):
-    return replica_stores(wildcards.run, "final")
+def requested_steps(wildcards):
+    return CY_RUNS[wildcards.run].config.sampler.steps
 
 
 PLOTS = ("traces", "tau", "pairs", "acceptance")
 
 
+def overview_page():
+    """The report's opening page: the overview once written, else a placeholder."""
+    import os
+
+    page = os.path.abspath("/".join([CY_RESULTS, "overview.rst"]))
+    return page if os.path.exists(page) else "report/no_overview.rst"
+
+
 def all_outputs():
-    out = []
+    out = ["/".join([CY_RESULTS, "runs.csv"])]
     for run in sorted(CY_RUNS):
         out.append(run_path(run, "summary.csv"))
         out.append(run_path(run, "diagnostics.txt"))

@@ -1,18 +1,24 @@
-# Burn-in and thinning: one recorded decision per run, applied to every replica.
+# Burn-in and thinning: one job per run decides both and records them as a selection over the
+# replica stores (decisions/selection.json: steps used, first kept step, thinning factor).
+# Later steps read the stores through that selection; nothing is copied. A policy change
+# reruns this job and what follows, never sampling.
 
 
-rule decide_burn_in:
+rule decide:
     input:
         raw_stores,
     output:
-        run_path("{run}", "decisions", "burn_in.json"),
+        burn_in=run_path("{run}", "decisions", "burn_in.json"),
+        thinning=run_path("{run}", "decisions", "thinning.json"),
+        selection=run_path("{run}", "decisions", "selection.json"),
     params:
         step="decide",
-        what="burn_in",
-        policy=burn_in_policy,
+        burn_in=burn_in_policy,
+        thinning=thinning_policy,
+        steps=requested_steps,
         chainyard_version=CY_VERSION,
     log:
-        run_path("logs", "{run}", "decide-burn-in.log"),
+        run_path("logs", "{run}", "decide.log"),
     threads: 1
     conda:
         "envs/chainyard.yaml"
@@ -23,64 +29,20 @@ rule decide_burn_in:
         "scripts/step.py"
 
 
-rule trim:
+# A standalone store of one replica's selected steps, written only when asked for, e.g.
+#   snakemake results/RUN/standalone/replica-0.zarr
+# (to pack or share it on its own; the workflow itself never needs it).
+rule standalone:
     input:
         store=run_path("{run}", "draws", "replica-{replica}.zarr"),
-        record=run_path("{run}", "decisions", "burn_in.json"),
+        selection=run_path("{run}", "decisions", "selection.json"),
     output:
-        directory(run_path("{run}", "trimmed", "replica-{replica}.zarr")),
+        directory(run_path("{run}", "standalone", "replica-{replica}.zarr")),
     params:
-        step="derive",
-        what="burn_in",
-        replica=replica_index,
+        step="standalone",
         chainyard_version=CY_VERSION,
     log:
-        run_path("logs", "{run}", "trim-replica-{replica}.log"),
-    threads: 1
-    conda:
-        "envs/chainyard.yaml"
-    resources:
-        runtime=30,
-        mem_mb=1000,
-    script:
-        "scripts/step.py"
-
-
-rule decide_thinning:
-    input:
-        trimmed_stores,
-    output:
-        run_path("{run}", "decisions", "thinning.json"),
-    params:
-        step="decide",
-        what="thinning",
-        policy=thinning_policy,
-        chainyard_version=CY_VERSION,
-    log:
-        run_path("logs", "{run}", "decide-thinning.log"),
-    threads: 1
-    conda:
-        "envs/chainyard.yaml"
-    resources:
-        runtime=30,
-        mem_mb=2000,
-    script:
-        "scripts/step.py"
-
-
-rule thin:
-    input:
-        store=run_path("{run}", "trimmed", "replica-{replica}.zarr"),
-        record=run_path("{run}", "decisions", "thinning.json"),
-    output:
-        directory(run_path("{run}", "final", "replica-{replica}.zarr")),
-    params:
-        step="derive",
-        what="thinning",
-        replica=replica_index,
-        chainyard_version=CY_VERSION,
-    log:
-        run_path("logs", "{run}", "thin-replica-{replica}.log"),
+        run_path("logs", "{run}", "standalone-replica-{replica}.log"),
     threads: 1
     conda:
         "envs/chainyard.yaml"

@@ -1,9 +1,11 @@
-# Diagnostics across replicas with the verdict, and the posterior summary table.
+# Diagnostics across replicas with the verdict, and the posterior summary table: one job per
+# run, on the selected steps.
 
 
 rule diagnose:
     input:
-        final_stores,
+        stores=raw_stores,
+        selection=run_path("{run}", "decisions", "selection.json"),
     output:
         record=run_path("{run}", "diagnostics.json"),
         table=report(
@@ -11,6 +13,12 @@ rule diagnose:
             caption="report/diagnostics.rst",
             category="{run}",
             subcategory="diagnostics",
+        ),
+        summary=report(
+            run_path("{run}", "summary.csv"),
+            caption="report/summary.rst",
+            category="{run}",
+            subcategory="summary",
         ),
     params:
         step="diagnose",
@@ -25,31 +33,5 @@ rule diagnose:
     resources:
         runtime=60,
         mem_mb=4000,
-    script:
-        "scripts/step.py"
-
-
-rule summarise:
-    input:
-        stores=final_stores,
-        diagnostics=run_path("{run}", "diagnostics.json"),
-    output:
-        report(
-            run_path("{run}", "summary.csv"),
-            caption="report/summary.rst",
-            category="{run}",
-            subcategory="summary",
-        ),
-    params:
-        step="summary",
-        chainyard_version=CY_VERSION,
-    log:
-        run_path("logs", "{run}", "summarise.log"),
-    threads: 1
-    conda:
-        "envs/chainyard.yaml"
-    resources:
-        runtime=10,
-        mem_mb=1000,
     script:
         "scripts/step.py"

@@ -4,9 +4,8 @@
 
 rule plot:
     input:
-        raw=raw_stores,
-        final=final_stores,
-        burn_in=run_path("{run}", "decisions", "burn_in.json"),
+        stores=raw_stores,
+        selection=run_path("{run}", "decisions", "selection.json"),
         diagnostics=run_path("{run}", "diagnostics.json"),
     output:
         traces=report(

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import contextlib
+import json
 import sys
 from typing import Any
 
@@ -21,21 +22,30 @@ def _dispatch(sm: Any) -> None:
     if step == "sample":
         steps.sample_step(p.settings, p.base_dir, int(p.replica), p.resumable, sm.output[0])
     elif step == "decide":
-        steps.decide_step(p.what, p.policy, list(sm.input), sm.output[0])
-    elif step == "derive":
-        steps.derive_step(sm.input.store, sm.input.record, p.what, sm.output[0])
+        steps.decide_step(
+            p.burn_in, p.thinning, int(p.steps), list(sm.input), dict(sm.output.items())
+        )
     elif step == "diagnose":
-        steps.diagnose_step(list(sm.input), p.targets, p.run, sm.output.record, sm.output.table)
-    elif step == "summary":
-        steps.summary_step(list(sm.input.stores), sm.input.diagnostics, sm.output[0])
+        steps.diagnose_step(
+            list(sm.input.stores),
+            sm.input.selection,
+            p.targets,
+            p.run,
+            dict(sm.output.items()),
+        )
     elif step == "plot":
         steps.plot_step(
-            list(sm.input.raw),
-            list(sm.input.final),
-            sm.input.burn_in,
+            list(sm.input.stores),
+            sm.input.selection,
             sm.input.diagnostics,
             dict(sm.output.items()),
         )
+    elif step == "overview":
+        steps.overview_step(
+            list(sm.input.diagnostics), json.loads(p.stores), p.results, dict(sm.output.items())
+        )
+    elif step == "standalone":
+        steps.standalone_step(sm.input.store, sm.input.selection, sm.output[0])
     else:  # pragma: no cover - the shipped rules set known steps
         raise ValueError(f"unknown chainyard step {step!r}")
 
