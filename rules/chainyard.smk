@@ -12,7 +12,6 @@ include: "common.smk"
 include: "sample.smk"
 include: "decide.smk"
 include: "diagnose.smk"
-include: "plot.smk"
 include: "overview.smk"
 
 

@@ -1,5 +1,7 @@
-# Diagnostics across replicas with the verdict, and the posterior summary table: one job per
-# run, on the selected steps.
+# Diagnostics across replicas with the verdict, the posterior summary table and the plots of
+# each run (traces with the burn-in cut, tau against steps, pairwise marginals, acceptance per
+# walker): one job per run, on the selected steps. One job, not two: every change that reruns
+# the diagnostics also changes the plots, and a job's imports are most of its cost.
 
 
 rule diagnose:
@@ -19,6 +21,30 @@ rule diagnose:
             caption="report/summary.rst",
             category="{run}",
             subcategory="summary",
+        ),
+        traces=report(
+            run_path("{run}", "plots", "traces.png"),
+            caption="report/traces.rst",
+            category="{run}",
+            subcategory="plots",
+        ),
+        tau=report(
+            run_path("{run}", "plots", "tau.png"),
+            caption="report/tau.rst",
+            category="{run}",
+            subcategory="plots",
+        ),
+        pairs=report(
+            run_path("{run}", "plots", "pairs.png"),
+            caption="report/pairs.rst",
+            category="{run}",
+            subcategory="plots",
+        ),
+        acceptance=report(
+            run_path("{run}", "plots", "acceptance.png"),
+            caption="report/acceptance.rst",
+            category="{run}",
+            subcategory="plots",
         ),
     params:
         step="diagnose",

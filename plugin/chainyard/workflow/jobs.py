@@ -26,20 +26,11 @@ def _dispatch(sm: Any) -> None:
             p.burn_in, p.thinning, int(p.steps), list(sm.input), dict(sm.output.items())
         )
     elif step == "diagnose":
-        steps.diagnose_step(
-            list(sm.input.stores),
-            sm.input.selection,
-            p.targets,
-            p.run,
-            dict(sm.output.items()),
+        outputs = dict(sm.output.items())
+        record = steps.diagnose_step(
+            list(sm.input.stores), sm.input.selection, p.targets, p.run, outputs
         )
-    elif step == "plot":
-        steps.plot_step(
-            list(sm.input.stores),
-            sm.input.selection,
-            sm.input.diagnostics,
-            dict(sm.output.items()),
-        )
+        steps.plot_step(list(sm.input.stores), sm.input.selection, record, outputs)
     elif step == "overview":
         steps.overview_step(
             list(sm.input.diagnostics), json.loads(p.stores), p.results, dict(sm.output.items())

@@ -67,6 +67,9 @@ def sample_step(
     says why. A store that holds more steps than ``sampler.steps`` (the config lowered them)
     is published whole; the run's selection then uses the first ``sampler.steps`` steps.
     """
+    from chainyard.workflow.imports import import_emcee_without_kde
+
+    import_emcee_without_kde()
     from chainyard.config import parse_config
     from chainyard.engine import sample
     from chainyard.errors import StoreConflictError
@@ -177,7 +180,7 @@ def diagnose_step(
     outputs: dict[str, str],
 ) -> dict[str, Any]:
     """Diagnostics and verdict across replicas on the selected steps: a JSON record, a text
-    table and the posterior summary (CSV)."""
+    table and the posterior summary (CSV). Returns the record as written."""
     from chainyard.analysis.diagnose import diagnose, format_table
     from chainyard.analysis.records import write_record
     from chainyard.analysis.summary import summarise, write_summary_csv
@@ -198,17 +201,16 @@ def diagnose_step(
     Path(outputs["table"]).write_text(table + "\n")
     write_summary_csv(summarise(kept, record), outputs["summary"])
     print(table, flush=True)
-    return result
+    return record
 
 
 def plot_step(
     stores: Sequence[str],
     selection: str,
-    diagnostics: str,
+    diagnostics: dict[str, Any],
     outputs: dict[str, str],
 ) -> None:
-    """All plots of one run (see :mod:`chainyard.report.plots`)."""
-    from chainyard.analysis.records import read_record
+    """All plots of one run (see :mod:`chainyard.report.plots`), given its diagnostics record."""
     from chainyard.report.plots import (
         acceptance_plot,
         pairs_plot,
@@ -219,7 +221,7 @@ def plot_step(
 
     sel, replicas = read_selection(selection, stores)
     used, kept = sel.used(replicas), sel.kept(replicas)
-    diag = read_record(diagnostics, DIAGNOSTICS_KIND)
+    diag = diagnostics
     trace_plot(used, sel.first_kept, outputs["traces"])
     tau_history_plot(kept, outputs["tau"], diagnostics=diag)
     pairs_plot(kept, outputs["pairs"])
