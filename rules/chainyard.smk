@@ -10,8 +10,7 @@
 
 include: "common.smk"
 include: "sample.smk"
-include: "decide.smk"
-include: "diagnose.smk"
+include: "analyse.smk"
 include: "overview.smk"
 
 

@@ -101,16 +101,26 @@ def requested_steps(wildcards):
 PLOTS = ("traces", "tau", "pairs", "acceptance")
 
 
+def results_file(name):
+    """A file directly under the results folder (not in a run's folder)."""
+    return "/".join([CY_RESULTS, name])
+
+
+def results_folder(wildcards, output):
+    """The results folder, from a rule's first output directly under it."""
+    return output[0].rpartition("/")[0]
+
+
 def overview_page():
     """The report's opening page: the overview once written, else a placeholder."""
     import os
 
-    page = os.path.abspath("/".join([CY_RESULTS, "overview.rst"]))
+    page = os.path.abspath(results_file("overview.rst"))
     return page if os.path.exists(page) else "report/no_overview.rst"
 
 
 def all_outputs():
-    out = ["/".join([CY_RESULTS, "runs.csv"])]
+    out = [results_file("runs.csv")]
     for run in sorted(CY_RUNS):
         out.append(run_path(run, "summary.csv"))
         out.append(run_path(run, "diagnostics.txt"))

@@ -9,15 +9,15 @@ rule overview:
         stores=[s for run in sorted(CY_RUNS) for s in replica_stores(run)],
     output:
         table=report(
-            "/".join([CY_RESULTS, "runs.csv"]),
+            results_file("runs.csv"),
             caption="report/runs.rst",
             category="overview",
         ),
-        page="/".join([CY_RESULTS, "overview.rst"]),
+        page=results_file("overview.rst"),
     params:
         step="overview",
         stores=json.dumps({run: replica_stores(run) for run in sorted(CY_RUNS)}, sort_keys=True),
-        results=CY_RESULTS,
+        results=results_folder,
         chainyard_version=CY_VERSION,
     log:
         run_path("logs", "overview.log"),

@@ -7,8 +7,9 @@ whole workflow from nothing to the report inputs, in one ``snakemake`` invocatio
   process before and after the run),
 - wall time,
 - number of jobs (the jobs Snakemake planned, from a dry run),
-- bytes stored under the results folder (every file counted once, hard links once),
-  and the bytes of the sampled replica stores alone (the one-store reference).
+- bytes stored under the results folder (every file counted once, hard links once): in
+  all stores, in the sampled replica stores alone (the one-store reference; their ratio is
+  ``store_copies``), and in everything else (records, tables, plots, logs).
 
 Usage::
 
@@ -37,23 +38,9 @@ import yaml
 
 HERE = Path(__file__).resolve().parent
 WORK = HERE / ".work" / "workflow"
+sys.path.insert(0, str(HERE.parents[1]))
 
-SNAKEFILE = """\
-import chainyard.workflow
-
-
-configfile: "config/config.yaml"
-
-
-module chainyard_rules:
-    snakefile:
-        chainyard.workflow.rules_path()
-    config:
-        config
-
-
-use rule * from chainyard_rules as chainyard_*
-"""
+from tests.workflow.conftest import SNAKEFILE  # noqa: E402  # the Snakefile of every test workflow
 
 CHEAP_MODEL = """\
 import numpy as np
@@ -95,11 +82,14 @@ def make_workflow(folder: Path, runs: int, replicas: int, steps: int) -> None:
     (folder / "config" / "config.yaml").write_text(yaml.safe_dump(cfg, sort_keys=False))
 
 
-def stored_bytes(folder: Path) -> int:
-    """Bytes of all files under ``folder``, each inode counted once."""
+def stored_bytes(folder: Path, only_stores: bool = False) -> int:
+    """Bytes of all files under ``folder``, each inode counted once (optionally only files
+    inside ``*.zarr`` store folders)."""
     seen: set[tuple[int, int]] = set()
     total = 0
     for root, _dirs, files in os.walk(folder):
+        if only_stores and ".zarr" not in root:
+            continue
         for f in files:
             st = os.lstat(Path(root) / f)
             key = (st.st_dev, st.st_ino)
@@ -143,6 +133,7 @@ def measure(runs: int, replicas: int, steps: int, cores: int) -> dict[str, Any]:
         stored_bytes(p) for p in sorted(results.glob("*/draws/replica-*.zarr"))
     ) or sum(stored_bytes(p) for p in sorted(results.glob("*/.resumable/replica-*.zarr")))
     total = stored_bytes(results)
+    stores = stored_bytes(results, only_stores=True)
     return {
         "runs": runs,
         "replicas": replicas,
@@ -157,8 +148,10 @@ def measure(runs: int, replicas: int, steps: int, cores: int) -> dict[str, Any]:
         "jobs": jobs,
         "jobs_per_run": round(jobs / runs, 2),
         "bytes_results": total,
+        "bytes_all_stores": stores,
         "bytes_sampled_stores": sampled,
-        "storage_ratio": round(total / sampled, 2) if sampled else None,
+        "store_copies": round(stores / sampled, 2) if sampled else None,
+        "bytes_other": total - stores,
     }
 
 

@@ -30,7 +30,7 @@ def test_many_runs_profile_groups_jobs(tmp_path: Path) -> None:
     plan = snakemake(folder, "--profile", "profiles/many-runs", "-n")
     text = plan.stdout + plan.stderr
     assert plan.returncode == 0, text
-    # 4 sampling jobs fit one group job (8 components); 2 runs' decide + diagnose another
+    # 4 sampling jobs fit one group job (8 components); the 2 runs' analyse jobs another
     assert text.count("Group job sampling") == 1 and text.count("Group job analysis") == 1
     res = snakemake(folder, "--profile", "profiles/many-runs")
     out = res.stdout + res.stderr

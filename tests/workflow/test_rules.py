@@ -95,36 +95,33 @@ def test_burn_in_change_does_not_resample(finished: Path) -> None:
     """Changing only the burn-in policy reruns trimming and what follows, never sampling."""
     write_config(finished, {"gauss": gauss_run(burn_in={"policy": "fixed", "steps": 300})})
     jobs = planned_jobs(finished)
-    assert "chainyard_sample" not in jobs
-    assert jobs["chainyard_decide"] == 1
-    assert jobs["chainyard_diagnose"] == 1
+    assert jobs == {"chainyard_analyse": 1, "chainyard_overview": 1, "chainyard_all": 1}
     write_config(finished, {"gauss": gauss_run()})
     assert planned_jobs(finished) == {}
 
 
 def test_thinning_change_does_not_resample(finished: Path) -> None:
     """Changing only the thinning policy reruns the decisions and what follows, never
-    sampling (burn-in and thinning are decided in one job)."""
+    sampling."""
     write_config(finished, {"gauss": gauss_run(thinning={"policy": "fixed", "factor": 5})})
     try:
         jobs = planned_jobs(finished)
-        assert "chainyard_sample" not in jobs
-        assert jobs["chainyard_decide"] == 1 and jobs["chainyard_diagnose"] == 1
+        assert jobs == {"chainyard_analyse": 1, "chainyard_overview": 1, "chainyard_all": 1}
     finally:
         write_config(finished, {"gauss": gauss_run()})
     assert planned_jobs(finished) == {}
 
 
 def test_jobs_per_run_at_most_replicas_plus_three(finished: Path) -> None:
-    """A run costs one sampling job per replica and two more: decide (burn-in and thinning)
-    and diagnose (diagnostics, summary and plots)."""
+    """A run costs one sampling job per replica and one more (decisions, diagnostics, summary
+    and plots)."""
     write_config(finished, {"gauss": gauss_run(replicas=4, seed=8)})
     try:
         jobs = planned_jobs(finished)
     finally:
         write_config(finished, {"gauss": gauss_run()})
     per_run = {k: v for k, v in jobs.items() if k not in ("chainyard_all", "chainyard_overview")}
-    assert per_run == {"chainyard_sample": 4, "chainyard_decide": 1, "chainyard_diagnose": 1}
+    assert per_run == {"chainyard_sample": 4, "chainyard_analyse": 1}
     assert sum(per_run.values()) <= 4 + 3
 
 

@@ -47,7 +47,7 @@ def test_lowering_steps_uses_the_first_steps(tmp_path: Path) -> None:
     assert diag["params"]["x"]["mean"] == pytest.approx(float(pooled.mean()), rel=1e-9)
     log = (folder / "results/logs/gauss/sample-replica-0.log").read_text()
     assert "later steps use the first 500" in log and "no stored draws are deleted" in log
-    decide_log = (folder / "results/logs/gauss/decide.log").read_text()
+    decide_log = (folder / "results/logs/gauss/analyse.log").read_text()
     assert "selection: steps 100 to 500 (of 900 stored; the config asks for 500)" in decide_log
 
     # raising steps back within what is stored samples nothing new and uses all 900

@@ -20,17 +20,13 @@ def _dispatch(sm: Any) -> None:
     p = sm.params
     step = p.step
     if step == "sample":
+        # the sampling call of the sample rule (the rule's threads would be passed here)
         steps.sample_step(p.settings, p.base_dir, int(p.replica), p.resumable, sm.output[0])
-    elif step == "decide":
-        steps.decide_step(
-            p.burn_in, p.thinning, int(p.steps), list(sm.input), dict(sm.output.items())
-        )
-    elif step == "diagnose":
-        outputs = dict(sm.output.items())
-        record = steps.diagnose_step(
-            list(sm.input.stores), sm.input.selection, p.targets, p.run, outputs
-        )
-        steps.plot_step(list(sm.input.stores), sm.input.selection, record, outputs)
+    elif step == "analyse":
+        stores, outputs = list(sm.input), dict(sm.output.items())
+        steps.decide_step(p.burn_in, p.thinning, int(p.steps), stores, outputs)
+        record = steps.diagnose_step(stores, outputs["selection"], p.targets, p.run, outputs)
+        steps.plot_step(stores, outputs["selection"], record, outputs)
     elif step == "overview":
         steps.overview_step(
             list(sm.input.diagnostics), json.loads(p.stores), p.results, dict(sm.output.items())

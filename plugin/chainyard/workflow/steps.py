@@ -256,13 +256,15 @@ def overview_step(
     outputs: dict[str, str],
 ) -> None:
     """The cross-run overview: ``runs.csv`` and the report's opening page."""
-    from chainyard.analysis.records import read_record
+    from chainyard.errors import StoreError
     from chainyard.store import Store
     from chainyard.workflow.overview import overview_row, write_overview_rst, write_runs_csv
 
     rows = []
-    for path in diagnostics:
-        rec = read_record(path, DIAGNOSTICS_KIND)
+    for path in diagnostics:  # plain JSON: the analysis package (scipy) is not needed here
+        rec = json.loads(Path(path).read_text())
+        if not isinstance(rec, dict) or rec.get("kind") != DIAGNOSTICS_KIND:
+            raise StoreError(f"{path}: expected a {DIAGNOSTICS_KIND!r} record")
         rows.append(overview_row(rec, [Store.open(p) for p in stores[rec["run"]]]))
     ordered = write_runs_csv(rows, outputs["table"])
     write_overview_rst(ordered, results, outputs["page"])
