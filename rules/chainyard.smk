@@ -10,9 +10,12 @@
 
 include: "common.smk"
 include: "sample.smk"
-include: "decide.smk"
-include: "diagnose.smk"
-include: "plot.smk"
+include: "analyse.smk"
+include: "overview.smk"
+
+
+# The report opens on the overview of all runs (written by the overview rule).
+report: overview_page()
 
 
 rule all:

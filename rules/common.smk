@@ -1,5 +1,6 @@
 # Helpers and config validation shared by the chainyard rules.
 import json
+import sys
 
 import chainyard
 import chainyard.workflow as cy_workflow
@@ -8,13 +9,16 @@ from snakemake.exceptions import WorkflowError
 from snakemake.utils import validate
 
 
-# 1. JSON Schema (generated from the pydantic models) through snakemake's validator,
-# 2. pydantic itself for precise one-line messages and the checks a schema cannot express.
-validate(config, cy_workflow.schema_path(), set_default=False)
+# 1. pydantic first: chainyard's one-line messages (as `chainyard check` prints them),
+# 2. then the JSON Schema (generated from the same models) through snakemake's validator.
 try:
     CY_RUNS = cy_workflow.load_workflow_config(config, source="config")
 except ConfigError as exc:
-    raise WorkflowError("chainyard: invalid config:\n" + str(exc)) from None
+    # one line per problem and chainyard's exit status, no traceback of the Snakefile
+    for line in str(exc).splitlines():
+        print(f"chainyard: error: {line}", file=sys.stderr)
+    sys.exit(exc.exit_code)
+validate(config, cy_workflow.schema_path(), set_default=False)
 
 CY = config["chainyard"]
 CY_RESULTS = CY.get("results", "results")
@@ -34,10 +38,10 @@ def run_path(run, *parts):
     return "/".join([CY_RESULTS, run, *parts])
 
 
-def replica_stores(run, stage):
-    """The replica stores of one run at one stage (draws, trimmed, final)."""
+def replica_stores(run):
+    """The sampled replica stores of one run."""
     n = CY_RUNS[run].config.replicas
-    return [run_path(run, stage, f"replica-{r}.zarr") for r in range(n)]
+    return [run_path(run, "draws", f"replica-{r}.zarr") for r in range(n)]
 
 
 def sample_inputs(wildcards):
@@ -64,6 +68,12 @@ def sample_runtime(wildcards, attempt):
     return CY_SAMPLE_RUNTIME * attempt
 
 
+def job_attempt(wildcards, attempt):
+    """Snakemake's attempt number, as a resource: a retry of a job whose earlier attempt ended
+    in a failure no retry can mend fails at once (see chainyard.workflow.retry)."""
+    return attempt
+
+
 def burn_in_policy(wildcards):
     return CY_RUNS[wildcards.run].param("burn_in")
 
@@ -88,22 +98,36 @@ def reference_values(wildcards):
 
 
 def raw_stores(wildcards):
-    return replica_stores(wildcards.run, "draws")
+    return replica_stores(wildcards.run)
 
 
-def trimmed_stores(wildcards):
-    return replica_stores(wildcards.run, "trimmed")
-
-
-def final_stores(wildcards):
-    return replica_stores(wildcards.run, "final")
+def requested_steps(wildcards):
+    return CY_RUNS[wildcards.run].config.sampler.steps
 
 
 PLOTS = ("traces", "tau", "pairs", "acceptance")
 
 
+def results_file(name):
+    """A file directly under the results folder (not in a run's folder)."""
+    return "/".join([CY_RESULTS, name])
+
+
+def results_folder(wildcards, output):
+    """The results folder, from a rule's first output directly under it."""
+    return output[0].rpartition("/")[0]
+
+
+def overview_page():
+    """The report's opening page: the overview once written, else a placeholder."""
+    import os
+
+    page = os.path.abspath(results_file("overview.rst"))
+    return page if os.path.exists(page) else "report/no_overview.rst"
+
+
 def all_outputs():
-    out = []
+    out = [results_file("runs.csv")]
     for run in sorted(CY_RUNS):
         out.append(run_path(run, "summary.csv"))
         out.append(run_path(run, "diagnostics.txt"))

@@ -26,6 +26,7 @@ rule sample:
     resources:
         runtime=sample_runtime,
         mem_mb=CY_SAMPLE_MEM,
+        attempt=job_attempt,
     retries: CY_SAMPLE_RETRIES
     cache: "omit-software"
     script:

@@ -82,14 +82,16 @@ CASES: list[tuple[str, Callable[[Cfg], None] | str, str | None, int, str]] = [
         _set("sead", 7),
         None,
         2,
-        r"run\.yaml: sead: unknown key \(check the spelling; see `chainyard schema`\)",
+        r"run\.yaml: sead: unknown key \(check the spelling; see `chainyard schema`\); "
+        r"did you mean 'seed'\? allowed: model, parameters, sampler, .*",
     ),
     (
         "unknown-sampler-key",
         _set("sampler.walker", 7),
         None,
         2,
-        r"run\.yaml: sampler\.walker: unknown key \(check the spelling; see `chainyard schema`\)",
+        r"run\.yaml: sampler\.walker: unknown key \(check the spelling; see `chainyard schema`\); "
+        r"did you mean 'walkers'\? allowed: walkers, steps, moves, .*",
     ),
     (
         "walkers-not-int",

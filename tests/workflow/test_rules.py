@@ -39,23 +39,50 @@ def finished(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
 
 def test_outputs_and_records(finished: Path) -> None:
-    """All outputs exist; decision records carry policy, reason, inputs and provenance."""
+    """All outputs exist; decision records carry policy, reason, inputs and provenance; the
+    selection record ties them to the sampled stores, and later steps read the selected steps
+    of those stores (no copies: one store per replica)."""
     run = finished / "results" / "gauss"
     for rel in ("summary.csv", "diagnostics.txt", "diagnostics.json", "plots/traces.png",
                 "plots/tau.png", "plots/pairs.png", "plots/acceptance.png",
-                "decisions/burn_in.json", "decisions/thinning.json"):
+                "decisions/burn_in.json", "decisions/thinning.json",
+                "decisions/selection.json"):
         assert (run / rel).is_file(), rel
     burn = json.loads((run / "decisions" / "burn_in.json").read_text())
     assert burn["kind"] == "chainyard.burn_in_decision"
     assert burn["decision"]["reason"].startswith("Discarded ")
     assert len(burn["inputs"]) == 2 and all(len(i["sha256"]) == 64 for i in burn["inputs"])
     assert burn["provenance"]["software"]["emcee"] == "3.1.6"
-    final = chainyard.open_store(run / "final" / "replica-0.zarr")
-    derived = final.attrs["derived"]
-    assert derived["source"]["path"].endswith("trimmed/replica-0.zarr")
-    assert derived["parent"]["discard"] == burn["decision"]["steps_discarded"]
+    thin = json.loads((run / "decisions" / "thinning.json").read_text())
+    sel = json.loads((run / "decisions" / "selection.json").read_text())
+    assert sel["kind"] == "chainyard.selection"
+    assert sel["steps_used"] == sel["steps_stored"] == 2000
+    assert sel["first_kept"] == burn["decision"]["steps_discarded"]
+    assert sel["every"] == thin["decision"]["factor"]
+    assert sel["kept_per_replica"] == len(range(sel["first_kept"], 2000, sel["every"]))
+    assert [i["path"] for i in sel["inputs"]][:2] == [
+        f"results/gauss/draws/replica-{r}.zarr" for r in range(2)
+    ]
     diag = json.loads((run / "diagnostics.json").read_text())
     assert set(diag["params"]) == {"x", "y"} and "verdict" in diag
+    assert diag["selection"] == {k: sel[k] for k in ("steps_used", "first_kept", "every")}
+    # the diagnostics are those of the selected steps (recomputed here from the raw store)
+    from chainyard.analysis.diagnose import diagnose
+    from chainyard.config import TargetsSpec
+
+    raw = [chainyard.open_store(run / "draws" / f"replica-{r}.zarr") for r in range(2)]
+    kept = [s.draws()[sel["first_kept"]:2000:sel["every"]] for s in raw]
+    pooled = np.concatenate([k[:, :, 0].reshape(-1) for k in kept])
+    assert diag["params"]["x"]["mean"] == pytest.approx(float(pooled.mean()), rel=1e-9)
+    from chainyard.analysis.view import StoreWindow
+
+    again = diagnose([StoreWindow(s, sel["first_kept"], 2000, sel["every"]) for s in raw],
+                     TargetsSpec())
+    assert again["params"]["x"]["ess_bulk"] == diag["params"]["x"]["ess_bulk"]
+    # one store per replica: no trimmed or thinned copies
+    assert sorted(p.name for p in run.iterdir() if p.is_dir()) == [
+        ".resumable", "decisions", "draws", "plots"
+    ]
 
 
 def test_rerun_does_nothing(finished: Path) -> None:
@@ -69,11 +96,34 @@ def test_burn_in_change_does_not_resample(finished: Path) -> None:
     """Changing only the burn-in policy reruns trimming and what follows, never sampling."""
     write_config(finished, {"gauss": gauss_run(burn_in={"policy": "fixed", "steps": 300})})
     jobs = planned_jobs(finished)
-    assert "chainyard_sample" not in jobs
-    assert jobs["chainyard_decide_burn_in"] == 1 and jobs["chainyard_trim"] == 2
-    assert jobs["chainyard_diagnose"] == 1
+    assert jobs == {"chainyard_analyse": 1, "chainyard_overview": 1, "chainyard_all": 1}
     write_config(finished, {"gauss": gauss_run()})
     assert planned_jobs(finished) == {}
+
+
+def test_thinning_change_does_not_resample(finished: Path) -> None:
+    """Changing only the thinning policy reruns the decisions and what follows, never
+    sampling."""
+    write_config(finished, {"gauss": gauss_run(thinning={"policy": "fixed", "factor": 5})})
+    try:
+        jobs = planned_jobs(finished)
+        assert jobs == {"chainyard_analyse": 1, "chainyard_overview": 1, "chainyard_all": 1}
+    finally:
+        write_config(finished, {"gauss": gauss_run()})
+    assert planned_jobs(finished) == {}
+
+
+def test_jobs_per_run_at_most_replicas_plus_three(finished: Path) -> None:
+    """A run costs one sampling job per replica and one more (decisions, diagnostics, summary
+    and plots)."""
+    write_config(finished, {"gauss": gauss_run(replicas=4, seed=8)})
+    try:
+        jobs = planned_jobs(finished)
+    finally:
+        write_config(finished, {"gauss": gauss_run()})
+    per_run = {k: v for k, v in jobs.items() if k not in ("chainyard_all", "chainyard_overview")}
+    assert per_run == {"chainyard_sample": 4, "chainyard_analyse": 1}
+    assert sum(per_run.values()) <= 4 + 3
 
 
 def test_more_replicas_samples_only_new_ones(finished: Path) -> None:
@@ -137,6 +187,30 @@ def test_lint_and_report(finished: Path) -> None:
     html = (finished / "report.html").read_text()
     assert "traces.png" in html and "summary.csv" in html
     assert "data:image/png;base64" in html or "base64" in html
+
+
+def test_overview_table_and_report_opening_page(finished: Path) -> None:
+    """results/runs.csv holds one row per run from its diagnostics; the report opens on the
+    same table, linking to the run's plots and tables."""
+    import csv
+
+    with open(finished / "results" / "runs.csv", newline="") as f:
+        (row,) = list(csv.DictReader(f))
+    diag = json.loads((finished / "results/gauss/diagnostics.json").read_text())
+    assert row["run"] == "gauss"
+    assert row["verdict"] == ("converged" if diag["verdict"]["ok"] else "NOT converged")
+    worst = max(diag["params"], key=lambda p: diag["params"][p]["rhat"])
+    assert row["worst_rhat_parameter"] == worst
+    assert float(row["worst_rhat"]) == pytest.approx(diag["params"][worst]["rhat"], abs=1e-4)
+    assert row["steps"] == "2000" and row["replicas"] == "2"
+    if not (finished / "report.html").exists():
+        assert snakemake(finished, "--report", "report.html").returncode == 0
+    html = (finished / "report.html").read_text()
+    start = html.index("var workflow_desc")
+    page = html[start:html.index("\n", start)]
+    assert "<h1 class=\\\"title\\\">Runs</h1>" in page and ">gauss</td>" in page
+    assert "showResultInfo('results/gauss/plots/traces.png')" in page
+    assert "system-message" not in page
 
 
 def test_logs_show_progress_lines(finished: Path) -> None:

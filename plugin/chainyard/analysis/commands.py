@@ -134,7 +134,7 @@ def _selection_options(p: argparse.ArgumentParser) -> None:
         "stores",
         nargs="+",
         metavar="STORE",
-        help="the replica stores of one run: derived stores (e.g. final/replica-R.zarr) as "
+        help="the replica stores of one run: derived stores (e.g. standalone/replica-R.zarr) as "
         "they are, or sampled stores with --burn-in-record or --raw",
     )
     p.add_argument(

@@ -29,6 +29,7 @@ def derive_store(
     *,
     discard: int = 0,
     factor: int = 1,
+    stop: int | None = None,
     records: Sequence[Path] = (),
 ) -> Store:
     """Write ``source`` steps ``discard, discard + factor, ...`` to a new store at ``out``.
@@ -45,6 +46,8 @@ def derive_store(
         Burn-in steps dropped from the start.
     factor : int
         Thinning factor (1 keeps every step).
+    stop : int, optional
+        Source steps from ``stop`` on are left out (default: keep up to the last committed).
     records : sequence of Path
         Decision records that justified ``discard`` and ``factor`` (identified by content
         hash in the derived store's attributes).
@@ -62,23 +65,22 @@ def derive_store(
     StoreLockedError
         If another process is writing ``out`` (exit 6).
     """
-    if not 0 <= discard < source.steps_done:
-        raise StoreError(
-            f"{source.path}: cannot discard {discard} of {source.steps_done} committed steps"
-        )
+    end = source.steps_done if stop is None else min(int(stop), source.steps_done)
+    if not 0 <= discard < end:
+        raise StoreError(f"{source.path}: cannot discard {discard} of {end} committed steps")
     if factor < 1:
         raise StoreError(f"thinning factor must be >= 1, got {factor}")
     out = Path(out)
     with publish_derived(out, source=Path(source.path)) as tmp:
-        _write_derived(source, tmp, discard=discard, factor=factor, records=records)
+        _write_derived(source, tmp, discard=discard, factor=factor, stop=end, records=records)
     return Store.open(out)
 
 
 def _write_derived(
-    source: Store, out: Path, *, discard: int, factor: int, records: Sequence[Path]
+    source: Store, out: Path, *, discard: int, factor: int, stop: int, records: Sequence[Path]
 ) -> None:
     """Write the derived store at ``out`` (a fresh temporary folder)."""
-    kept = np.arange(discard, source.steps_done, factor)
+    kept = np.arange(discard, stop, factor)
     n = int(kept.size)
     attrs = source.attrs
     attrs.pop("format", None)
@@ -88,7 +90,7 @@ def _write_derived(
         "source": input_identity(source),
         "discard": int(discard),
         "factor": int(factor),
-        "source_steps": [int(discard), int(source.steps_done), int(factor)],
+        "source_steps": [int(discard), int(stop), int(factor)],
         "records": [input_identity(Path(r)) for r in records],
         "parent": parent,
         "created_utc": utc_now(),

@@ -8,6 +8,7 @@ from pathlib import Path
 from typing import Any
 
 from pydantic import (
+    BaseModel,
     Field,
     PrivateAttr,
     ValidationError,
@@ -15,6 +16,7 @@ from pydantic import (
 )
 
 from chainyard.config._base import JSON_SCHEMA_DIALECT, _Strict
+from chainyard.config.allowed import unknown_key_hint
 from chainyard.config.policies import (
     BurnInSpec,
     DefaultBurnIn,
@@ -251,7 +253,9 @@ def config_hash(settings: dict[str, Any]) -> str:
     return hashlib.sha256(blob.encode()).hexdigest()
 
 
-def format_validation_error(error: ValidationError, source: str) -> list[str]:
+def format_validation_error(
+    error: ValidationError, source: str, model: type[BaseModel] | None = None
+) -> list[str]:
     """Turn a pydantic error into one line per problem: file, field path, value, what is allowed.
 
     Parameters
@@ -260,6 +264,8 @@ def format_validation_error(error: ValidationError, source: str) -> list[str]:
         The error pydantic raised.
     source : str
         The config file's name, prefixed to every line.
+    model : type of BaseModel, optional
+        The model validated: an unknown key's line then lists the keys allowed there.
     """
     lines = []
     for item in error.errors(include_url=False):
@@ -291,7 +297,9 @@ def format_validation_error(error: ValidationError, source: str) -> list[str]:
         elif kind == "sampler_kind":
             lines.append(f"{source}: sampler.kind = {_short(_kind_of(item.get('input')))}: {msg}")
         elif kind == "extra_forbidden":
-            lines.append(f"{where}: unknown key (check the spelling; see `chainyard schema`)")
+            hint = unknown_key_hint(model, item["loc"]) if model is not None else ""
+            hint = f"; {hint}" if hint else ""
+            lines.append(f"{where}: unknown key (check the spelling; see `chainyard schema`){hint}")
         elif kind == "missing":
             lines.append(f"{where}: required key is missing")
         else:
@@ -364,7 +372,7 @@ def parse_config(data: Any, *, base_dir: Path | None = None, source: str = "<con
     try:
         config = RunConfig.model_validate(data)
     except ValidationError as exc:
-        raise ConfigError(format_validation_error(exc, source)) from None
+        raise ConfigError(format_validation_error(exc, source, RunConfig)) from None
     config._base_dir = (base_dir or Path.cwd()).resolve()
     config._source = source
     return config

@@ -44,6 +44,8 @@ def identity_of(item: Store | Path) -> dict[str, Any]:
 
 def png_metadata(inputs: Sequence[Store | Path]) -> dict[str, str]:
     """``savefig(metadata=...)`` for a PNG: the stamp and inputs of a plot, as text."""
+    # a view of a store's steps (chainyard.analysis.view.StoreWindow) is stamped as its store
+    inputs = [getattr(i, "source", i) for i in inputs]
     block = {"inputs": [identity_of(i) for i in inputs], "provenance": stamp(inputs)}
     version = block["provenance"]["software"].get("chainyard")
     return {

@@ -137,7 +137,7 @@ def load_workflow_config(config: dict[str, Any], source: str = "config") -> dict
     try:
         WorkflowConfig.model_validate(shell)
     except ValidationError as exc:
-        raise ConfigError(format_validation_error(exc, source)) from None
+        raise ConfigError(format_validation_error(exc, source, WorkflowConfig)) from None
     assert isinstance(runs, dict)
     entries: dict[str, RunEntry] = {}
     problems: list[str] = []

@@ -3,40 +3,40 @@
 from __future__ import annotations
 
 import contextlib
+import json
 import sys
 from typing import Any
 
-from chainyard.engine import Interrupted
+from chainyard.engine.stopping import Interrupted
 from chainyard.errors import ChainyardError
-from chainyard.workflow import steps
+from chainyard.workflow.retry import RetryNote
 
 __all__ = ["run_job"]
 
 
 def _dispatch(sm: Any) -> None:
+    from chainyard.workflow import steps  # after the retry check: a refused retry loads nothing
+
     p = sm.params
     step = p.step
     if step == "sample":
+        # the sampling call of the sample rule: the rule's threads are the model's CPUs
         steps.sample_step(
             p.settings, p.base_dir, int(p.replica), p.resumable, sm.output[0], cpus=sm.threads
         )
-    elif step == "decide":
-        steps.decide_step(p.what, p.policy, list(sm.input), sm.output[0])
-    elif step == "derive":
-        steps.derive_step(sm.input.store, sm.input.record, p.what, sm.output[0])
-    elif step == "diagnose":
-        steps.diagnose_step(list(sm.input), p.targets, p.run, sm.output.record, sm.output.table)
-    elif step == "summary":
-        steps.summary_step(list(sm.input.stores), sm.input.diagnostics, sm.output[0])
-    elif step == "plot":
+    elif step == "analyse":
+        stores, outputs = list(sm.input), dict(sm.output.items())
+        steps.decide_step(p.burn_in, p.thinning, int(p.steps), stores, outputs)
+        record = steps.diagnose_step(stores, outputs["selection"], p.targets, p.run, outputs)
         steps.plot_step(
-            list(sm.input.raw),
-            list(sm.input.final),
-            sm.input.burn_in,
-            sm.input.diagnostics,
-            dict(sm.output.items()),
-            getattr(p, "references", "{}"),
+            stores, outputs["selection"], record, outputs, getattr(p, "references", "{}")
         )
+    elif step == "overview":
+        steps.overview_step(
+            list(sm.input.diagnostics), json.loads(p.stores), p.results, dict(sm.output.items())
+        )
+    elif step == "standalone":
+        steps.standalone_step(sm.input.store, sm.input.selection, sm.output[0])
     else:  # pragma: no cover - the shipped rules set known steps
         raise ValueError(f"unknown chainyard step {step!r}")
 
@@ -58,8 +58,20 @@ def run_job(sm: Any) -> None:
             f = stack.enter_context(open(log, "w", buffering=1))
             stack.enter_context(contextlib.redirect_stdout(f))
             stack.enter_context(contextlib.redirect_stderr(f))
+        note = RetryNote.for_job(sm)
+        earlier = note.earlier_failure() if note is not None else None
         try:
-            _dispatch(sm)
+            if earlier is not None:
+                code = int(earlier["exit_code"])
+                print(
+                    f"chainyard: error: not retried: attempt {earlier['attempt']} ended with "
+                    f"exit status {code}, which a retry cannot mend: {earlier['message']}",
+                    file=sys.stderr,
+                )
+                sys.stderr.flush()
+            else:
+                _dispatch(sm)
+                code = 0
         except Interrupted as exc:
             code = 128 + exc.signum
         except ChainyardError as exc:
@@ -67,6 +79,8 @@ def run_job(sm: Any) -> None:
                 print(f"chainyard: error: {line}", file=sys.stderr)
             sys.stderr.flush()
             code = exc.exit_code
+            if note is not None:
+                note.remember(code, str(exc))
         except OSError as exc:  # a storage fault the engine or store did not name
             from chainyard.cli import os_error_exit, report_internal
 
@@ -77,7 +91,8 @@ def run_job(sm: Any) -> None:
 
             code = report_internal(exc, f"job {p_step(sm)}", True)
         else:
-            code = 0
+            if code == 0 and note is not None:
+                note.clear()
     if code:
         if log:
             print(f"chainyard: job failed; see {log}", file=sys.__stderr__)

@@ -1,9 +1,14 @@
 """The work behind each rule, as plain functions (the rule scripts only unpack arguments).
 
+Each step imports only what it needs, when it runs (a job is a fresh process: imports are most
+of a small job's cost).
+
 Sampling keeps its resumable store in an undeclared sibling folder
 (``RESULTS/RUN/.resumable/replica-R.zarr``) that Snakemake never deletes; the declared output
 is a hard-linked copy made when the run is complete (no extra disk; chunk files are replaced,
-never modified in place, so later extensions cannot change an existing output).
+never modified in place, so later extensions cannot change an existing output). Burn-in and
+thinning are recorded as a selection over these stores (see
+:mod:`chainyard.workflow.selection`), never copied.
 """
 
 from __future__ import annotations
@@ -15,33 +20,14 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-from pydantic import TypeAdapter
-
-from chainyard.analysis import (
-    decide_burn_in,
-    decide_thinning,
-    derive_store,
-    diagnose,
-    format_table,
-    read_record,
-    write_record,
-    write_summary_csv,
-)
-from chainyard.analysis.replicas import open_replicas
-from chainyard.analysis.summary import summarise
-from chainyard.config import BurnInSpec, TargetsSpec, ThinningSpec, parse_config
-from chainyard.engine import sample
-from chainyard.errors import StoreConflictError
-from chainyard.store import Store
-
 __all__ = [
     "decide_step",
-    "derive_step",
     "diagnose_step",
     "link_tree",
+    "overview_step",
     "plot_step",
     "sample_step",
-    "summary_step",
+    "standalone_step",
 ]
 
 BURN_IN_KIND = "chainyard.burn_in_decision"
@@ -81,16 +67,25 @@ def sample_step(
     data or a sampling setting changed), it is discarded and sampling starts over; the log
     says why. With ``cpus`` (the rule's threads) > 1 the model's calls run in up to that many
     worker processes where timing shows it pays (``workers="auto"``).
+    A store that holds more steps than ``sampler.steps`` (the config lowered them)
+    is published whole; the run's selection then uses the first ``sampler.steps`` steps.
     """
+    from chainyard.workflow.imports import import_emcee_without_kde
+
+    import_emcee_without_kde()
+    from chainyard.config import parse_config
+    from chainyard.engine import sample
+    from chainyard.errors import StoreConflictError
+
     config = parse_config(json.loads(settings), base_dir=Path(base_dir), source="run settings")
     pool: dict[str, Any] = {"workers": "auto" if cpus > 1 else 1, "cpus": cpus}
     try:
-        sample(
+        store = sample(
             config, resumable, replica, progress="log", progress_interval=progress_interval, **pool
         )
     except StoreConflictError as exc:
         print(f"chainyard: {exc}; the workflow changed these settings: starting over", flush=True)
-        sample(
+        store = sample(
             config,
             resumable,
             replica,
@@ -99,73 +94,129 @@ def sample_step(
             progress_interval=progress_interval,
             **pool,
         )
+    requested = config.sampler.steps
+    if store.steps_done > requested:
+        print(
+            f"chainyard: the store holds {store.steps_done:,} steps; the config asks for "
+            f"{requested:,}: later steps use the first {requested:,} (recorded in the run's "
+            "decisions/selection.json); no stored draws are deleted",
+            flush=True,
+        )
     link_tree(Path(resumable), Path(output))
 
 
-def decide_step(what: str, policy: str, stores: Sequence[str], output: str) -> None:
-    """Record the burn-in (``what="burn_in"``) or thinning decision for a run's replicas."""
+def decide_step(
+    burn_in: str,
+    thinning: str,
+    steps: int,
+    stores: Sequence[str],
+    outputs: dict[str, str],
+) -> None:
+    """Decide burn-in (on the first ``steps`` steps) and thinning (after the cut), and record
+    them with the run's selection.
+
+    Parameters
+    ----------
+    burn_in, thinning : str
+        The run's policies (canonical JSON).
+    steps : int
+        Steps the config asks for; stores holding more are read up to it.
+    stores : sequence of str
+        The run's replica stores.
+    outputs : dict
+        Paths of the ``burn_in``, ``thinning`` and ``selection`` records.
+    """
+    from pydantic import TypeAdapter
+
+    from chainyard.analysis.decide import decide_burn_in, decide_thinning
+    from chainyard.analysis.records import write_record
+    from chainyard.analysis.replicas import open_replicas
+    from chainyard.config import BurnInSpec, ThinningSpec
+    from chainyard.errors import StoreError
+    from chainyard.workflow.selection import SELECTION_KIND, Selection
+
     replicas = open_replicas(stores)
-    spec: Any
-    if what == "burn_in":
-        spec = TypeAdapter(BurnInSpec).validate_python(json.loads(policy))
-        decision = decide_burn_in(replicas, spec)
-        kind = BURN_IN_KIND
-    else:
-        spec = TypeAdapter(ThinningSpec).validate_python(json.loads(policy))
-        decision = decide_thinning(replicas, spec)
-        kind = THINNING_KIND
+    stored = min(s.steps_done for s in replicas)
+    if stored < steps:
+        raise StoreError(
+            f"{replicas[0].path}: {stored:,} steps stored, the config asks for {steps:,}"
+        )
+    used = Selection(steps, 0, 1).used(replicas)
+    burn_spec = TypeAdapter(BurnInSpec).validate_python(json.loads(burn_in))
+    burn = decide_burn_in(used, burn_spec)
+    cut = int(burn.steps_discarded)
+    thin_spec = TypeAdapter(ThinningSpec).validate_python(json.loads(thinning))
+    thin = decide_thinning(Selection(steps, cut, 1).kept(replicas), thin_spec)
+    selection = Selection(steps, cut, int(thin.factor))
     write_record(
-        output, kind, {"decision": decision.to_dict(), "policy": json.loads(policy)}, replicas
+        outputs["burn_in"],
+        BURN_IN_KIND,
+        {"decision": burn.to_dict(), "policy": json.loads(burn_in), "steps_used": steps},
+        replicas,
     )
-    print(decision.reason, flush=True)
-
-
-def derive_step(source: str, record: str, what: str, output: str) -> None:
-    """Apply a burn-in or thinning record to one replica store."""
-    if what == "burn_in":
-        rec = read_record(record, BURN_IN_KIND)
-        discard, factor = int(rec["decision"]["steps_discarded"]), 1
-    else:
-        rec = read_record(record, THINNING_KIND)
-        discard, factor = 0, int(rec["decision"]["factor"])
-    store = derive_store(
-        Store.open(source), output, discard=discard, factor=factor, records=[Path(record)]
+    write_record(
+        outputs["thinning"],
+        THINNING_KIND,
+        {"decision": thin.to_dict(), "policy": json.loads(thinning), "first_kept": cut},
+        replicas,
     )
+    kept = selection.kept(replicas)[0].steps_done
+    write_record(
+        outputs["selection"],
+        SELECTION_KIND,
+        {**selection.to_dict(), "steps_stored": stored, "kept_per_replica": kept},
+        [*replicas, Path(outputs["burn_in"]), Path(outputs["thinning"])],
+    )
+    print(burn.reason, flush=True)
+    print(thin.reason, flush=True)
+    more = f" (of {stored:,} stored; the config asks for {steps:,})" if stored > steps else ""
     print(
-        f"{output}: {store.steps_done:,} steps (discarded {discard:,}, kept every {factor})",
+        f"selection: steps {cut:,} to {steps:,}{more}, every {selection.every}: "
+        f"{kept:,} steps per replica",
         flush=True,
     )
 
 
 def diagnose_step(
-    stores: Sequence[str], targets: str, run: str, json_out: str, table_out: str
+    stores: Sequence[str],
+    selection: str,
+    targets: str,
+    run: str,
+    outputs: dict[str, str],
 ) -> dict[str, Any]:
-    """Diagnostics and verdict across replicas: a JSON record and a text table."""
-    replicas = open_replicas(stores)
+    """Diagnostics and verdict across replicas on the selected steps: a JSON record, a text
+    table and the posterior summary (CSV). Returns the record as written."""
+    from chainyard.analysis.diagnose import diagnose, format_table
+    from chainyard.analysis.records import write_record
+    from chainyard.analysis.summary import summarise, write_summary_csv
+    from chainyard.config import TargetsSpec
+    from chainyard.workflow.selection import read_selection
+
+    sel, replicas = read_selection(selection, stores)
+    kept = sel.kept(replicas)
     spec = TargetsSpec.model_validate(json.loads(targets))
-    result = diagnose(replicas, spec)
-    write_record(json_out, DIAGNOSTICS_KIND, {"run": run, **result}, replicas)
+    result = diagnose(kept, spec)
+    record = write_record(
+        outputs["record"],
+        DIAGNOSTICS_KIND,
+        {"run": run, "selection": sel.to_dict(), **result},
+        [*replicas, Path(selection)],
+    )
     table = format_table(result, title=f"run {run}")
-    Path(table_out).write_text(table + "\n")
+    Path(outputs["table"]).write_text(table + "\n")
+    write_summary_csv(summarise(kept, record), outputs["summary"])
     print(table, flush=True)
-    return result
-
-
-def summary_step(stores: Sequence[str], diagnostics: str, output: str) -> None:
-    """Posterior summary table (CSV) from the diagnostics record."""
-    rec = read_record(diagnostics, DIAGNOSTICS_KIND)
-    write_summary_csv(summarise(open_replicas(stores), rec), output)
+    return record
 
 
 def plot_step(
-    raw: Sequence[str],
-    final: Sequence[str],
-    burn_in: str,
-    diagnostics: str,
+    stores: Sequence[str],
+    selection: str,
+    diagnostics: dict[str, Any],
     outputs: dict[str, str],
     references: str = "{}",
 ) -> None:
-    """All plots of one run (see :mod:`chainyard.report.plots`).
+    """All plots of one run (see :mod:`chainyard.report.plots`), given its diagnostics record.
 
     ``references`` is the JSON of the current config's reference values (the stored config
     keeps those of sampling time, and changing them must not resample).
@@ -176,13 +227,10 @@ def plot_step(
         tau_history_plot,
         trace_plot,
     )
+    from chainyard.workflow.selection import read_selection
 
-    raw_stores = open_replicas(raw)
-    final_stores = open_replicas(final)
-    cut = int(read_record(burn_in, BURN_IN_KIND)["decision"]["steps_discarded"])
-    diag = read_record(diagnostics, DIAGNOSTICS_KIND)
-    refs = {str(k): float(v) for k, v in json.loads(references).items()}
-    trace_plot(raw_stores, cut, outputs["traces"], references=refs)
-    tau_history_plot(final_stores, outputs["tau"], diagnostics=diag)
-    pairs_plot(final_stores, outputs["pairs"], references=refs)
-    acceptance_plot(raw_stores, outputs["acceptance"], diag)
+    """All plots of one run (see :mod:`chainyard.report.plots`), given its diagnostics record.
+
+    ``references`` is the JSON of the current config's reference values (the stored config
+    keeps those of sampling time, and changing them must not resample).
+    """

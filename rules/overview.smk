@@ -1,0 +1,31 @@
+# The cross-run overview: RESULTS/runs.csv (one row per run, failed runs first) and the
+# report's opening page (RESULTS/overview.rst: the same table, linking to every run's plots
+# and tables).
+
+
+rule overview:
+    input:
+        diagnostics=[run_path(run, "diagnostics.json") for run in sorted(CY_RUNS)],
+        stores=[s for run in sorted(CY_RUNS) for s in replica_stores(run)],
+    output:
+        table=report(
+            results_file("runs.csv"),
+            caption="report/runs.rst",
+            category="overview",
+        ),
+        page=results_file("overview.rst"),
+    params:
+        step="overview",
+        stores=json.dumps({run: replica_stores(run) for run in sorted(CY_RUNS)}, sort_keys=True),
+        results=results_folder,
+        chainyard_version=CY_VERSION,
+    log:
+        run_path("logs", "overview.log"),
+    threads: 1
+    conda:
+        "envs/chainyard.yaml"
+    resources:
+        runtime=10,
+        mem_mb=1000,
+    script:
+        "scripts/step.py"
