@@ -229,8 +229,58 @@ def plot_step(
     )
     from chainyard.workflow.selection import read_selection
 
-    """All plots of one run (see :mod:`chainyard.report.plots`), given its diagnostics record.
+    sel, replicas = read_selection(selection, stores)
+    used, kept = sel.used(replicas), sel.kept(replicas)
+    diag = diagnostics
+    refs = {str(k): float(v) for k, v in json.loads(references).items()}
+    trace_plot(used, sel.first_kept, outputs["traces"], references=refs)
+    tau_history_plot(kept, outputs["tau"], diagnostics=diag)
+    pairs_plot(kept, outputs["pairs"], references=refs)
+    acceptance_plot(used, outputs["acceptance"], diag)
 
-    ``references`` is the JSON of the current config's reference values (the stored config
-    keeps those of sampling time, and changing them must not resample).
-    """
+
+def standalone_step(store: str, selection: str, output: str) -> None:
+    """Write the selected steps of one replica as a standalone store (on request only)."""
+    from chainyard.analysis.derive import derive_store
+    from chainyard.workflow.selection import read_selection
+
+    sel, (source,) = read_selection(selection, [store])
+    out = derive_store(
+        source,
+        output,
+        discard=sel.first_kept,
+        factor=sel.every,
+        stop=sel.steps_used,
+        records=[Path(selection)],
+    )
+    print(
+        f"{output}: {out.steps_done:,} steps (steps {sel.first_kept:,} to {sel.steps_used:,} "
+        f"of {source.path}, every {sel.every})",
+        flush=True,
+    )
+
+
+def overview_step(
+    diagnostics: Sequence[str],
+    stores: dict[str, list[str]],
+    results: str,
+    outputs: dict[str, str],
+) -> None:
+    """The cross-run overview: ``runs.csv`` and the report's opening page."""
+    from chainyard.errors import StoreError
+    from chainyard.store import Store
+    from chainyard.workflow.overview import overview_row, write_overview_rst, write_runs_csv
+
+    rows = []
+    for path in diagnostics:  # plain JSON: the analysis package (scipy) is not needed here
+        rec = json.loads(Path(path).read_text())
+        if not isinstance(rec, dict) or rec.get("kind") != DIAGNOSTICS_KIND:
+            raise StoreError(f"{path}: expected a {DIAGNOSTICS_KIND!r} record")
+        rows.append(overview_row(rec, [Store.open(p) for p in stores[rec["run"]]]))
+    ordered = write_runs_csv(rows, outputs["table"])
+    write_overview_rst(ordered, results, outputs["page"])
+    failed = [r["run"] for r in ordered if r["verdict"] != "converged"]
+    print(
+        f"{len(ordered)} run(s); not converged: {', '.join(failed) if failed else 'none'}",
+        flush=True,
+    )
