@@ -48,8 +48,13 @@ def sample_inputs(wildcards):
     return CY_RUNS[wildcards.run].input_files()
 
 
-def sampling_settings(wildcards):
-    return CY_RUNS[wildcards.run].param("sampling")
+def sampling_section(name):
+    """A rule-param function giving one section of a run's sampling settings (JSON)."""
+
+    def section(wildcards):
+        return CY_RUNS[wildcards.run].sampling_section(name)
+
+    return section
 
 
 def run_base_dir(wildcards):

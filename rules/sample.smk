@@ -13,7 +13,12 @@ rule sample:
         directory(run_path("{run}", "draws", "replica-{replica}.zarr")),
     params:
         step="sample",
-        settings=sampling_settings,
+        # the sampling settings, one param per section: a rerun reason names what changed
+        model=sampling_section("model"),
+        parameters=sampling_section("parameters"),
+        sampler=sampling_section("sampler"),
+        storage=sampling_section("storage"),
+        seed=sampling_section("seed"),
         base_dir=run_base_dir,
         replica=replica_index,
         resumable=resumable_store,

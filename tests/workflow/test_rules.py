@@ -175,6 +175,35 @@ def test_params_are_plain_sorted_json(finished: Path) -> None:
     text = entry.param("sampling")
     assert json.dumps(json.loads(text), sort_keys=True, separators=(",", ":")) == text
     assert "burn_in" not in json.loads(text) and "targets" not in json.loads(text)
+    # the sampling rule gets the same settings one section per param, joined back exactly
+    from types import SimpleNamespace
+
+    from chainyard.workflow.config import SAMPLING_SECTIONS, sampling_settings_of
+
+    params = SimpleNamespace(**{k: entry.sampling_section(k) for k in SAMPLING_SECTIONS})
+    assert sampling_settings_of(params) == text
+
+
+def test_seed_change_reason_names_only_the_seed(finished: Path) -> None:
+    """A changed sampling setting reruns sampling, and the rerun reason shows the changed
+    section (one param per section of the sampling settings), not the whole run's settings."""
+    write_config(finished, {"gauss": gauss_run(seed=8)})
+    try:
+        res = snakemake(finished, "-n", "--rerun-triggers", "params")
+        text = res.stdout + res.stderr
+        assert res.returncode == 0, text
+        assert "chainyard_sample" in text
+        reasons = [ln for ln in text.splitlines() if "params changed" in ln.lower()
+                   or "params have changed" in ln.lower()]
+        assert reasons, text
+        changed = " ".join(reasons)
+        assert """before: '{"seed":7}' now: '{"seed":8}'""" in changed, changed
+        for untouched in ("parameters", "storage", "sampler"):
+            assert untouched not in changed, changed
+        assert max(len(ln) for ln in reasons) < 400, changed
+    finally:
+        write_config(finished, {"gauss": gauss_run()}, sample_threads=2)
+    assert planned_jobs(finished) == {}
 
 
 def test_lint_and_report(finished: Path) -> None:

@@ -104,6 +104,13 @@ class RunEntry:
             files.append(self._rel(self.config.sampler.initial_positions))
         return sorted(set(files))
 
+    def sampling_section(self, name: str) -> str:
+        """One top-level section of the sampling settings as canonical JSON ``{name: value}``
+        (one rule param per section, so Snakemake's rerun reason shows only the changed
+        section, named)."""
+        value = {name: self.config.sampling_settings()[name]}
+        return json.dumps(value, sort_keys=True, separators=(",", ":"))
+
     def param(self, section: str) -> str:
         """A config section as a canonical JSON string (a plain, sorted rule param)."""
         norm = self.config.normalised()
@@ -180,3 +187,14 @@ def workflow_json_schema() -> dict[str, Any]:
         "properties": {"chainyard": {"$ref": "#/$defs/WorkflowConfig"}},
         "required": ["chainyard"],
     }
+
+
+#: the top-level sections of :meth:`RunConfig.sampling_settings`, one sampling-rule param each
+SAMPLING_SECTIONS = ("model", "parameters", "sampler", "storage", "seed")
+
+
+def sampling_settings_of(params: Any) -> str:
+    """The sampling settings of a sampling job as one canonical JSON string, joined from its
+    per-section rule params (see :meth:`RunEntry.sampling_section`)."""
+    joined = {name: json.loads(getattr(params, name))[name] for name in SAMPLING_SECTIONS}
+    return json.dumps(joined, sort_keys=True, separators=(",", ":"))

@@ -20,9 +20,12 @@ def _dispatch(sm: Any) -> None:
     p = sm.params
     step = p.step
     if step == "sample":
+        from chainyard.workflow.config import sampling_settings_of
+
         # the sampling call of the sample rule: the rule's threads are the model's CPUs
+        settings = sampling_settings_of(p)
         steps.sample_step(
-            p.settings, p.base_dir, int(p.replica), p.resumable, sm.output[0], cpus=sm.threads
+            settings, p.base_dir, int(p.replica), p.resumable, sm.output[0], cpus=sm.threads
         )
     elif step == "analyse":
         stores, outputs = list(sm.input), dict(sm.output.items())

@@ -54,7 +54,9 @@ class RetryNote:
         attempt = sm.resources.get("attempt") if hasattr(sm.resources, "get") else None
         if resumable is None or attempt is None:
             return None
-        identity = f"{p.settings}\n{p.replica}"
+        from chainyard.workflow.config import sampling_settings_of
+
+        identity = f"{sampling_settings_of(p)}\n{p.replica}"
         return cls(Path(str(resumable) + ".failed.json"), identity, int(attempt))
 
     def earlier_failure(self) -> dict[str, Any] | None:
