@@ -91,7 +91,7 @@ CASES: list[tuple[str, Callable[[Cfg], None] | str, str | None, int, str]] = [
         None,
         2,
         r"run\.yaml: sampler\.walker: unknown key \(check the spelling; see `chainyard schema`\); "
-        r"did you mean 'walkers'\? allowed: walkers, steps, moves, .*",
+        r"did you mean 'walkers'\? allowed: kind, walkers, steps, moves, .*",
     ),
     (
         "walkers-not-int",

@@ -27,8 +27,8 @@ def test_inline_run_typo_is_one_line(tmp_path: Path) -> None:
     assert code == 2
     assert lines == [
         "chainyard: error: config: runs.cooling: sampler.walker: unknown key (check the "
-        "spelling; see `chainyard schema`); did you mean 'walkers'? allowed: walkers, steps, "
-        "moves, blobs, initial_positions, init_retries"
+        "spelling; see `chainyard schema`); did you mean 'walkers'? allowed: kind, walkers, "
+        "steps, moves, blobs, initial_positions, init_retries"
     ]
     assert not (folder / "results").exists()
 
@@ -51,7 +51,8 @@ def test_run_file_and_setting_mistakes_each_one_line(tmp_path: Path) -> None:
     assert lines == [
         "chainyard: error: config: sample_retry: unknown key (check the spelling; "
         "see `chainyard schema`); did you mean 'sample_retries'? allowed: runs, results, "
-        "sample_runtime_minutes, sample_mem_mb, sample_retries"
+        "sample_runtime_minutes, sample_mem_mb, sample_retries, "
+        "sample_threads"
     ]
     write = {"first": "runs/first.yaml", "second": inline}
     folder = make_workflow(tmp_path / "again", write)
