@@ -45,6 +45,10 @@ def test_window_equals_slicing(store: chainyard.Store, start: int, stop: int | N
     assert np.array_equal(w.log_prob(-5), store.log_prob()[start:end:factor][-5:])
     assert np.array_equal(w.accepted(1, 3), store.accepted()[start:end:factor][1:3])
     assert w.source is store and w.param_names == store.param_names
+    assert w.array_names() == store.array_names() and w.attrs == store.attrs
+    rows = store.read_rows("log_prob", 0, store.steps_done)[start:end:factor]
+    assert np.array_equal(w.read_rows("log_prob", 1, 6), rows[1:6])
+    assert np.array_equal(w.read_rows("log_prob", 0, w.steps_done, 2), rows[::2])
 
 
 def test_window_refuses_empty(store: chainyard.Store) -> None:

@@ -62,6 +62,12 @@ class StoreWindow:
         """The run configuration of the underlying store."""
         return self._store.config
 
+    @property
+    def attrs(self) -> dict[str, Any]:
+        """The underlying store's chainyard attributes (a copy): the window is a selection of
+        its steps, so the run's settings (e.g. the sampler kind) are the store's."""
+        return self._store.attrs
+
     def _span(self, start: int, stop: int | None) -> tuple[int, int]:
         a, b, _ = slice(start, stop).indices(self.steps_done)
         b = max(a, b)
@@ -77,6 +83,15 @@ class StoreWindow:
     ) -> NDArray[np.float64]:
         """One parameter, shape (steps, walkers)."""
         return self._pick(self._store.column(param, *self._span(start, stop)))
+
+    def array_names(self) -> tuple[str, ...]:
+        """Names (under ``draws/``) of every per-step array of the underlying store."""
+        return tuple(self._store.array_names())
+
+    def read_rows(self, name: str, start: int, stop: int, step: int = 1) -> NDArray[Any]:
+        """Window rows ``start:stop:step`` of any per-step array (e.g. a blob)."""
+        rows = self._pick(self._store.read_rows(name, *self._span(start, stop)))
+        return rows if step == 1 else rows[::step]
 
     def log_prob(self, start: int = 0, stop: int | None = None) -> NDArray[np.float64]:
         """Log-probabilities, shape (steps, walkers)."""
