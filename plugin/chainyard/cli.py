@@ -104,12 +104,20 @@ def _cmd_check(args: argparse.Namespace) -> int:
     _, log_prob, _, redraws = initial_state(config, model, 0)
     finite = log_prob[np.isfinite(log_prob)]
     seen = f"from {finite.min():.6g} to {finite.max():.6g}" if finite.size else "none finite"
-    again = f"; {redraws} walker(s) redrawn from -inf" if redraws else ""
+    kind = getattr(config.sampler, "kind", "ensemble")
+    unit = "walkers" if kind == "ensemble" else "chains"
+    again = f"; {redraws} {unit} redrawn from -inf" if redraws else ""
+    kernel = ""
+    if kind == "kernel":  # imported as sample would (a missing file or function: exit 2)
+        from chainyard.engine.kernel import load_kernel
+
+        load_kernel(config)
+        kernel = f"; kernel {config.sampler.kernel} loaded"
     print(
         f"{args.config}: valid ({len(config.parameters)} parameters, "
-        f"{config.sampler.walkers} walkers, {config.sampler.steps:,} steps); "
+        f"{config.sampler.walkers} {unit}, {config.sampler.steps:,} steps); "
         f"model evaluated at replica 0's {config.sampler.walkers} initial positions: "
-        f"log_prob {seen}{again}"
+        f"log_prob {seen}{again}{kernel}"
     )
     return 0
 

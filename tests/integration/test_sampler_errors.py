@@ -110,3 +110,24 @@ def test_kernel_non_finite_state_is_one_model_line(tmp_path: Path) -> None:
     line = _one_line(res, 3)
     assert "sampler.kernel k.py:step returned" in line and "at step 0, chain 0" in line
     assert "finite numbers" in line
+
+
+def test_check_loads_the_kernel(tmp_path: Path) -> None:
+    """``chainyard check`` imports the kernel as ``sample`` would: a good one is named in the
+    one-line report; a missing function is one line, exit 2, nothing written."""
+    kernel = "def sweep(state, rng, data):\n    return state + rng.normal(size=state.shape)\n"
+    sampler = {"kind": "kernel", "kernel": "gibbs.py:sweep", "chains": 4, "steps": 10}
+    cfg = write_run(
+        tmp_path,
+        {"model": {"log_prob": "model.py:log_prob"}, "parameters": PARAMS, "sampler": sampler,
+         "seed": 1},
+        GAUSS_MODEL,
+        files={"gibbs.py": kernel},
+    )
+    res = cli("check", str(cfg))
+    assert res.returncode == 0, res.stderr
+    assert "4 chains" in res.stdout and "kernel gibbs.py:sweep loaded" in res.stdout, res.stdout
+    (tmp_path / "gibbs.py").write_text(kernel.replace("def sweep", "def other"))
+    line = _one_line(cli("check", str(cfg)), 2)
+    assert "sampler.kernel" in line and "sweep" in line, line
+    assert sorted(p.name for p in tmp_path.iterdir() if p.suffix == ".zarr") == []
