@@ -260,13 +260,13 @@ def _positive_seconds(text: str) -> float:
 
 
 def _parser() -> argparse.ArgumentParser:
-    from chainyard import __version__
+    from chainyard.facts import chainyard_version
 
     parser = _Parser(
         prog="chainyard",
         description="Reproducible, resumable MCMC sampling steps for data pipelines.",
     )
-    parser.add_argument("--version", action="version", version=f"chainyard {__version__}")
+    parser.add_argument("--version", action="version", version=f"chainyard {chainyard_version()}")
     parser.add_argument("--traceback", action="store_true", help=_TRACEBACK_HELP)
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 

@@ -94,8 +94,7 @@ def _variable_attrs(store: Store) -> dict[str, dict[str, Any]]:
 
 def provenance_attrs(stores: Sequence[Store], selection: Selection) -> dict[str, Any]:
     """Root attributes: the provenance of every replica and the selection (JSON string)."""
-    import chainyard
-    from chainyard.provenance import utc_now
+    from chainyard.facts import chainyard_version, utc_now
     from chainyard.provenance.record import provenance_record
 
     body = {
@@ -116,7 +115,7 @@ def provenance_attrs(stores: Sequence[Store], selection: Selection) -> dict[str,
     return {
         "created_at": utc_now(),
         "creation_library": "chainyard",
-        "creation_library_version": chainyard.__version__,
+        "creation_library_version": chainyard_version(),
         "creation_library_language": "Python",
         "sampler": str(stores[0].attrs.get("identity", {}).get("sampler_kind", "")),
         "chainyard_selection": selection.description,

@@ -15,7 +15,7 @@ from typing import Any
 from numpy.typing import NDArray
 
 from chainyard.engine.buffer import update_checksums
-from chainyard.provenance import utc_now
+from chainyard.facts import utc_now
 from chainyard.store import Store
 from chainyard.testhooks import instant
 

@@ -22,9 +22,9 @@ from chainyard.engine.guards import check_deterministic
 from chainyard.engine.stopping import Interrupted, StopFlag
 from chainyard.engine.writer import Committer, process_writer_available
 from chainyard.errors import StoreError
+from chainyard.facts import host_record, software_versions, utc_now
 from chainyard.model import LoadedModel
 from chainyard.progress import Progress
-from chainyard.provenance import host_record, software_versions, utc_now
 from chainyard.store import Store
 from chainyard.store.layout import BLOB, LOG_PROB, POSITION
 

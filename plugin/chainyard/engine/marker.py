@@ -24,7 +24,7 @@ import socket
 from pathlib import Path
 from typing import Any
 
-from chainyard.provenance import utc_now
+from chainyard.facts import utc_now
 
 __all__ = ["marker_path", "previous_run_line", "read_marker", "remove_marker", "write_marker"]
 

@@ -56,9 +56,9 @@ from chainyard.errors import (
     StoreError,
     StoreLockedError,
 )
+from chainyard.facts import git_state, host_record, software_versions, utc_now
 from chainyard.model import LoadedModel, load_model
 from chainyard.progress import Progress
-from chainyard.provenance import git_state, host_record, software_versions, utc_now
 from chainyard.store import Store, StoreLock, writer_lock
 from chainyard.store.files import discard_folder, remove_discarded
 from chainyard.store.integrity import check_resume_base

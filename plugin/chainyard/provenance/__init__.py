@@ -1,7 +1,7 @@
 """Provenance: what produced a result, whether it is intact, and how to share it.
 
-This package's top level holds the facts recorded with every result (software versions, host,
-git state, timestamps) and imports nothing else from chainyard, so that every layer may use it.
+This package's top level re-exports the facts recorded with every result (software versions,
+host, git state, timestamps) from :mod:`chainyard.facts`, the lowest layer.
 The rest lives in submodules (imported on use):
 
 ``record``
@@ -22,84 +22,6 @@ The rest lives in submodules (imported on use):
 
 from __future__ import annotations
 
-import datetime as _dt
-import functools
-import os
-import platform
-import socket
-import subprocess
-import sys
-from importlib import metadata
-from pathlib import Path
-from typing import Any
+from chainyard.facts import git_state, host_record, software_versions, utc_now
 
 __all__ = ["git_state", "host_record", "software_versions", "utc_now"]
-
-_PACKAGES = (
-    "chainyard",
-    "numpy",
-    "emcee",
-    "zarr",
-    "numcodecs",
-    "pcodec",
-    "pydantic",
-    "prov",
-    "matplotlib",
-    "scipy",
-    "snakemake",
-)
-
-
-def utc_now() -> str:
-    """Current UTC time, ISO 8601 with seconds."""
-    return _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds").replace("+00:00", "Z")
-
-
-def software_versions() -> dict[str, str | None]:
-    """Python and package versions (None for a package that is not installed)."""
-    return dict(_software_versions())
-
-
-@functools.cache
-def _software_versions() -> dict[str, str | None]:
-    # read once per process: package metadata parsing costs ~15 ms a call
-    out: dict[str, str | None] = {"python": platform.python_version()}
-    for name in _PACKAGES:
-        try:
-            out[name] = metadata.version(name)
-        except metadata.PackageNotFoundError:
-            out[name] = None
-    return out
-
-
-def host_record() -> dict[str, Any]:
-    """Host name, platform and process id."""
-    return {
-        "host": socket.gethostname(),
-        "platform": platform.platform(),
-        "machine": platform.machine(),
-        "pid": os.getpid(),
-        "executable": sys.executable,
-    }
-
-
-def git_state(directory: Path) -> dict[str, Any] | None:
-    """Commit and dirty flag of the git work tree holding ``directory`` (None if not in one)."""
-    try:
-        commit = subprocess.run(
-            ["git", "-C", str(directory), "rev-parse", "HEAD"],
-            capture_output=True,
-            text=True,
-            timeout=10,
-            check=True,
-        ).stdout.strip()
-        dirty = subprocess.run(
-            ["git", "-C", str(directory), "status", "--porcelain", "--untracked-files=no"],
-            capture_output=True,
-            text=True,
-            timeout=10,
-            check=True,
-        ).stdout.strip()
-    except (OSError, subprocess.SubprocessError):
-        return None
-    return {"commit": commit, "dirty": bool(dirty)}

@@ -233,7 +233,7 @@ def read_output_record(path: Path) -> dict[str, Any]:
     """
     try:
         if path.suffix.lower() == ".png":
-            from chainyard.provenance.stamps import read_png_stamp
+            from chainyard.provenance.png_text import read_png_stamp
 
             rec: Any = read_png_stamp(path)
         else:

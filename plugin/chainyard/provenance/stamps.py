@@ -17,6 +17,7 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+from chainyard.provenance.png_text import PNG_KEY, read_png_stamp
 from chainyard.provenance.record import file_digest, stamp, store_digest
 from chainyard.store import Store
 from chainyard.store.files import atomic_write_json
@@ -31,7 +32,6 @@ __all__ = [
     "write_sidecar",
 ]
 
-PNG_KEY = "chainyard:provenance"
 SIDECAR_KIND = "chainyard.sidecar"
 
 
@@ -52,16 +52,6 @@ def png_metadata(inputs: Sequence[Store | Path]) -> dict[str, str]:
         "Software": f"chainyard {version}",
         PNG_KEY: json.dumps(block, sort_keys=True, separators=(",", ":")),
     }
-
-
-def read_png_stamp(path: Path) -> dict[str, Any] | None:
-    """The ``{"inputs", "provenance"}`` block a PNG carries (None if it has none)."""
-    from PIL import Image
-
-    with Image.open(path) as image:
-        text = getattr(image, "text", {}) or image.info
-        raw = text.get(PNG_KEY)
-    return json.loads(raw) if raw else None
 
 
 def sidecar_path(output: str | Path) -> Path:

@@ -33,7 +33,7 @@ from numpy.typing import NDArray
 
 from chainyard import limits
 from chainyard.errors import LimitExceededError, StoreError
-from chainyard.provenance import git_state, host_record, software_versions, utc_now
+from chainyard.facts import git_state, host_record, software_versions, utc_now
 from chainyard.store.chunks import ChunkEncoder
 from chainyard.store.faults import as_storage_fault, storage_faults
 from chainyard.store.files import atomic_write_json, discard_folder, stored_size
@@ -416,15 +416,6 @@ class Store(RowWriter):
         if name not in self.array_names():
             raise StoreError(f"{self.path}: no array {name!r}; stored: {self.array_names()}")
         return read(self, f"{DRAWS}/{name}", start, stop, step)
-
-    def to_datatree(self, *, raw: bool = False, burn_in_record: Any = None) -> Any:
-        """This store's draws as an ArviZ DataTree (:func:`chainyard.to_datatree`, one replica).
-
-        A derived store as it is; a sampled store needs ``burn_in_record`` or ``raw=True``.
-        """
-        from chainyard.analysis.export import to_datatree
-
-        return to_datatree(self, raw=raw, burn_in_record=burn_in_record)
 
     # ------------------------------------------------------------------ raw keys
     def read_bytes(self, key: str) -> bytes | None:
