@@ -97,6 +97,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
 
     from chainyard.config import load_config
     from chainyard.engine.initial import initial_state
+    from chainyard.engine.registry import sampler_kind
     from chainyard.model import load_model
 
     config = load_config(args.config)
@@ -104,15 +105,11 @@ def _cmd_check(args: argparse.Namespace) -> int:
     _, log_prob, _, redraws = initial_state(config, model, 0)
     finite = log_prob[np.isfinite(log_prob)]
     seen = f"from {finite.min():.6g} to {finite.max():.6g}" if finite.size else "none finite"
-    kind = getattr(config.sampler, "kind", "ensemble")
-    unit = "walkers" if kind == "ensemble" else "chains"
+    kind = sampler_kind(config.sampler.kind)
+    unit = kind.axis
     again = f"; {redraws} {unit} redrawn from -inf" if redraws else ""
-    kernel = ""
-    if kind == "kernel":  # imported as sample would (a missing file or function: exit 2)
-        from chainyard.engine.kernel import load_kernel
-
-        load_kernel(config)
-        kernel = f"; kernel {config.sampler.kernel} loaded"
+    note = kind.preflight(config)  # as sample does (a missing kernel file or function: exit 2)
+    kernel = f"; {note}" if note else ""
     print(
         f"{args.config}: valid ({len(config.parameters)} parameters, "
         f"{config.sampler.walkers} {unit}, {config.sampler.steps:,} steps); "

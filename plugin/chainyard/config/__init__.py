@@ -42,6 +42,7 @@ from chainyard.config.sections import (
     SAMPLER_KINDS,
     AcceptRejectSpec,
     AnySamplerSpec,
+    ChainSamplerSpec,
     DESnookerMove,
     DifferentialEvolutionMove,
     GaussianMove,
@@ -61,6 +62,7 @@ from chainyard.config.sections import (
     UniformInit,
     UniformSpec,
     WalkMove,
+    register_sampler_spec,
 )
 
 __all__ = [
@@ -69,6 +71,7 @@ __all__ = [
     "AcceptRejectSpec",
     "AnySamplerSpec",
     "BurnInSpec",
+    "ChainSamplerSpec",
     "CostAwareThinning",
     "DESnookerMove",
     "DefaultBurnIn",
@@ -108,5 +111,6 @@ __all__ = [
     "json_schema",
     "load_config",
     "parse_config",
+    "register_sampler_spec",
     "steps_key",
 ]

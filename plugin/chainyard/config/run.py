@@ -28,6 +28,7 @@ from chainyard.config.policies import (
 from chainyard.config.sections import (
     CODEC_MAX_LEVEL,
     NAME_PATTERN,
+    REGISTERED_TAG,
     SAMPLER_KINDS,
     AcceptRejectSpec,
     AnySamplerSpec,
@@ -330,7 +331,7 @@ def _kind_of(value: Any) -> Any:
 
 
 def _clean_loc(loc: tuple[int | str, ...]) -> str:
-    if len(loc) >= 2 and loc[0] == "sampler" and loc[1] in SAMPLER_KINDS:
+    if len(loc) >= 2 and loc[0] == "sampler" and loc[1] in (*SAMPLER_KINDS, REGISTERED_TAG):
         loc = (loc[0], *loc[2:])  # the kind tag pydantic puts into the path
     if len(loc) >= 2 and loc[0] in ("burn_in", "thinning") and loc[1] in _POLICY_TAGS:
         loc = (loc[0], *loc[2:])

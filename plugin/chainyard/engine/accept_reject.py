@@ -25,19 +25,22 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from chainyard.config import AcceptRejectSpec, NormalEnvelope
+from chainyard.config import AcceptRejectSpec, NormalEnvelope, RunConfig
 from chainyard.engine.chains import (
+    check_chain_states,
     fresh_chain_states,
     generator_from_json,
     generator_to_json,
 )
 from chainyard.engine.protocol import StepRows
+from chainyard.engine.registry import SamplerKind, register
 from chainyard.errors import ConfigError
 from chainyard.model import LoadedModel
 
 __all__ = [
     "BLOCK",
     "ENVELOPE_TOLERANCE",
+    "KIND",
     "PROPOSALS_BLOB",
     "AcceptRejectDriver",
     "Envelope",
@@ -235,3 +238,31 @@ class AcceptRejectDriver:
             "block": self._size,
             "chains": chains,
         }
+
+
+def _make_driver(
+    config: RunConfig,
+    model: LoadedModel,
+    position: NDArray[np.float64],
+    log_prob: NDArray[np.float64],
+    blobs: NDArray[np.float64],
+    random_state: dict[str, Any],
+    step: int,
+) -> AcceptRejectDriver:
+    return AcceptRejectDriver(model, config.sampler, random_state, position.shape[0])
+
+
+KIND = register(
+    SamplerKind(
+        name="accept_reject",
+        identity=AcceptRejectDriver.kind,
+        axis="chains",
+        independent_draws=True,
+        engine_blobs=(PROPOSALS_BLOB,),
+        initial_random_state=lambda config, replica: initial_accept_reject_state(
+            config.sampler, config.seed, replica
+        ),
+        make_driver=_make_driver,
+        check_random_state=check_chain_states,
+    )
+)

@@ -21,6 +21,7 @@ from chainyard.streams import SAMPLER_STREAM, spawn_key
 
 __all__ = [
     "chain_generators",
+    "check_chain_states",
     "fresh_chain_states",
     "generator_from_json",
     "generator_to_json",
@@ -79,3 +80,12 @@ def generators_from_json(data: Any, chains: int) -> list[np.random.Generator]:
     if not isinstance(data, list) or len(data) != chains:
         raise ValueError(f"malformed chain random states: expected a list of {chains}")
     return [generator_from_json(item) for item in data]
+
+
+def check_chain_states(record: Any) -> None:
+    """Raise ValueError if a chain kind's stored random-state record is malformed."""
+    chains = record.get("chains") if isinstance(record, dict) else None
+    if not isinstance(chains, list) or not chains:
+        raise ValueError("malformed chain random states: expected a list")
+    for item in chains:
+        generator_from_json(item.get("block_start", item) if isinstance(item, dict) else None)

@@ -23,15 +23,22 @@ from chainyard.config import (
     DifferentialEvolutionMove,
     GaussianMove,
     MoveSpec,
+    RunConfig,
     StretchMove,
     WalkMove,
 )
 from chainyard.engine.protocol import StepRows
+from chainyard.engine.registry import SamplerKind, register
 from chainyard.errors import ConfigError, ModelError
 from chainyard.model import LoadedModel
-from chainyard.streams import random_state_from_json, random_state_to_json, states_equal
+from chainyard.streams import (
+    random_state_from_json,
+    random_state_to_json,
+    sampler_random_state,
+    states_equal,
+)
 
-__all__ = ["EnsembleDriver", "build_moves"]
+__all__ = ["KIND", "EnsembleDriver", "build_moves"]
 
 _NO_BLOBS = np.empty((0, 0))
 
@@ -209,3 +216,39 @@ class EnsembleDriver:
     def random_state(self) -> dict[str, Any]:
         """The sampler's current RNG state as JSON values."""
         return random_state_to_json(self._rng.get_state())
+
+
+def _initial_random_state(config: RunConfig, replica: int) -> dict[str, Any]:
+    return random_state_to_json(sampler_random_state(config.seed, replica).get_state())
+
+
+def _make_driver(
+    config: RunConfig,
+    model: LoadedModel,
+    position: NDArray[np.float64],
+    log_prob: NDArray[np.float64],
+    blobs: NDArray[np.float64],
+    random_state: dict[str, Any],
+    step: int,
+) -> EnsembleDriver:
+    return EnsembleDriver(
+        model, config.sampler.moves, position, log_prob, blobs, random_state, check_start=step == 0
+    )
+
+
+def _check_random_state(record: Any) -> None:
+    random_state_from_json(record or {})  # raises ValueError if malformed
+
+
+KIND = register(
+    SamplerKind(
+        name="ensemble",
+        identity=EnsembleDriver.kind,
+        axis="walkers",
+        independent_draws=False,
+        engine_blobs=(),
+        initial_random_state=_initial_random_state,
+        make_driver=_make_driver,
+        check_random_state=_check_random_state,
+    )
+)

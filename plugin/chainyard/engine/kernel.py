@@ -23,17 +23,19 @@ from numpy.typing import NDArray
 
 from chainyard.config import KernelSpec, RunConfig
 from chainyard.engine.chains import (
+    check_chain_states,
     fresh_chain_states,
     generator_from_json,
     generator_to_json,
     generators_from_json,
 )
 from chainyard.engine.protocol import StepRows
+from chainyard.engine.registry import SamplerKind, register
 from chainyard.errors import ConfigError, ModelError
 from chainyard.evaluator import _is_real_ctrl_c, _is_stop_signal, describe_exception
 from chainyard.model import LoadedModel, load_function
 
-__all__ = ["CHECK_STEPS", "KernelDriver", "initial_kernel_state", "load_kernel"]
+__all__ = ["CHECK_STEPS", "KIND", "KernelDriver", "initial_kernel_state", "load_kernel"]
 
 #: steps of chain 0 taken again at the first commit to check the kernel's randomness
 CHECK_STEPS = 3
@@ -218,3 +220,39 @@ class KernelDriver:
             "bit_generator": "PCG64",
             "chains": [generator_to_json(g) for g in self._gens],
         }
+
+
+def _make_driver(
+    config: RunConfig,
+    model: LoadedModel,
+    position: NDArray[np.float64],
+    log_prob: NDArray[np.float64],
+    blobs: NDArray[np.float64],
+    random_state: dict[str, Any],
+    step: int,
+) -> KernelDriver:
+    return KernelDriver(
+        model, load_kernel(config), config.sampler, position, log_prob, random_state, step
+    )
+
+
+def _preflight(config: RunConfig) -> str:
+    load_kernel(config)  # a missing file or function: exit 2 before anything is written
+    return f"kernel {config.sampler.kernel} loaded"
+
+
+KIND = register(
+    SamplerKind(
+        name="kernel",
+        identity=KernelDriver.kind,
+        axis="chains",
+        independent_draws=False,
+        engine_blobs=(),
+        initial_random_state=lambda config, replica: initial_kernel_state(
+            config.sampler, config.seed, replica
+        ),
+        make_driver=_make_driver,
+        check_random_state=check_chain_states,
+        preflight=_preflight,
+    )
+)

@@ -27,14 +27,21 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from chainyard.config import MetropolisSpec
-from chainyard.engine.chains import fresh_chain_states, generator_to_json, generators_from_json
+from chainyard.config import MetropolisSpec, RunConfig
+from chainyard.engine.chains import (
+    check_chain_states,
+    fresh_chain_states,
+    generator_to_json,
+    generators_from_json,
+)
 from chainyard.engine.protocol import StepRows
+from chainyard.engine.registry import SamplerKind, register
 from chainyard.errors import ModelError
 from chainyard.model import LoadedModel
 
 __all__ = [
     "ADAPT_WINDOW",
+    "KIND",
     "MetropolisDriver",
     "accepts",
     "block_steps",
@@ -227,3 +234,33 @@ class MetropolisDriver:
                 else f"adaptation runs until step {self._adapt_steps:,}",
             },
         }
+
+
+def _make_driver(
+    config: RunConfig,
+    model: LoadedModel,
+    position: NDArray[np.float64],
+    log_prob: NDArray[np.float64],
+    blobs: NDArray[np.float64],
+    random_state: dict[str, Any],
+    step: int,
+) -> MetropolisDriver:
+    spec = config.sampler
+    n_model = len(spec.blobs)
+    return MetropolisDriver(model, spec, position, log_prob, blobs[:, :n_model], random_state, step)
+
+
+KIND = register(
+    SamplerKind(
+        name="metropolis_hastings",
+        identity=MetropolisDriver.kind,
+        axis="chains",
+        independent_draws=False,
+        engine_blobs=(),
+        initial_random_state=lambda config, replica: initial_metropolis_state(
+            config.sampler, config.seed, replica
+        ),
+        make_driver=_make_driver,
+        check_random_state=check_chain_states,
+    )
+)

@@ -28,7 +28,7 @@ from typing import Any, TextIO
 
 import numpy as np
 
-from chainyard.config import KernelSpec, RunConfig, config_hash, steps_key
+from chainyard.config import RunConfig, config_hash, steps_key
 from chainyard.engine.drivers import (
     driver_kind,
     engine_blob_names,
@@ -47,6 +47,7 @@ from chainyard.engine.initial import initial_state
 from chainyard.engine.loop import advance
 from chainyard.engine.marker import previous_run_line, read_marker, remove_marker, write_marker
 from chainyard.engine.pool import worker_pool
+from chainyard.engine.registry import sampler_kind
 from chainyard.engine.stopping import Interrupted, StopFlag, stop_on_signals
 from chainyard.errors import (
     ChainyardError,
@@ -154,10 +155,7 @@ def sample(
     except ConfigError as exc:
         raise exc.located(config.source) from None
     identity = run_identity(config, replica, driver_kind(config))
-    if isinstance(config.sampler, KernelSpec):
-        from chainyard.engine.kernel import load_kernel
-
-        load_kernel(config)  # a missing or broken kernel is refused before anything is written
+    sampler_kind(config.sampler.kind).preflight(config)  # e.g. a user kernel is imported
     label = f"{path.name}"
     say = Progress(1, 0, mode="log", stream=stream, label=label).message
     if not restart and _complete_read_only(config, path, identity, say):
