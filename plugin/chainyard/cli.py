@@ -230,19 +230,23 @@ def _int_at_least(low: int) -> Callable[[str], int]:
 
 
 def _workers(text: str) -> int | str:
-    """An argparse type: a whole number >= 1 or ``auto``."""
+    """An argparse type: a whole number >= 1, ``auto`` or ``dask://[HOST:PORT]``."""
     if text.strip().lower() == "auto":
         return "auto"
+    if text.strip().lower().startswith("dask://"):
+        return text.strip()
     try:
         value = int(text)
     except ValueError:
         value = 0
     if value < 1:
-        raise argparse.ArgumentTypeError(f"must be a whole number >= 1 or auto, got {text!r}")
+        raise argparse.ArgumentTypeError(
+            f"must be a whole number >= 1, auto or dask://HOST:PORT, got {text!r}"
+        )
     return value
 
 
-_workers.__name__ = "N or auto"
+_workers.__name__ = "N, auto or dask://HOST:PORT"
 
 
 def _positive_seconds(text: str) -> float:
@@ -307,10 +311,11 @@ def _parser() -> argparse.ArgumentParser:
         "--workers",
         type=_workers,
         default=1,
-        metavar="N|auto",
+        metavar="N|auto|dask://HOST:PORT",
         help="worker processes evaluating the walkers' log-probabilities (default 1: this "
-        "process); auto: up to --cpus, only where timing the first model calls shows it pays. "
-        "The draws are the same for any count",
+        "process); auto: up to --cpus, only where timing the first model calls shows it pays; "
+        "dask://HOST:PORT (or dask:// with DASK_SCHEDULER_ADDRESS): the workers of a running "
+        "Dask cluster. The draws are the same for any count",
     )
     p.add_argument(
         "--cpus",

@@ -132,6 +132,8 @@ class WorkerPool:
         Writes one log line.
     make_executor : callable, optional
         ``make_executor(workers, threads) -> Executor`` (default: local processes).
+    where : str, optional
+        Where the workers run, for the log (default: local worker processes).
     """
 
     def __init__(
@@ -143,8 +145,10 @@ class WorkerPool:
         steps: int,
         say: Callable[[str], None],
         make_executor: Callable[[int, int], Executor] = ProcessExecutor,
+        where: str | None = None,
     ) -> None:
         self.spec = spec
+        self.where = where
         self.size = workers if workers is not None else cpus
         self.threads = max(1, cpus // self.size)
         self.walkers = walkers
@@ -232,7 +236,9 @@ class WorkerPool:
         self.executor = executor
         self.mode = "pooled"
         self.say(
-            f"evaluating the model in {self.size} worker processes "
+            f"evaluating the model {self.where}"
+            if self.where
+            else f"evaluating the model in {self.size} worker processes "
             f"(BLAS/OpenMP threads capped at {self.threads} per worker)"
         )
 
@@ -257,14 +263,40 @@ def worker_pool(
 
     Workers start at the first call that needs them and stop when the block ends, however
     it ends (the workers also die with this process, see :mod:`chainyard.engine.processes`).
+    ``workers="dask://HOST:PORT"`` (or ``"dask://"``, the address from
+    ``DASK_SCHEDULER_ADDRESS``) evaluates on the workers of an existing Dask cluster
+    (:mod:`chainyard.engine.dask_executor`).
     """
+    spec = WorkerSpec(config.normalised(), str(config.base_dir), config.source)
+    if isinstance(workers, str) and workers.strip().lower().startswith("dask://"):
+        from chainyard.engine.dask_executor import DaskExecutor, scheduler_address
+
+        executor = DaskExecutor(scheduler_address(workers))
+        size = executor.connect()
+        pool = WorkerPool(
+            spec,
+            size,
+            size,
+            config.sampler.walkers,
+            config.sampler.steps,
+            say,
+            make_executor=lambda _size, _threads: executor,
+            where=f"on the Dask cluster at {executor.address} ({size} workers)",
+        )
+        model.parallel = pool
+        try:
+            yield
+        finally:
+            model.parallel = None
+            pool.close()
+            executor.close()
+        return
     count = parse_workers(workers)
     if count == 1:
         yield
         return
     if cpus is not None and (isinstance(cpus, bool) or not isinstance(cpus, int) or cpus < 1):
         raise ConfigError(f"cpus: must be a whole number >= 1, got {cpus!r}")
-    spec = WorkerSpec(config.normalised(), str(config.base_dir), config.source)
     pool = WorkerPool(
         spec,
         count,
