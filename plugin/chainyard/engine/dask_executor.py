@@ -218,7 +218,5 @@ class DaskExecutor:
         """Disconnect from the cluster (the cluster itself keeps running)."""
         client, self._client = self._client, None
         if client is not None:
-            try:
+            with contextlib.suppress(Exception):  # closing a client of a lost cluster
                 client.close(timeout=5)
-            except Exception:
-                pass
