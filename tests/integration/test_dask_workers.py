@@ -82,7 +82,7 @@ def cluster() -> Iterator[Cluster]:
         c.kill()
 
 
-def _run(folder: Path, steps: int = 300) -> Path:
+def _run(folder: Path, steps: int = 100) -> Path:
     config = base_config(
         storage={"chunk_steps": 50, "commit_every_steps": 25, "commit_every_seconds": 0.2}
     )
@@ -133,7 +133,7 @@ def test_dask_workers_give_the_serial_draws(tmp_path: Path, cluster: Cluster) ->
 
 
 def test_a_worker_killed_mid_run_changes_no_draw(tmp_path: Path, cluster: Cluster) -> None:
-    config = _run(tmp_path)
+    config = _run(tmp_path, steps=150)
     out = tmp_path / "dask.zarr"
     proc = _popen("sample", str(config), "--out", str(out), "--workers", cluster.url)
     _wait_for_commit(out, proc)
@@ -147,7 +147,7 @@ def test_a_worker_killed_mid_run_changes_no_draw(tmp_path: Path, cluster: Cluste
 def test_a_lost_cluster_ends_in_one_line_and_resumes_exactly(
     tmp_path: Path, cluster: Cluster
 ) -> None:
-    config = _run(tmp_path, steps=600)
+    config = _run(tmp_path, steps=200)
     out = tmp_path / "dask.zarr"
     proc = _popen("sample", str(config), "--out", str(out), "--workers", cluster.url)
     _wait_for_commit(out, proc)

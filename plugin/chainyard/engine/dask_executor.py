@@ -19,6 +19,7 @@ Needs the ``distributed`` package (``pip install 'chainyard[dask]'``).
 from __future__ import annotations
 
 import contextlib
+import logging
 import os
 import time
 from typing import Any
@@ -144,6 +145,8 @@ class DaskExecutor:
                 "--workers dask://... needs the 'distributed' package: "
                 "pip install 'chainyard[dask]'"
             ) from None
+        # Dask logs its own tracebacks when a cluster goes away; the run reports one line
+        logging.getLogger("distributed").setLevel(logging.CRITICAL)
         try:
             self._client = Client(self.address, timeout=CONNECT_SECONDS, set_as_default=False)
             self._client.wait_for_workers(1, timeout=CONNECT_SECONDS)
@@ -190,6 +193,8 @@ class DaskExecutor:
             raise
         except Exception as exc:  # scheduler gone, task given up (KilledWorker), ...
             text = str(exc).splitlines()[0][:200] if str(exc) else "lost"
+            if "scheduler-connection-lost" in text or client.status != "running":
+                text = "the connection to the scheduler was lost"
             raise ModelError(
                 f"Dask cluster at {self.address}: {type(exc).__name__}: {text}; the run "
                 "stopped at its last commit (rerun the same command to resume)"
