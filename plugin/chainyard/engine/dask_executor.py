@@ -146,7 +146,9 @@ class DaskExecutor:
                 "pip install 'chainyard[dask]'"
             ) from None
         # Dask logs its own tracebacks when a cluster goes away; the run reports one line
-        logging.getLogger("distributed").setLevel(logging.CRITICAL)
+        for name in [*logging.root.manager.loggerDict, "distributed"]:
+            if name == "distributed" or name.startswith("distributed."):
+                logging.getLogger(name).setLevel(logging.CRITICAL + 1)
         try:
             self._client = Client(self.address, timeout=CONNECT_SECONDS, set_as_default=False)
             self._client.wait_for_workers(1, timeout=CONNECT_SECONDS)
