@@ -149,6 +149,12 @@ def sample(
         SIGTERM/SIGINT: the finished steps were committed (or, if a step was still running
         ``STOP_GRACE_SECONDS`` after the signal, the run stopped without it).
     """
+    if str(store_path).startswith("s3:/"):
+        raise ConfigError(
+            f"--out {store_path}: sample writes local stores only (object storage has no atomic "
+            "rename or lock for its commits); sample to a local path, then `chainyard publish "
+            "STORE s3://BUCKET/PATH`"
+        )
     path = Path(store_path)
     try:
         model = load_model(config)

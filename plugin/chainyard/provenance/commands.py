@@ -211,3 +211,17 @@ def add_commands(sub: Any) -> None:
     p.add_argument("target", help="store, packed store or JSON record")
     p.add_argument("--out", "-o", default=None, help="write to this file instead")
     p.set_defaults(func=_cmd_export_prov)
+
+    p = sub.add_parser(
+        "publish", help="copy a finished store or pack to object storage, verified there"
+    )
+    p.add_argument("store", help="local store directory or packed store (.zip)")
+    p.add_argument("destination", help="s3://BUCKET/PATH (a path that holds no objects yet)")
+    p.set_defaults(func=_cmd_publish)
+
+
+def _cmd_publish(args: argparse.Namespace) -> int:
+    from chainyard.provenance.publish import publish
+
+    print(publish(args.store, args.destination))
+    return 0

@@ -128,6 +128,14 @@ class Store(RowWriter):
             If the path is missing or is not a readable, undamaged chainyard store (one line
             naming the file and the field).
         """
+        from chainyard.store.remote import is_remote
+
+        if is_remote(path):  # a store or pack in object storage: read through a local copy
+            if writable:
+                raise StoreError(f"{path}: a store in object storage is read-only here")
+            from chainyard.store.remote import local_copy
+
+            path = local_copy(path)
         path = Path(path)
         if not path.exists():
             raise StoreError(f"{path}: store not found")
