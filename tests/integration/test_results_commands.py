@@ -337,11 +337,11 @@ def test_python_api_matches_the_export(run: Path) -> None:
         [run / "r0.zarr", run / "r1.zarr"], burn_in_record=run / "burn_in.json"
     )
     assert np.array_equal(tree["posterior"]["zeta"].values, _expected_chains(run, "zeta"))
-    one = chainyard.open_store(run / "t1.zarr").to_datatree()
+    one = chainyard.to_datatree(chainyard.open_store(run / "t1.zarr"))
     assert list(one["posterior"]["replica"].values) == [1] * 8
     assert np.array_equal(one["posterior"]["zeta"].values, _expected_chains(run, "zeta")[8:])
     with pytest.raises(chainyard.StoreError, match="--raw"):
-        chainyard.open_store(run / "r0.zarr").to_datatree()
+        chainyard.to_datatree(chainyard.open_store(run / "r0.zarr"))
 
 
 def test_trace_panel_texts_do_not_overlap(run: Path) -> None:
