@@ -147,7 +147,7 @@ def _chunk(store: Store, node: str, index: int, checked: bool) -> NDArray[Any]:
     """Chunk ``index`` of ``node`` decoded (full chunk shape), checked if ``checked``."""
     lay = _layout(store, node)
     per_step = node.startswith("draws/")
-    n = store.steps_done
+    n = int(store._commit.get("steps_done", 0))  # no record yet while a store is created
     size = lay.shape[0]
     lo, hi = index * size, (index + 1) * size
     committed = lo < n if per_step else True
