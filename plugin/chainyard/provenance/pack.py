@@ -272,8 +272,8 @@ def pack_store(
     check_output(store.path, out)
     files = dict(_store_files(store))
     report = verify_store(store, chain=False)
-    if not report.ok:
-        raise VerificationError(
+    if not report.ok:  # a damaged store (exit 4, as every reader refuses one)
+        raise StoreError(
             f"{store.path}: fails verification ({len(report.problems)} problem(s); first: "
             f"{report.problems[0]}); see `chainyard verify`"
         )
