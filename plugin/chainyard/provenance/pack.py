@@ -152,16 +152,19 @@ def _store_files(store: Store) -> list[tuple[str, Path]]:
     refused = [
         (
             found.links,
-            "is a symbolic link inside the store; pack ships no links (copy what it "
-            "points to into the store, or remove it)",
+            "symbolic link(s) inside the store; pack ships no links (copy what they "
+            "point to into the store, or remove them)",
         ),
-        (found.special, "is not a regular file; remove it"),
-        (found.unknown, "was not written by chainyard; remove it or move it out of the store"),
+        (found.special, "special file(s) (FIFO, device or socket); remove them"),
+        (
+            found.unknown,
+            "file(s) not written by chainyard; remove them or move them out of the store",
+        ),
     ]
     for names, why in refused:
         if names:
-            more = f" (and {len(names) - 1} more: see `chainyard verify`)" if len(names) > 1 else ""
-            raise UnsafeInputError(f"{store.path}/{names[0]}: {why}{more}; nothing was packed")
+            shown = ", ".join(names[:5]) + (f" and {len(names) - 5} more" if len(names) > 5 else "")
+            raise UnsafeInputError(f"{store.path}: {shown}: {why}; nothing was packed")
     return [(n, store.path / n) for n in found.known if not n.startswith("pack/")]
 
 
