@@ -441,3 +441,22 @@ def test_tolerated_files_do_not_fail_verify(runs: Path, tmp_path: Path) -> None:
     with zipfile.ZipFile(tmp_path / "s.zip") as z:
         names = z.namelist()
     assert not [n for n in names if "snakemake" in n or n.endswith(".partial")], names
+
+
+@pytest.mark.slow
+def test_derive_api_refuses_damaged_source(runs: Path, tmp_path: Path, tally: Tally) -> None:
+    """``derive_store`` (what ``derive`` and the workflow's standalone step call) refuses a
+    source with a flipped byte: StoreError naming the chunk, no output, source unchanged.
+    Before: the damage was sealed into a derived store that then verified."""
+    from chainyard.analysis.derive import derive_store
+    from chainyard.errors import StoreError
+    from chainyard.store import Store
+
+    store = copy_store(runs, "none.zarr", tmp_path)
+    flip_byte(store)
+    before = snapshot(store)
+    with pytest.raises(StoreError, match=r"draws/position chunk 1 \(steps 100-199\) does not"):
+        derive_store(Store.open(store), tmp_path / "d.zarr", discard=50, factor=2)
+    assert not (tmp_path / "d.zarr").exists()
+    tally.assert_intact(before, store, "derive_store")
+    tally.input()
