@@ -298,6 +298,7 @@ def test_decompression_bombs_are_refused_with_bounded_memory(
             continue
         check_refused(run, f"{case}: {command}", 7 if command == "verify" else 4, f"{POS} chunk 1")
         intact = got[(case, f"intact {command}")].rss_mib
+        print(f"{case}: {command}: peak RSS intact {intact:.0f} MiB, bomb {run.rss_mib:.0f} MiB")
         assert run.rss_mib < intact + RSS_SLACK_MIB, (case, command, intact, run.rss_mib)
         tally.input()
 
@@ -330,6 +331,7 @@ def test_decompression_bomb_in_a_pack(runs: Path, tmp_path: Path, tally: Tally) 
             continue
         check_refused(run, f"pack: {command}", 7 if command == "verify" else 4, f"{POS} chunk 1")
         intact = got[("intact", command)].rss_mib
+        print(f"pack: {command}: peak RSS intact {intact:.0f} MiB, bomb {run.rss_mib:.0f} MiB")
         assert run.rss_mib < intact + RSS_SLACK_MIB, (command, intact, run.rss_mib)
         tally.input()
 
