@@ -108,7 +108,7 @@ def swap_chunks(store: Path) -> None:
 def steps_done_up(store: Path) -> None:
     """``steps_done`` edited up to the 300 steps allocated (from fewer)."""
     record = json.loads((store / "commit.json").read_text())
-    assert record["steps_done"] < 300
+    assert record["steps_done"] < 300 and (store / pos_chunk(2)).is_file()
     record["steps_done"] = 300
     (store / "commit.json").write_text(json.dumps(record))
 
@@ -117,7 +117,7 @@ def steps_done_up(store: Path) -> None:
 @pytest.fixture(scope="module")
 def runs(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """One complete store per codec (``none``, ``zstd``, ``blosc_zstd``, ``pcodec``), a store of
-    the ``none`` codec killed after its second commit (fewer than 300 steps), a burn-in record
+    the ``none`` codec killed before its third commit (rows past the commit), a burn-in record
     and a pack of the zstd store."""
     root = tmp_path_factory.mktemp("integrity")
     for codec in ("none", "zstd", "blosc_zstd", "pcodec"):
@@ -128,7 +128,9 @@ def runs(tmp_path_factory: pytest.TempPathFactory) -> Path:
         config = write_run(root, cfg, name=f"{codec}.yaml")
         res = cli("sample", str(config), "--out", f"{codec}.zarr", "--progress", "off", cwd=root)
         assert res.returncode == 0, res.stderr
-    env = {"CHAINYARD_TEST_KILL_AT": "commit-replaced:2"}
+    # killed after writing the rows of its third commit, before the commit point: 200 steps
+    # committed and the rows of steps 200-299 on disk (what an upward edit would expose)
+    env = {"CHAINYARD_TEST_KILL_AT": "chunks-written:3"}
     res = cli(
         "sample", "none.yaml", "--out", "partial.zarr", "--progress", "off", cwd=root, env=env
     )
