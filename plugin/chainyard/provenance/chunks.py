@@ -109,7 +109,7 @@ def check_chunks(store: Store) -> tuple[list[Finding], int]:
             data = _read_chunk_file(store, key)
             error, rows_ok = None, None
             try:
-                rows = store.read_rows(name, lo, hi)
+                rows = store.read_rows(name, lo, hi, checked=False)
                 rows_ok = bool(want_rows) and chunk_checksum(rows) == want_rows[0]
             except Exception as exc:  # any codec failure is a corrupt chunk, not a crash
                 error = _decode_error(exc)
@@ -149,7 +149,7 @@ def check_start(store: Store) -> list[Finding]:
         data = _read_chunk_file(store, key)
         error, rows_ok = None, None
         try:
-            rows_ok = chunk_checksum(store.start_array(name)) == want.get("rows")
+            rows_ok = chunk_checksum(store.start_array(name, checked=False)) == want.get("rows")
         except Exception as exc:
             error = _decode_error(exc)
         verdict = _judge(data, want.get("file"), rows_ok, error, partial=False)

@@ -12,10 +12,12 @@ for byte), so :func:`chainyard.open_store` reads it directly, plus a folder ``pa
                                recorded, ``..`` written as ``__up__``)
     pack/records/N-NAME.json   decision and diagnostics records
 
-Packing refuses a store that fails verification, or whose model or data files no longer
-match their recorded hashes (``include_sources=False`` leaves them out), and an output that is
-the store itself, inside it or inside any other store, an existing folder, or an existing file
-that is not a chainyard pack (an existing pack is replaced atomically). Every reader applies
+Packing refuses a store holding a symbolic link, a special file or a file chainyard did not
+write (exit 4; see :mod:`chainyard.store.contents`), a store that fails verification, or whose
+model or data files no longer match their recorded hashes (``include_sources=False`` leaves
+them out), and an output that is the store itself, inside it or inside any other store, an
+existing folder, or an existing file that is not a chainyard pack (an existing pack is
+replaced atomically). Every reader applies
 the safety rules of :func:`chainyard.store.packed.open_pack` first; unpacking then copies each
 member in blocks, checking it against the manifest.
 """
@@ -40,6 +42,7 @@ from chainyard.provenance.checks import Finding
 from chainyard.provenance.chunks import is_file_reference
 from chainyard.provenance.record import file_digest, provenance_record, store_digest
 from chainyard.store import Store
+from chainyard.store.contents import scan_store
 from chainyard.store.files import iter_stored, read_stored, stored_size
 from chainyard.store.layout import COMMIT_FILE
 from chainyard.store.packed import (
@@ -143,16 +146,26 @@ def _records(store: Store, extra: Sequence[str | Path]) -> list[tuple[dict[str, 
 
 
 def _store_files(store: Store) -> list[tuple[str, Path]]:
-    out = []
-    for root, dirs, files in os.walk(store.path):
-        rel = Path(root).relative_to(store.path)
-        if rel.parts[:1] == ("pack",):
-            continue
-        dirs.sort()
-        for f in sorted(files):
-            if not f.endswith((".tmp", ".partial", ".lock")):
-                out.append(((rel / f).as_posix(), Path(root) / f))
-    return out
+    """The store's own files to pack (relative name, path), after refusing what it must not
+    ship: symbolic links, special files and files chainyard did not write (exit 4)."""
+    found = scan_store(store)
+    refused = [
+        (
+            found.links,
+            "symbolic link(s) inside the store; pack ships no links (copy what they "
+            "point to into the store, or remove them)",
+        ),
+        (found.special, "special file(s) (FIFO, device or socket); remove them"),
+        (
+            found.unknown,
+            "file(s) not written by chainyard; remove them or move them out of the store",
+        ),
+    ]
+    for names, why in refused:
+        if names:
+            shown = ", ".join(names[:5]) + (f" and {len(names) - 5} more" if len(names) > 5 else "")
+            raise UnsafeInputError(f"{store.path}: {shown}: {why}; nothing was packed")
+    return [(n, store.path / n) for n in found.known if not n.startswith("pack/")]
 
 
 def _is_store_dir(path: Path) -> bool:
@@ -260,9 +273,10 @@ def pack_store(
         raise StoreError(f"{store.path}: is already a packed store")
     out = Path(out)
     check_output(store.path, out)
+    files = dict(_store_files(store))
     report = verify_store(store, chain=False)
-    if not report.ok:
-        raise VerificationError(
+    if not report.ok:  # a damaged store (exit 4, as every reader refuses one)
+        raise StoreError(
             f"{store.path}: fails verification ({len(report.problems)} problem(s); first: "
             f"{report.problems[0]}); see `chainyard verify`"
         )
@@ -276,7 +290,6 @@ def pack_store(
     recs = _records(store, records)
     for entry, data in [*sources, *recs]:
         extras[entry["member"]] = data
-    files = dict(_store_files(store))
     listing = {n: {"sha256": _sha(d), "size": len(d)} for n, d in extras.items()}
     for name, path in files.items():
         sha, size = _copy_hashed(path, None)

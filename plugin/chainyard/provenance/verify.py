@@ -10,7 +10,10 @@ named in the metadata; it never imports or executes anything from the store. It 
   a derived store's source store and decision records match their recorded content hashes
   (where they are found);
 * every committed **chunk** of every array, and the start state: stored bytes (BLAKE2b of
-  the chunk file) and decoded rows (BLAKE2b of the values), naming array, chunk and steps.
+  the chunk file) and decoded rows (BLAKE2b of the values), naming array, chunk and steps;
+* the **files** inside the store (:mod:`chainyard.store.contents`): a file chainyard did not
+  write, a symbolic link or a special file is a problem (each listed, up to
+  :data:`MAX_LISTED`); leftover temporary files are a note.
 """
 
 from __future__ import annotations
@@ -26,9 +29,18 @@ from chainyard.provenance.checks import Finding, check_consistency, check_counte
 from chainyard.provenance.chunks import check_chain, check_chunks, check_input, check_start
 from chainyard.provenance.pack import check_pack
 from chainyard.store import Store
+from chainyard.store.contents import scan_store
 from chainyard.store.packed import UnsafeMemberError
 
-__all__ = ["DAMAGE", "Finding", "VerifyReport", "describe_damage", "verify", "verify_metadata"]
+__all__ = [
+    "DAMAGE",
+    "Finding",
+    "VerifyReport",
+    "check_files",
+    "describe_damage",
+    "verify",
+    "verify_metadata",
+]
 
 
 @dataclass
@@ -111,6 +123,34 @@ def _guarded(where: str, check: Callable[[Store], list[Finding]], store: Store) 
         return [Finding("problem", where, f"malformed metadata ({describe_damage(exc)})")]
 
 
+#: most files of one kind listed by name in a report (the rest are counted)
+MAX_LISTED = 20
+
+
+def _listed(level: str, names: list[str], message: str) -> list[Finding]:
+    out = [Finding(level, name, message) for name in names[:MAX_LISTED]]
+    if len(names) > MAX_LISTED:
+        out.append(Finding(level, f"{len(names) - MAX_LISTED} more", message))
+    return out
+
+
+def check_files(store: Store) -> list[Finding]:
+    """Files inside the store that chainyard did not write, links and special files."""
+    found = scan_store(store)
+    out = _listed(
+        "problem",
+        found.links,
+        "symbolic link inside the store (chainyard writes none; pack refuses it)",
+    )
+    out += _listed("problem", found.special, "not a regular file (FIFO, device or socket)")
+    out += _listed("problem", found.unknown, "unknown file: not written by chainyard")
+    leftovers = [n for n in found.tolerated if not n.endswith("snakemake_timestamp")]
+    out += _listed("note", leftovers, "temporary file left by an interrupted write (not packed)")
+    if not [f for f in out if f.level == "problem"]:
+        out.append(Finding("ok", "files", f"{len(found.known)} file(s), all written by chainyard"))
+    return out
+
+
 def _kind_of(store: Store) -> str:
     try:
         return _kind(store)
@@ -143,6 +183,7 @@ def verify_store(store: Store, *, chain: bool = True) -> VerifyReport:
             ]
         report.findings += findings
     report.findings += _guarded("start (start-state arrays)", check_start, store)
+    report.findings += _guarded("files (inside the store)", check_files, store)
     report.findings += _guarded("pack (pack/manifest.json)", check_pack, store)
     if chain:
         report.findings += _guarded("inputs (recorded sources)", check_chain, store)

@@ -7,7 +7,8 @@ background thread writing through zarr for 10% of the time slowed emcee's loop b
 heavy parts of a commit, the codec, hashing, ``write`` and ``fsync``, release the GIL when
 called directly, so the writer encodes each chunk with the same numcodecs codec zarr would
 use (built from the array's own ``zarr.json``) and writes the file itself (temporary name,
-then rename, as zarr's local store does). Reading still goes through zarr; a test checks
+then rename, as zarr's local store does). Reading decodes chunk files directly too, with
+bounds (:mod:`chainyard.store.decode`); a test checks
 that the bytes equal zarr's own for every codec chainyard offers.
 
 Only codec chains listed here are encoded directly; :func:`chunk_encoder` returns None for
@@ -25,7 +26,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-__all__ = ["ChunkEncoder", "chunk_encoder", "write_chunk_file"]
+__all__ = ["ChunkEncoder", "chunk_encoder", "fill_value", "write_chunk_file"]
 
 _BLOSC_SHUFFLE = {"noshuffle": 0, "shuffle": 1, "bitshuffle": 2}
 
@@ -86,7 +87,8 @@ class ChunkEncoder:
         return bytes(data) if not isinstance(data, bytes) else data
 
 
-def _fill_value(meta: dict[str, Any], dtype: np.dtype[Any]) -> Any:
+def fill_value(meta: dict[str, Any], dtype: np.dtype[Any]) -> Any:
+    """The fill value of an array's ``zarr.json`` as a Python scalar of ``dtype``'s kind."""
     fill = meta.get("fill_value")
     if dtype == np.bool_:
         return bool(fill)
@@ -140,7 +142,7 @@ def chunk_encoder(meta: dict[str, Any]) -> ChunkEncoder | None:
             )
         else:
             return None
-    return ChunkEncoder(chunk_shape, dtype, _fill_value(meta, dtype), to_bytes, compressors)
+    return ChunkEncoder(chunk_shape, dtype, fill_value(meta, dtype), to_bytes, compressors)
 
 
 def write_chunk_file(path: Path, data: bytes, *, fsync: bool) -> None:

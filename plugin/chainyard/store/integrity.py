@@ -44,6 +44,7 @@ __all__ = [
     "bytes_checksum",
     "canonical_sha256",
     "check_resume_base",
+    "check_seal",
     "chunk_checksum",
     "chunk_key_from_metadata",
     "keyed_hashes",
@@ -181,9 +182,9 @@ def seal_record(
     start = prev_block.get("start")
     if not start:
         start = {}
-        for name, values in store.start_state().items():
+        for name in store.start_names():
             start[name] = {
-                "rows": chunk_checksum(values),
+                "rows": chunk_checksum(store.start_array(name, checked=False)),
                 "file": _file_sum(
                     store, chunk_key_from_metadata(f"start/{name}", meta[f"start/{name}"], 0)
                 ),
@@ -210,52 +211,69 @@ def seal_record(
 _REFRESHED_ATTRS = ("config", "config_hash")
 
 
-def _damaged(store: Store, what: str) -> StoreError:
+_RESUME_HINT = "the store is damaged; `chainyard verify` names every problem; --restart discards it"
+
+
+def _damaged(store: Store, what: str, hint: str = _RESUME_HINT) -> StoreError:
     from chainyard.errors import StoreError
 
-    return StoreError(
-        f"{store.path}: {what}: the store is damaged; `chainyard verify` names every problem; "
-        "--restart discards it"
-    )
+    return StoreError(f"{store.path}: {what}: {hint}")
 
 
 def _steps(lo: int, hi: int) -> str:
     return f"step {lo}" if hi - lo == 1 else f"steps {lo}-{hi - 1}"
 
 
-def _check_seal(store: Store, record: dict[str, Any], block: dict[str, Any]) -> None:
+def check_seal(store: Store, hint: str = _RESUME_HINT) -> None:
+    """The seal of ``store``'s commit record (metadata only; see :func:`_check_seal`).
+
+    Raises
+    ------
+    StoreError
+        Naming the first edited key, file or attribute (exit 4); ``hint`` ends the line.
+    """
+    record = store._commit
+    block = record.get(INTEGRITY_KEY)
+    if not isinstance(block, dict):
+        raise _damaged(store, "commit.json has no integrity block (nothing to check it by)", hint)
+    _check_seal(store, record, block, hint)
+
+
+def _check_seal(
+    store: Store, record: dict[str, Any], block: dict[str, Any], hint: str = _RESUME_HINT
+) -> None:
     """The commit record, attributes and array metadata against the seal (metadata only)."""
     if block.get("format_version") != INTEGRITY_VERSION:
-        raise _damaged(store, f"commit.json integrity format {block.get('format_version')!r}")
+        raise _damaged(store, f"commit.json integrity format {block.get('format_version')!r}", hint)
     if self_hash(block) != block.get("self"):
-        raise _damaged(store, "commit.json integrity block was edited (its SHA-256 differs)")
+        raise _damaged(store, "commit.json integrity block was edited (its SHA-256 differs)", hint)
     body = {k: v for k, v in record.items() if k != INTEGRITY_KEY}
     sealed = block.get("record")
     current = keyed_hashes(body)
     if not isinstance(sealed, dict):
-        raise _damaged(store, "commit.json integrity block has no 'record' hashes")
+        raise _damaged(store, "commit.json integrity block has no 'record' hashes", hint)
     for key in sorted(set(sealed) | set(current)):
         if sealed.get(key) != current.get(key):
-            raise _damaged(store, f"commit.json field '{key}' differs from the commit's seal")
+            raise _damaged(store, f"commit.json field '{key}' differs from the commit's seal", hint)
     attrs = store.attrs
     sealed = block.get("attrs")
     if not isinstance(sealed, dict):
-        raise _damaged(store, "commit.json integrity block has no 'attrs' hashes")
+        raise _damaged(store, "commit.json integrity block has no 'attrs' hashes", hint)
     current = keyed_hashes(attrs)
     refreshed = canonical_sha256(attrs.get("config")) == attrs.get("config_hash")
     for key in sorted(set(sealed) | set(current)):
         if sealed.get(key) != current.get(key) and not (refreshed and key in _REFRESHED_ATTRS):
             raise _damaged(
-                store, f"zarr.json attribute chainyard '{key}' differs from the commit's seal"
+                store, f"zarr.json attribute chainyard '{key}' differs from the commit's seal", hint
             )
     sealed = block.get("arrays")
     if not isinstance(sealed, dict):
-        raise _damaged(store, "commit.json integrity block has no 'arrays' hashes")
+        raise _damaged(store, "commit.json integrity block has no 'arrays' hashes", hint)
     for node, meta in array_metadata(store).items():
         if meta is None:
-            raise _damaged(store, f"{node}/zarr.json is missing")
+            raise _damaged(store, f"{node}/zarr.json is missing", hint)
         if sealed.get(node) != canonical_sha256(metadata_without_shape(meta)):
-            raise _damaged(store, f"{node}/zarr.json differs from the commit's seal")
+            raise _damaged(store, f"{node}/zarr.json differs from the commit's seal", hint)
 
 
 def _check_last_chunk(store: Store, name: str, block: dict[str, Any]) -> None:
@@ -280,7 +298,7 @@ def _check_last_chunk(store: Store, name: str, block: dict[str, Any]) -> None:
     rows_sum = ((store.commit_record.get("checksums") or {}).get(name) or [None] * (i + 1))[i:]
     if hi % size and rows_sum:
         try:
-            rows = store.read_rows(name, lo, hi)
+            rows = store.read_rows(name, lo, hi, checked=False)
         except MemoryError:
             raise
         except Exception:  # any decode failure of an untrusted chunk means it is damaged

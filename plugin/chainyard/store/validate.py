@@ -210,6 +210,11 @@ def check_array(
     limits.check("chunk_bytes", size, f"{where} (chunk_shape {chunks})")
     if not isinstance(meta.get("codecs"), list) or not meta["codecs"]:
         raise _bad(where, "codecs", meta.get("codecs"), "a non-empty list of codecs")
+    from chainyard.store.decode import codec_problem
+
+    problem = codec_problem(meta["codecs"])
+    if problem:
+        raise StoreError(f"{where}: field codecs: {problem}; the store is damaged")
     return ArrayInfo(meta, tuple(shape), tuple(chunks))
 
 
