@@ -236,12 +236,16 @@ def _workers(text: str) -> int | str:
     """An argparse type: a whole number >= 1 or ``auto``."""
     if text.strip().lower() == "auto":
         return "auto"
+    from chainyard.engine.pool import MAX_WORKERS
+
     try:
         value = int(text)
     except ValueError:
         value = 0
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"must be a whole number >= 1 or auto, got {text!r}")
+    if not 1 <= value <= MAX_WORKERS:
+        raise argparse.ArgumentTypeError(
+            f"must be a whole number from 1 to {MAX_WORKERS} or auto, got {text!r}"
+        )
     return value
 
 
