@@ -148,3 +148,45 @@ def test_sigterm_with_model_stuck_in_compiled_code(tmp_path: Path, tally: Tally)
     res = cli("verify", str(tmp_path / "s.zarr"))
     assert res.returncode == 0, res.stdout + res.stderr
     assert chainyard.open_store(tmp_path / "s.zarr").steps_done >= 8
+
+
+# ------------------------------------------------ item 16: envelope errors in one line
+def _envelope_config(envelope: object) -> dict[str, object]:
+    cfg = base_config(
+        parameters=[
+            {"name": n, "init": {"normal": {"loc": 0.0, "scale": 1.0}}} for n in ("a", "b", "c")
+        ],
+    )
+    cfg["sampler"] = {"kind": "accept_reject", "envelope": envelope, "log_bound": 1.0, "draws": 10}
+    return cfg
+
+
+NORMAL = {"normal": {"loc": 0.0, "scale": 1.0}}
+
+
+@pytest.mark.parametrize(
+    ("envelope", "expected"),
+    [
+        (
+            [NORMAL, NORMAL, {"normal": {"loc": 0.0, "scale": -1.0}}],
+            "sampler.envelope[2].normal.scale = -1.0: ",
+        ),
+        ([NORMAL, {"gamma": 1}, NORMAL], "sampler.envelope[1] = {'gamma': 1}: must be exactly one"),
+        ([NORMAL, {**NORMAL, "x": 1}, NORMAL], "sampler.envelope[1] = "),
+        (5, "sampler.envelope = 5: must be one {normal: {loc, scale}} or {uniform"),
+        ({"uniform": {"low": 0.0, "high": 1.0, "mid": 2}}, "sampler.envelope.uniform.mid: unknown"),
+    ],
+    ids=["scale", "kind", "extra-key", "not-a-mapping", "single-extra"],
+)
+def test_envelope_errors_in_one_line(
+    envelope: object, expected: str, tmp_path: Path, tally: Tally
+) -> None:
+    """A wrong envelope entry is one line in our words (no pydantic union names), exit 2."""
+    cfg = write_run(tmp_path, _envelope_config(envelope))
+    res = cli("check", str(cfg))
+    tally.input()
+    assert res.returncode == 2, res.stderr
+    line = _one_error(res.stderr)
+    assert expected in line, line
+    for leak in ("tagged-union", "tuple[", "Envelope", ".one", ".list"):
+        assert leak not in line, line
