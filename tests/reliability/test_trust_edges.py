@@ -16,7 +16,7 @@ import pytest
 
 import chainyard
 from tests.conftest import base_config, cli, write_run
-from tests.reliability.conftest import Tally
+from tests.reliability.conftest import Tally, snapshot
 
 TINY = base_config(
     sampler={"walkers": 8, "steps": 60},
@@ -190,3 +190,21 @@ def test_envelope_errors_in_one_line(
     assert expected in line, line
     for leak in ("tagged-union", "tuple[", "Envelope", ".one", ".list"):
         assert leak not in line, line
+
+
+# ----------------------------- item 14: --until-targets needs its extend_until_targets section
+def test_until_targets_without_its_section_refused(tmp_path: Path, tally: Tally) -> None:
+    """Without ``extend_until_targets`` (the budget), ``--until-targets`` exits 2 in one line
+    naming the section, and the store is neither created nor extended."""
+    cfg = write_run(tmp_path, TINY)
+    out = tmp_path / "s.zarr"
+    res = cli("sample", str(cfg), "--out", str(out), "--until-targets")
+    tally.input()
+    assert res.returncode == 2, res.stderr
+    assert "extend_until_targets: required by --until-targets" in _one_error(res.stderr)
+    assert not out.exists()
+    assert cli("sample", str(cfg), "--out", str(out)).returncode == 0
+    before = snapshot(out)
+    res = cli("sample", str(cfg), "--out", str(out), "--until-targets")
+    assert res.returncode == 2, res.stderr
+    tally.assert_intact(before, out)
