@@ -6,6 +6,7 @@ chainyard.errors; "one line" is the project's rule for user-facing errors.
 
 from __future__ import annotations
 
+import shutil
 import signal
 import subprocess
 import sys
@@ -208,3 +209,74 @@ def test_until_targets_without_its_section_refused(tmp_path: Path, tally: Tally)
     res = cli("sample", str(cfg), "--out", str(out), "--until-targets")
     assert res.returncode == 2, res.stderr
     tally.assert_intact(before, out)
+
+
+# ------------------------------------------- item 4: no code from a store without opt-in
+def _craft_code_store(store: Path, marker: Path) -> None:
+    """Put a model that writes ``marker`` at import inside ``store``, point the stored config
+    at it with ``config_dir`` = the store's folder name (relative), and reseal the store."""
+    import hashlib
+    import json
+
+    from chainyard.config import config_hash
+    from chainyard.store import Store
+    from chainyard.store.integrity import seal_record
+
+    evil = store / "evilmodel.py"
+    evil.write_text(
+        f"open({str(marker)!r}, 'w').write('imported')\n"
+        "import numpy as np\n\n\n"
+        "def log_prob(theta, data):\n    return -0.5 * float(np.dot(theta, theta))\n"
+    )
+    meta = json.loads((store / "zarr.json").read_text())
+    attrs = meta["attributes"]["chainyard"]
+    attrs["config"]["model"]["log_prob"] = "evilmodel.py:log_prob"
+    attrs["config_hash"] = config_hash(attrs["config"])
+    attrs["config_dir"] = store.name
+    digest = hashlib.sha256(evil.read_bytes()).hexdigest()
+    attrs["identity"]["model_source"] = {"path": "evilmodel.py", "sha256": digest}
+    (store / "zarr.json").write_text(json.dumps(meta))
+    opened = Store.open(store)
+    record = seal_record(opened, dict(opened.commit_record), {})
+    opened.close()
+    (store / "commit.json").write_text(json.dumps(record))
+
+
+def test_replay_never_runs_code_from_a_store_without_opt_in(tmp_path: Path, tally: Tally) -> None:
+    """A store carrying its own model (config_dir = its folder name, resealed) verifies, but
+    ``verify --replay`` run beside it imports nothing: a relative config_dir is never resolved
+    against the current folder, and code inside the store needs --run-stored-code."""
+    work, victim = tmp_path / "work", tmp_path / "victim"
+    cfg = write_run(work, TINY)
+    assert cli("sample", str(cfg), "--out", str(work / "s.zarr")).returncode == 0
+    victim.mkdir()
+    store = victim / "s.zarr"
+    shutil.copytree(work / "s.zarr", store)
+    marker = victim / "imported.txt"
+    _craft_code_store(store, marker)
+    assert cli("verify", "s.zarr", cwd=victim).returncode == 0  # the seal holds
+    res = cli("verify", "s.zarr", "--replay", "5", cwd=victim)
+    tally.input()
+    assert res.returncode == 2, res.stdout + res.stderr
+    line = _one_error(res.stderr)
+    assert "config_dir 's.zarr' is not an absolute path" in line and "--sources" in line, line
+    assert not marker.exists()
+    res = cli("verify", "s.zarr", "--replay", "5", "--sources", "s.zarr", cwd=victim)
+    tally.input()
+    assert res.returncode == 2, res.stdout + res.stderr
+    line = _one_error(res.stderr)
+    assert "would import and run code stored inside it" in line, line
+    assert "evilmodel.py:log_prob" in line and "--run-pack-code" in line, line
+    assert not marker.exists()
+    res = cli(
+        "verify",
+        "s.zarr",
+        "--replay",
+        "5",
+        "--sources",
+        "s.zarr",
+        "--run-stored-code",
+        cwd=victim,
+    )
+    assert res.returncode == 0, res.stdout + res.stderr
+    assert marker.read_text() == "imported"  # the checks above could see an import
