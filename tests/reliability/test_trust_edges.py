@@ -6,6 +6,7 @@ chainyard.errors; "one line" is the project's rule for user-facing errors.
 
 from __future__ import annotations
 
+import os
 import shutil
 import signal
 import subprocess
@@ -280,3 +281,70 @@ def test_replay_never_runs_code_from_a_store_without_opt_in(tmp_path: Path, tall
     )
     assert res.returncode == 0, res.stdout + res.stderr
     assert marker.read_text() == "imported"  # the checks above could see an import
+
+
+# ------------------------- items 6 and 13: exports on a full disk, and killed exports' leftovers
+EXPORT_RUN = base_config(
+    sampler={"walkers": 16, "steps": 600},
+    storage={"chunk_steps": 128, "commit_every_steps": 300},
+)
+
+
+@pytest.fixture(scope="module")
+def export_store(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    """A sampled store whose netCDF export is ~0.4 MB."""
+    folder = tmp_path_factory.mktemp("export")
+    cfg = write_run(folder, EXPORT_RUN)
+    res = cli("sample", str(cfg), "--out", str(folder / "s.zarr"))
+    assert res.returncode == 0, res.stderr
+    return folder / "s.zarr"
+
+
+def test_netcdf_export_past_file_size_limit(export_store: Path, tmp_path: Path, tally: Tally):  # type: ignore[no-untyped-def]
+    """``ulimit -f 64`` (64 KiB): exit 8, one line, no HDF5 output, nothing left behind."""
+    from tests.reliability.faults import assert_one_error, fsize_limit, run
+
+    out = tmp_path / "run.nc"
+    res = run("export", str(export_store), "--raw", "-o", str(out), preexec_fn=fsize_limit(65536))
+    tally.fault()
+    assert_one_error(res, 8, str(out), "ulimit -f")
+    assert "HDF5" not in res.stderr, res.stderr
+    assert sorted(p.name for p in tmp_path.iterdir()) == []
+
+
+def test_netcdf_export_on_a_full_disk(export_store: Path, tmp_path: Path, tally: Tally):  # type: ignore[no-untyped-def]
+    """A file system with 64 KiB free: exit 8, one line, nothing left behind."""
+    from tests.reliability.faults import assert_one_error, fill, run, tmpfs
+
+    with tmpfs(tmp_path / "disk", 1024) as disk:
+        filler = fill(disk, 65536)
+        out = disk / "run.nc"
+        res = run("export", str(export_store), "--raw", "-o", str(out))
+        tally.fault()
+        assert_one_error(res, 8, str(out), "free")
+        assert sorted(p.name for p in disk.iterdir()) == [filler.name]
+
+
+def test_killed_export_leftovers_removed_by_the_next(
+    export_store: Path, tmp_path: Path, tally: Tally
+) -> None:
+    """A ``.NAME.export-PID.tmp`` of a process that has ended (a killed export) is removed
+    by the next export of NAME; one of a live process is left alone."""
+    for ext in ("nc", "csv", "zarr"):
+        out = tmp_path / f"run.{ext}"
+        dead = subprocess.Popen([sys.executable, "-c", "pass"])
+        dead.wait()
+        stale = tmp_path / f".run.{ext}.export-{dead.pid}.tmp"
+        if ext == "zarr":
+            stale.mkdir()
+            (stale / "zarr.json").write_text("{}")
+        else:
+            stale.write_bytes(b"\0" * 4096)
+        live = tmp_path / f".run.{ext}.export-{os.getppid()}.tmp"
+        live.write_bytes(b"")
+        res = cli("export", str(export_store), "--raw", "-o", str(out))
+        tally.fault()
+        assert res.returncode == 0, res.stderr
+        assert out.exists() and not stale.exists()
+        assert live.exists()
+        live.unlink()
