@@ -348,3 +348,29 @@ def test_killed_export_leftovers_removed_by_the_next(
         assert out.exists() and not stale.exists()
         assert live.exists()
         live.unlink()
+
+
+# ------------------------------- item 17 (sample/unpack half): --out inside a store refused
+def test_sample_and_unpack_out_inside_a_store_refused(tmp_path: Path, tally: Tally) -> None:
+    """``sample --out`` and ``unpack --out`` inside an existing store exit 4 in one line naming
+    that store, and the store is left byte for byte as it was."""
+    cfg = write_run(tmp_path, TINY)
+    store = tmp_path / "s.zarr"
+    assert cli("sample", str(cfg), "--out", str(store)).returncode == 0
+    res = cli("pack", str(store), "--out", str(tmp_path / "p.zip"))
+    assert res.returncode == 0, res.stderr
+    before = snapshot(store)
+    attempts = [
+        ("sample", str(cfg), "--out", str(store / "inner.zarr")),
+        ("sample", str(cfg), "--out", str(store / "draws" / "x.zarr")),
+        ("unpack", str(tmp_path / "p.zip"), "--out", str(store / "u.zarr")),
+        ("unpack", str(tmp_path / "p.zip"), "--out", str(store / "draws" / "u.zarr")),
+    ]
+    for args in attempts:
+        res = cli(*args)
+        tally.input()
+        assert res.returncode == 4, f"{args}: {res.stderr}"
+        line = _one_error(res.stderr)
+        assert f"is inside the chainyard store {store.resolve()}" in line, line
+    tally.assert_intact(before, store)
+    assert sorted(before) == sorted(snapshot(store)), "files were added inside the store"

@@ -38,6 +38,7 @@ from chainyard.engine.drivers import (
 from chainyard.engine.guards import (
     committed_steps,
     path_state,
+    refuse_inside_store,
     refuse_uncommitted,
     storage_fault,
     with_last_commit,
@@ -149,6 +150,7 @@ def sample(
         ``STOP_GRACE_SECONDS`` after the signal, the run stopped without it).
     """
     path = Path(store_path)
+    refuse_inside_store(path, "store")
     try:
         model = load_model(config)
     except ConfigError as exc:
