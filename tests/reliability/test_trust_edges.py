@@ -374,3 +374,62 @@ def test_sample_and_unpack_out_inside_a_store_refused(tmp_path: Path, tally: Tal
         assert f"is inside the chainyard store {store.resolve()}" in line, line
     tally.assert_intact(before, store)
     assert sorted(before) == sorted(snapshot(store)), "files were added inside the store"
+
+
+# ------------------------------ item 15: accept-reject with unreachable draws; its progress
+#: log f of a standard normal, unnormalised: Z_f = sqrt(2 pi)
+STD_NORMAL_MODEL = """
+import numpy as np
+
+def log_prob(theta, data):
+    return -0.5 * float(np.dot(theta, theta))
+"""
+
+
+def _accept_reject_config(log_bound: float, draws: int) -> dict[str, object]:
+    cfg = base_config(parameters=[{"name": "x", "init": {"normal": {"loc": 0.0, "scale": 1.0}}}])
+    cfg["sampler"] = {
+        "kind": "accept_reject",
+        "envelope": {"normal": {"loc": 0.0, "scale": 2.0}},
+        "log_bound": log_bound,
+        "draws": draws,
+        "chains": 2,
+    }
+    return cfg
+
+
+def test_accept_reject_unreachable_draws_stop_in_one_line(tmp_path: Path, tally: Tally) -> None:
+    """``log_bound: 1e308`` (nothing is ever accepted) stops with one line naming log_bound
+    (exit 2) instead of running for ever at step 0."""
+    from chainyard.engine.accept_reject import MAX_PROPOSALS_PER_DRAW
+
+    cfg = write_run(tmp_path, _accept_reject_config(1e308, 2), STD_NORMAL_MODEL)
+    res = cli("sample", str(cfg), "--out", str(tmp_path / "s.zarr"), timeout=600)
+    tally.input()
+    assert res.returncode == 2, res.stderr
+    line = _one_error(res.stderr)
+    assert "sampler.log_bound = 1e+308" in line and "out of reach" in line, line
+    taken = int(line.split("no proposal accepted in ")[1].split()[0].replace(",", ""))
+    assert MAX_PROPOSALS_PER_DRAW <= taken < MAX_PROPOSALS_PER_DRAW + 2048, line
+
+
+def test_accept_reject_progress_shows_the_proposals_acceptance(tmp_path: Path) -> None:
+    """The progress line's acceptance is accepted draws / proposals, here 1 / M' with
+    M' = M / Z_f: envelope N(0, 2^2), target exp(-x^2/2) with Z_f = sqrt(2 pi) and
+    log M = log(2 sqrt(2 pi)) (the maximum of log f - log g), so the expected acceptance is
+    Z_f / M = 1/2 (analytic; Robert and Casella 2004, section 2.3)."""
+    import math
+
+    log_m = math.log(2 * math.sqrt(2 * math.pi))
+    cfg = write_run(tmp_path, _accept_reject_config(log_m + 1e-9, 4000), STD_NORMAL_MODEL)
+    res = cli("sample", str(cfg), "--out", str(tmp_path / "s.zarr"), "--progress", "log")
+    assert res.returncode == 0, res.stderr
+    shown = [
+        float(part.split()[1])
+        for ln in res.stderr.splitlines()
+        for part in ln.split("|")
+        if part.strip().startswith("acceptance")
+    ]
+    assert shown, res.stderr
+    # 8,000 draws: the proposals' count is negative binomial, sd of the ratio ~0.006
+    assert abs(shown[-1] - 0.5) < 0.03, res.stderr

@@ -193,6 +193,11 @@ def advance(
     i = counted = buf.fill  # next buffer row; rows before ``counted`` are in accepted_sum
     check_row = i + 1  # the bookkeeping below runs when row ``check_row - 1`` is filled
 
+    def shown_acceptance(rate: float) -> float:
+        """The driver's own acceptance for progress lines (accept-reject: the proposals')."""
+        own = getattr(driver, "progress_acceptance", None)
+        return rate if own is None else float(own)
+
     def settle() -> None:
         """Bring ``step``, the buffer fill and the acceptance count up to row ``i``."""
         nonlocal step, counted, accepted_sum
@@ -223,7 +228,7 @@ def advance(
                 last_commit_time = now
             if now - last_report >= 0.2:
                 last_report = now
-                reporter.update(step, accepted_sum / ((step - done) * walkers))
+                reporter.update(step, shown_acceptance(accepted_sum / ((step - done) * walkers)))
             if stop.signum is not None:
                 # at a step boundary: the RNG state matches the last buffered step
                 stop.cancel()  # the finished steps are committed now, however long it takes
@@ -256,6 +261,7 @@ def advance(
         settle()
         steps_here = step - done
         acc = accepted_sum / (steps_here * walkers) if steps_here else float("nan")
+        acc = shown_acceptance(acc)
         reporter.update(step, acc)
         reporter.close(acc)
     reporter.message(f"done: {committed:,} steps committed")
