@@ -433,3 +433,54 @@ def test_accept_reject_progress_shows_the_proposals_acceptance(tmp_path: Path) -
     assert shown, res.stderr
     # 8,000 draws: the proposals' count is negative binomial, sd of the ratio ~0.006
     assert abs(shown[-1] - 0.5) < 0.03, res.stderr
+
+
+# -------------------- item 10: non-determinism outside the first-commit window is caught
+#: a standard-normal Metropolis-Hastings model that draws from numpy's global RNG only in
+#: the tails (|x| > 3.3): the first-commit check at the start state does not see it
+TAIL_RANDOM_MODEL = """
+import numpy as np
+
+def log_prob(theta, data):
+    lp = -0.5 * float(np.dot(theta, theta))
+    if np.abs(theta).max() > 3.3:
+        lp += 1e-3 * np.random.random()
+    return lp
+"""
+
+#: a Gibbs sweep for two independent standard normals that uses numpy's global RNG in the
+#: tails
+TAIL_RANDOM_KERNEL = """
+import numpy as np
+
+def sweep(x, rng, data):
+    new = rng.standard_normal(x.shape)
+    if np.abs(x).max() > 3.3:
+        new[0] += 1e-3 * np.random.random()
+    return new
+"""
+
+
+def _tail_run(kind: str) -> dict[str, object]:
+    cfg = base_config(
+        storage={"chunk_steps": 256, "commit_every_steps": 100, "commit_every_seconds": 60},
+    )
+    if kind == "metropolis_hastings":
+        cfg["sampler"] = {"kind": kind, "chains": 8, "steps": 4000, "proposal_sd": 2.5}
+    else:
+        cfg["sampler"] = {"kind": kind, "kernel": "gibbs.py:sweep", "chains": 8, "steps": 2000}
+    return cfg
+
+
+@pytest.mark.parametrize("kind", ["metropolis_hastings", "kernel"])
+def test_randomness_in_the_tails_is_caught_later(kind: str, tmp_path: Path, tally: Tally) -> None:
+    """Randomness outside the first-commit window stops the run with one line (exit 3)
+    instead of two different stores from one config."""
+    files = {"gibbs.py": TAIL_RANDOM_KERNEL}
+    cfg = write_run(tmp_path, _tail_run(kind), TAIL_RANDOM_MODEL, files=files)
+    res = cli("sample", str(cfg), "--out", str(tmp_path / "s.zarr"))
+    tally.fault()
+    assert res.returncode == 3, res.stderr
+    line = _one_error(res.stderr)
+    assert "not deterministic" in line or "not reproducible" in line, line
+    assert "keeps its last commit" in line, line

@@ -19,6 +19,7 @@ from chainyard.engine.buffer import StepBuffer
 from chainyard.engine.commit import CommitJob
 from chainyard.engine.drivers import make_driver
 from chainyard.engine.guards import check_deterministic
+from chainyard.engine.recheck import LaterStepCheck
 from chainyard.engine.stopping import Interrupted, StopFlag
 from chainyard.engine.writer import Committer, process_writer_available
 from chainyard.errors import StoreError
@@ -129,6 +130,7 @@ def advance(
     first_commit = True
     # the determinism check compares with the stored start (once per process)
     start_state = store.start_state() if config.model.check_deterministic else None
+    later_check = LaterStepCheck(model, driver) if config.model.check_deterministic else None
     writer: Committer | None = None
 
     def open_writer() -> Committer:
@@ -163,6 +165,9 @@ def advance(
             check_rng = getattr(driver, "check_reproducible", None)
             if check_rng is not None:
                 check_rng()  # a user kernel's randomness must all come from its rng
+        if later_check is not None:  # one state of these rows again (engine/recheck.py)
+            window = slice(committed - buf.origin, upto - buf.origin)
+            later_check(buf.position[window], buf.log_prob[window])
         if writer is None:
             writer = open_writer()
         writer.wait()
