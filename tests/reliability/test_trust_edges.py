@@ -484,3 +484,45 @@ def test_randomness_in_the_tails_is_caught_later(kind: str, tmp_path: Path, tall
     line = _one_error(res.stderr)
     assert "not deterministic" in line or "not reproducible" in line, line
     assert "keeps its last commit" in line, line
+
+
+# ---------------------- item 12 (part): documented statuses instead of internal errors (70)
+def test_overlong_out_name_is_bad_input(tmp_path: Path, tally: Tally) -> None:
+    """``--out`` / ``-o`` with a 300-character name: exit 2, one line, nothing written."""
+    cfg = write_run(tmp_path, TINY)
+    long = "a" * 300
+    res = cli("sample", str(cfg), "--out", str(tmp_path / f"{long}.zarr"))
+    tally.input()
+    assert res.returncode == 2, res.stderr
+    assert "file name too long" in _one_error(res.stderr)
+    assert cli("sample", str(cfg), "--out", str(tmp_path / "s.zarr")).returncode == 0
+    res = cli("export", str(tmp_path / "s.zarr"), "--raw", "-o", str(tmp_path / f"{long}.csv"))
+    tally.input()
+    assert res.returncode == 2, res.stderr
+    assert "file name too long" in _one_error(res.stderr)
+    assert sorted(p.name for p in tmp_path.iterdir() if p.name.startswith(".a")) == []
+
+
+def test_stdout_closed_is_one_line(tmp_path: Path, tally: Tally) -> None:
+    """``summarise --csv`` started with stdout closed: exit 2 and one line, not exit 70."""
+    cfg = write_run(tmp_path, TINY)
+    assert cli("sample", str(cfg), "--out", str(tmp_path / "s.zarr")).returncode == 0
+    res = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "chainyard.cli",
+            "summarise",
+            str(tmp_path / "s.zarr"),
+            "--raw",
+            "--csv",
+        ],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
+        preexec_fn=lambda: os.close(1),
+        timeout=300,
+    )
+    tally.input()
+    assert res.returncode == 2, res.stderr
+    assert "standard output is closed" in _one_error(res.stderr)
