@@ -526,3 +526,21 @@ def test_stdout_closed_is_one_line(tmp_path: Path, tally: Tally) -> None:
     tally.input()
     assert res.returncode == 2, res.stderr
     assert "standard output is closed" in _one_error(res.stderr)
+
+
+def test_deeply_nested_commit_record_is_damage(tmp_path: Path, tally: Tally) -> None:
+    """``commit.json`` nested 200,000 deep: exit 4 naming the file (not a RecursionError)."""
+    cfg = write_run(tmp_path, TINY)
+    store = tmp_path / "s.zarr"
+    assert cli("sample", str(cfg), "--out", str(store)).returncode == 0
+    (store / "commit.json").write_text("[" * 200_000 + "]" * 200_000)
+    for args in (
+        ("verify", str(store)),
+        ("inspect", str(store)),
+        ("summarise", str(store), "--raw"),
+    ):
+        res = cli(*args)
+        tally.fault()
+        assert res.returncode in (4, 7), f"{args}: {res.stderr}"
+        line = _one_error(res.stderr)
+        assert "commit.json" in line, line

@@ -51,6 +51,8 @@ def parse_json(data: bytes, where: str) -> Any:
         return json.loads(text)
     except ValueError as exc:
         raise StoreError(f"{where}: is not valid JSON ({exc}); the store is damaged") from None
+    except RecursionError:  # e.g. 200,000 nested lists: no record of ours nests so deep
+        raise StoreError(f"{where}: its JSON nests too deeply; the store is damaged") from None
 
 
 def _is_int(value: Any) -> bool:
