@@ -544,3 +544,26 @@ def test_deeply_nested_commit_record_is_damage(tmp_path: Path, tally: Tally) -> 
         assert res.returncode in (4, 7), f"{args}: {res.stderr}"
         line = _one_error(res.stderr)
         assert "commit.json" in line, line
+
+
+@pytest.mark.parametrize(
+    "identity", [None, {"model_source": 5}, {"extra_sources": [1]}], ids=["null", "int", "list"]
+)
+def test_edited_identity_stamp(identity: object, tmp_path: Path, tally: Tally) -> None:
+    """An edited ``identity`` attribute: ``plot`` either works or exits 4 naming the attribute
+    (never an internal error, exit 70)."""
+    import json
+
+    cfg = write_run(tmp_path, TINY)
+    store = tmp_path / "s.zarr"
+    assert cli("sample", str(cfg), "--out", str(store)).returncode == 0
+    meta = json.loads((store / "zarr.json").read_text())
+    meta["attributes"]["chainyard"]["identity"] = identity
+    (store / "zarr.json").write_text(json.dumps(meta))
+    res = cli("plot", str(store), "--raw", "-o", str(tmp_path / "plots"))
+    tally.fault()
+    if identity is None:
+        assert res.returncode == 0, res.stderr
+    else:
+        assert res.returncode == 4, res.stderr
+        assert "attribute identity." in _one_error(res.stderr)

@@ -381,7 +381,7 @@ def _stored_steps(store: Store) -> int:
 
 
 def _check_identity(store: Store, identity: dict[str, Any], path: Path) -> None:
-    diffs = describe_differences(store.attrs.get("identity", {}), identity)
+    diffs = describe_differences(store.attrs.get("identity") or {}, identity)
     if diffs:
         raise StoreConflictError(
             f"{path}: store was made with different settings: {'; '.join(diffs)}. "

@@ -277,7 +277,7 @@ def _check_inputs(store: Store, config: Any, base: Path) -> None:
     from chainyard.engine.identity import describe_differences, run_identity
 
     diffs = describe_differences(
-        store.attrs.get("identity", {}), run_identity(config, store.replica, driver_kind(config))
+        store.attrs.get("identity") or {}, run_identity(config, store.replica, driver_kind(config))
     )
     if diffs:
         raise VerificationError(
