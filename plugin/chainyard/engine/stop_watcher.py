@@ -9,8 +9,8 @@ watcher reads it and, ``grace`` seconds later, writes ``F`` back (the repeat was
 sends the signal again (compiled code that checks for signals, as ``re`` does, is then
 interrupted). Should the sampler still be running ``hard`` seconds after that, the watcher
 writes one line and kills it with SIGKILL (the store keeps its last commit, as after any
-kill). It exits when the pipe closes (the sampler ended) or a 0 byte arrives after the repeat
-(the sampler handled it).
+kill). It exits when the pipe closes (the sampler ended) or a 0 byte arrives (the sampler handled
+a repeated signal, the user's or this watcher's, and stops by itself).
 
 Run as a script (``python -I -S stop_watcher.py PID RFD WFD GRACE HARD SIGNALS``) so that it
 imports nothing of chainyard and starts in a few milliseconds.
@@ -53,8 +53,8 @@ def watch(
             data = os.read(rfd, 512)
             if not data:
                 return  # the sampler closed the pipe (or ended)
-            if stage == 2 and 0 in data:
-                return  # the sampler handled the repeat: it stops by itself
+            if 0 in data:
+                return  # the sampler handled a repeated signal: it stops by itself
             if stage == 0:
                 stops = [b for b in data if b in signals]
                 if stops:
