@@ -26,9 +26,7 @@ import sys
 import time
 
 
-def watch(
-    pid: int, rfd: int, wfd: int, grace: float, hard: float, signals: frozenset[int]
-) -> None:
+def watch(pid: int, rfd: int, wfd: int, grace: float, hard: float, signals: frozenset[int]) -> None:
     """Wait for a stop signal's byte on ``rfd``; resend after ``grace``, SIGKILL after ``hard``.
 
     Parameters
