@@ -230,18 +230,21 @@ def _int_at_least(low: int) -> Callable[[str], int]:
 
 
 def _workers(text: str) -> int | str:
-    """An argparse type: a whole number >= 1, ``auto`` or ``dask://[HOST:PORT]``."""
+    """An argparse type: a whole number from 1 to MAX_WORKERS, ``auto`` or ``dask://[HOST:PORT]``."""
     if text.strip().lower() == "auto":
         return "auto"
     if text.strip().lower().startswith("dask://"):
         return text.strip()
+    from chainyard.engine.pool import MAX_WORKERS
+
     try:
         value = int(text)
     except ValueError:
         value = 0
-    if value < 1:
+    if not 1 <= value <= MAX_WORKERS:
         raise argparse.ArgumentTypeError(
-            f"must be a whole number >= 1, auto or dask://HOST:PORT, got {text!r}"
+            f"must be a whole number from 1 to {MAX_WORKERS}, auto or dask://HOST:PORT, "
+            f"got {text!r}"
         )
     return value
 
@@ -449,6 +452,11 @@ def _quiet_exit_on_broken_pipe() -> int:
 
 def os_error_exit(exc: OSError) -> int | None:
     """One line and exit status for a file-system refusal that escaped; None if not one."""
+    if exc.errno == errno.ENAMETOOLONG:  # a path given by the user: bad input
+        name = os.fsdecode(exc.filename) if exc.filename is not None else ""
+        where = f"{name[:80]}{'...' if len(name) > 80 else ''}: " if name else ""
+        _say(f"chainyard: error: {where}file name too long (at most 255 bytes per name)")
+        return 2
     known = _STORAGE_ERRNOS.get(exc.errno or 0)
     if known is None:
         return None
@@ -494,6 +502,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         "CHAINYARD_TRACEBACK", ""
     ) not in ("", "0")
     command = str(getattr(args, "command", ""))
+    if sys.stdout is None:  # started with stdout closed (`>&-`): results would be lost
+        _say("chainyard: error: standard output is closed; redirect it (e.g. > /dev/null)")
+        return 2
     try:
         Interrupted = _interrupted_class()
 

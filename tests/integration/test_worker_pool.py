@@ -111,7 +111,7 @@ def test_pool_equals_serial_and_keeps_the_identity(vectorized: bool, tmp_path: P
     _sample(cfg, tmp_path / "serial.zarr")
     log = _sample(cfg, tmp_path / "two.zarr", "--workers", "2")
     assert "evaluating the model in 2 worker processes" in log
-    _sample(cfg, tmp_path / "three.zarr", "--workers", "3", "--cpus", "2")
+    _sample(cfg, tmp_path / "three.zarr", "--workers", "3", "--cpus", "3")
     for name in ("two.zarr", "three.zarr"):
         assert_same_store(tmp_path / "serial.zarr", tmp_path / name)
         assert _chunks(tmp_path / "serial.zarr") == _chunks(tmp_path / name)

@@ -117,7 +117,7 @@ def provenance_attrs(stores: Sequence[Store], selection: Selection) -> dict[str,
         "creation_library": "chainyard",
         "creation_library_version": chainyard_version(),
         "creation_library_language": "Python",
-        "sampler": str(stores[0].attrs.get("identity", {}).get("sampler_kind", "")),
+        "sampler": str((stores[0].attrs.get("identity") or {}).get("sampler_kind", "")),
         "chainyard_selection": selection.description,
         "chainyard_provenance": json.dumps(body, sort_keys=True, allow_nan=False),
     }

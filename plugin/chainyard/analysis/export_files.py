@@ -32,6 +32,7 @@ from pathlib import Path
 import numpy as np
 
 from chainyard.analysis.export import iter_replica_trees, read_blocks
+from chainyard.analysis.export_room import check_room, clean_export_leftovers, netcdf_bytes
 from chainyard.analysis.outputs import _enclosing_store, _swap_in, store_kind
 from chainyard.analysis.selection import Selection
 from chainyard.errors import ConfigError, StoreError
@@ -232,9 +233,14 @@ def export_run(
     protected = [Path(s.path) for s in stores] + list(inputs)
     target, ext = check_export_path(out, protected, force=force)
     target.parent.mkdir(parents=True, exist_ok=True)
+    clean_export_leftovers(target)
     tmp = target.parent / f".{target.name}.export-{os.getpid()}.tmp"
     _remove(tmp)
     chains = stores[0].walkers * len(stores)
+    if ext == ".nc":  # HDF5 crashes on a failed write: refuse what cannot fit beforehand
+        first = stores[0]
+        size = netcdf_bytes(chains, selection.draws, len(first.param_names), len(first.blob_names))
+        check_room(out, target.parent, size)
     try:
         if ext == ".csv":
             rows = write_csv(stores, selection, tmp)

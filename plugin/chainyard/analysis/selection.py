@@ -74,13 +74,13 @@ def same_run(stores: Sequence[Store]) -> None:
     if not stores:
         raise StoreError("no stores given")
     first = stores[0]
-    ref = {k: v for k, v in first.attrs.get("identity", {}).items() if k != "replica"}
+    ref = {k: v for k, v in (first.attrs.get("identity") or {}).items() if k != "replica"}
     seen: dict[int, Path] = {}
     for s in stores:
         if s.replica in seen:
             raise StoreError(f"{s.path}: replica {s.replica} given twice (also {seen[s.replica]})")
         seen[s.replica] = Path(s.path)
-        ident = {k: v for k, v in s.attrs.get("identity", {}).items() if k != "replica"}
+        ident = {k: v for k, v in (s.attrs.get("identity") or {}).items() if k != "replica"}
         if ident != ref:
             what = "; ".join(describe_differences(ref, ident)) or "identity"
             raise StoreError(

@@ -21,8 +21,9 @@ from typing import Any, TextIO
 from chainyard.analysis.decide import decide_burn_in
 from chainyard.analysis.diagnose import diagnose
 from chainyard.analysis.view import StoreWindow
-from chainyard.config import ExtendSpec, RunConfig
+from chainyard.config import RunConfig
 from chainyard.engine import sample
+from chainyard.errors import ConfigError
 from chainyard.provenance import utc_now
 from chainyard.store import Store
 from chainyard.store.zarr_store import atomic_write_json
@@ -89,8 +90,9 @@ def sample_until_targets(
 ) -> tuple[Store, bool]:
     """Sample ``sampler.steps`` in every replica, then extend all by ``check_every`` until met.
 
-    Stops at ``max_steps`` or after ``max_seconds``. Every check is appended to
-    ``STORE/target_checks.json`` of every replica.
+    Stops at ``max_steps`` or after ``max_seconds`` of the config's ``extend_until_targets``
+    section, which is required (:class:`~chainyard.errors.ConfigError` without it). Every
+    check is appended to ``STORE/target_checks.json`` of every replica.
 
     Parameters
     ----------
@@ -113,7 +115,13 @@ def sample_until_targets(
     indices = [replica] if isinstance(replica, int) else list(replica)
     if len(paths) != len(indices):
         raise ValueError(f"{len(paths)} stores given for {len(indices)} replica indices")
-    spec = config.extend_until_targets or ExtendSpec(max_steps=10 * config.sampler.steps)
+    spec = config.extend_until_targets
+    if spec is None:  # the budget is the user's to state: never extend without one
+        raise ConfigError(
+            f"{config.source}: extend_until_targets: required by --until-targets (the budget: "
+            "check_every, max_steps, optional max_seconds); add the section or run without "
+            "--until-targets"
+        )
     t0 = time.monotonic()
     total = config.sampler.steps
     checks: list[dict[str, Any]] = []

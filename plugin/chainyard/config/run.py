@@ -347,6 +347,11 @@ def _clean_loc(loc: tuple[int | str, ...]) -> str:
         text = text.replace(f".{tag}.", ".").removesuffix(f".{tag}") if ".moves[" in text else text
     for tag in ("normal", "uniform"):
         text = text.replace(f".init.{tag}.{tag}", f".init.{tag}")
+    # the envelope's form tag (one entry or a list) and its kind tag repeated
+    text = text.replace(".envelope.one", ".envelope").replace(".envelope.list[", ".envelope[")
+    if ".envelope" in text:
+        for tag in ("normal", "uniform"):
+            text = text.replace(f".{tag}.{tag}", f".{tag}")
     return text
 
 

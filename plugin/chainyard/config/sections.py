@@ -441,11 +441,33 @@ EnvelopeSpec = Annotated[
 ]
 
 
+def _envelope_form(value: Any) -> str | None:
+    """``one`` for a single envelope entry, ``list`` for one entry per parameter."""
+    if isinstance(value, (list, tuple)):
+        return "list"
+    if isinstance(value, (dict, NormalEnvelope, UniformEnvelope)):
+        return "one"
+    return None
+
+
+#: one entry (one parameter) or a list of entries; discriminated so that a mistake is reported
+#: once, inside the form given, not once per form pydantic tried
+EnvelopeField = Annotated[
+    Annotated[EnvelopeSpec, Tag("one")] | Annotated[tuple[EnvelopeSpec, ...], Tag("list")],
+    Discriminator(
+        _envelope_form,
+        custom_error_type="envelope_form",
+        custom_error_message="must be one {normal: {loc, scale}} or {uniform: {low, high}} "
+        "mapping, or a list of them (one per parameter)",
+    ),
+]
+
+
 class AcceptRejectSpec(_ChainSampler):
     """Accept-reject sampling: exact independent draws under an envelope M g(x) >= f(x)."""
 
     kind: Literal["accept_reject"]
-    envelope: EnvelopeSpec | tuple[EnvelopeSpec, ...] = Field(
+    envelope: EnvelopeField = Field(
         description=(
             "The envelope density g, a product of one distribution per parameter (normal or "
             "uniform): a single mapping when there is one parameter, else a list in theta "

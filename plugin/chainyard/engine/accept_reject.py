@@ -41,6 +41,7 @@ __all__ = [
     "BLOCK",
     "ENVELOPE_TOLERANCE",
     "KIND",
+    "MAX_PROPOSALS_PER_DRAW",
     "PROPOSALS_BLOB",
     "AcceptRejectDriver",
     "Envelope",
@@ -51,6 +52,9 @@ __all__ = [
 BLOCK = 1024
 #: rounding allowance (in log units) before log f > log M + log g counts as a violation
 ENVELOPE_TOLERANCE = 1e-9
+#: proposals one chain may take for one draw before the run stops: an observed acceptance
+#: below 1 / this makes the requested draws out of reach (log M far above max log f/g)
+MAX_PROPOSALS_PER_DRAW = 1_000_000
 #: name of the engine's per-draw blob holding the proposals each accepted draw took
 PROPOSALS_BLOB = "proposals_per_draw"
 
@@ -175,6 +179,22 @@ class AcceptRejectDriver:
             used = rec.get("used")
             # a block in progress is drawn again from its recorded start (same bits)
             self._blocks.append(None if used is None else self._new_block(gen, int(used)))
+        #: draws and proposals of this session (the proposals' acceptance for progress lines)
+        self._drawn = 0
+        self._proposed = 0
+
+    @property
+    def progress_acceptance(self) -> float:
+        """Accepted draws / proposals this session (what the user tunes log M by)."""
+        return self._drawn / self._proposed if self._proposed else float("nan")
+
+    def _out_of_reach(self, chain: int, taken: int) -> ConfigError:
+        return ConfigError(
+            f"sampler.log_bound = {self._log_m:g}: chain {chain} had no proposal accepted in "
+            f"{taken:,} (acceptance below {1 / MAX_PROPOSALS_PER_DRAW:g}), so the draws asked "
+            "for are out of reach; lower log_bound (log M) towards the largest log f(x) - "
+            "log g(x), or move the envelope closer to the model"
+        )
 
     def _new_block(self, gen: np.random.Generator, used: int = 0) -> _Block:
         start = generator_to_json(gen)
@@ -221,7 +241,11 @@ class AcceptRejectDriver:
                         break
                     taken += self._size - block.used
                     block.used = self._size
+                    if taken >= MAX_PROPOSALS_PER_DRAW:
+                        raise self._out_of_reach(c, taken)
                 x[c], lp[c], counts[c, 0] = block.x[j], block.lf[j], taken
+                self._proposed += taken
+            self._drawn += chains
             yield StepRows(x, lp, accepted, counts)
 
     def random_state(self) -> dict[str, Any]:

@@ -20,7 +20,9 @@ from chainyard.store.layout import ATTRS_KEY, COMMIT_FILE, DRAWS
 __all__ = [
     "check_deterministic",
     "committed_steps",
+    "enclosing_store",
     "path_state",
+    "refuse_inside_store",
     "refuse_uncommitted",
     "storage_fault",
     "with_last_commit",
@@ -36,6 +38,29 @@ def _has_chainyard_attrs(path: Path) -> bool:
         return False
     attrs = meta.get("attributes") if isinstance(meta, dict) else None
     return isinstance(attrs, dict) and isinstance(attrs.get(ATTRS_KEY), dict)
+
+
+def enclosing_store(path: Path) -> Path | None:
+    """The nearest folder above ``path`` (resolved) that is a chainyard store, if any."""
+    for parent in Path(path).resolve().parents:
+        if (parent / COMMIT_FILE).exists() or _has_chainyard_attrs(parent):
+            return parent
+    return None
+
+
+def refuse_inside_store(out: Path, what: str) -> None:
+    """Refuse (exit 4) to write ``what`` at ``out`` inside an existing chainyard store.
+
+    Raises
+    ------
+    StoreError
+        Naming the enclosing store.
+    """
+    home = enclosing_store(out)
+    if home is not None:
+        raise StoreError(
+            f"{out}: is inside the chainyard store {home}; write the {what} outside any store"
+        )
 
 
 def _holds_data_chunks(path: Path) -> bool:

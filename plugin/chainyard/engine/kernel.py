@@ -213,6 +213,18 @@ class KernelDriver:
             x = again
         self._check = False
 
+    def step_twice(self, x: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """One kernel step from ``x``, twice, each with its own copy of chain 0's stream (the
+        run's streams are untouched); equal for a kernel whose randomness is all its rng's."""
+        record = generator_to_json(self._gens[0])
+        out = []
+        for _ in range(2):
+            new, _lp = self._parse(
+                self._call(x, generator_from_json(record), 0, self._step), 0, self._step
+            )
+            out.append(np.array(new, dtype=np.float64))
+        return out[0], out[1]
+
     def random_state(self) -> dict[str, Any]:
         """Every chain's stream as JSON."""
         return {

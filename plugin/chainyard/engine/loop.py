@@ -19,6 +19,7 @@ from chainyard.engine.buffer import StepBuffer
 from chainyard.engine.commit import CommitJob
 from chainyard.engine.drivers import make_driver
 from chainyard.engine.guards import check_deterministic
+from chainyard.engine.recheck import LaterStepCheck
 from chainyard.engine.stopping import Interrupted, StopFlag
 from chainyard.engine.writer import Committer, process_writer_available
 from chainyard.errors import StoreError
@@ -129,6 +130,7 @@ def advance(
     first_commit = True
     # the determinism check compares with the stored start (once per process)
     start_state = store.start_state() if config.model.check_deterministic else None
+    later_check = LaterStepCheck(model, driver) if config.model.check_deterministic else None
     writer: Committer | None = None
 
     def open_writer() -> Committer:
@@ -163,6 +165,9 @@ def advance(
             check_rng = getattr(driver, "check_reproducible", None)
             if check_rng is not None:
                 check_rng()  # a user kernel's randomness must all come from its rng
+        if later_check is not None:  # one state of these rows again (engine/recheck.py)
+            window = slice(committed - buf.origin, upto - buf.origin)
+            later_check(buf.position[window], buf.log_prob[window])
         if writer is None:
             writer = open_writer()
         writer.wait()
@@ -192,6 +197,11 @@ def advance(
     step = last_check_step = done
     i = counted = buf.fill  # next buffer row; rows before ``counted`` are in accepted_sum
     check_row = i + 1  # the bookkeeping below runs when row ``check_row - 1`` is filled
+
+    def shown_acceptance(rate: float) -> float:
+        """The driver's own acceptance for progress lines (accept-reject: the proposals')."""
+        own = getattr(driver, "progress_acceptance", None)
+        return rate if own is None else float(own)
 
     def settle() -> None:
         """Bring ``step``, the buffer fill and the acceptance count up to row ``i``."""
@@ -223,7 +233,7 @@ def advance(
                 last_commit_time = now
             if now - last_report >= 0.2:
                 last_report = now
-                reporter.update(step, accepted_sum / ((step - done) * walkers))
+                reporter.update(step, shown_acceptance(accepted_sum / ((step - done) * walkers)))
             if stop.signum is not None:
                 # at a step boundary: the RNG state matches the last buffered step
                 stop.cancel()  # the finished steps are committed now, however long it takes
@@ -256,6 +266,7 @@ def advance(
         settle()
         steps_here = step - done
         acc = accepted_sum / (steps_here * walkers) if steps_here else float("nan")
+        acc = shown_acceptance(acc)
         reporter.update(step, acc)
         reporter.close(acc)
     reporter.message(f"done: {committed:,} steps committed")

@@ -34,7 +34,15 @@ from chainyard.engine.executor import Executor, SliceTask, WorkerSpec
 from chainyard.engine.processes import ProcessExecutor
 from chainyard.errors import ConfigError, ModelError
 
-__all__ = ["WorkerPool", "available_cpus", "parse_workers", "pool_pays", "worker_pool"]
+__all__ = [
+    "MAX_WORKERS",
+    "WorkerPool",
+    "available_cpus",
+    "cap_workers",
+    "parse_workers",
+    "pool_pays",
+    "worker_pool",
+]
 
 #: seconds to start the workers and load the model in them (measured on the development
 #: machine, 2 cores, loaded: 0.2-1.2 s; see tests/benchmarks/RESULTS.md)
@@ -57,6 +65,8 @@ REQUIRED_SPEEDUP = 1.25
 #: "auto" times this many calls (or calls for this many seconds) before choosing
 AUTO_TIMED_CALLS = 3
 AUTO_TIMING_SECONDS = 0.3
+#: larger ``--workers`` or ``--cpus`` values are refused (exit 2): a typo, not a machine
+MAX_WORKERS = 1024
 
 
 def available_cpus() -> int:
@@ -80,9 +90,27 @@ def parse_workers(value: int | str) -> int | None:
             return None
         if value.strip().isdigit():
             value = int(value)
-    if isinstance(value, int) and not isinstance(value, bool) and value >= 1:
+    if isinstance(value, int) and not isinstance(value, bool) and 1 <= value <= MAX_WORKERS:
         return value
-    raise ConfigError(f"workers: must be a whole number >= 1 or 'auto', got {value!r}")
+    raise ConfigError(
+        f"workers: must be a whole number from 1 to {MAX_WORKERS} or 'auto', got {value!r}"
+    )
+
+
+def cap_workers(count: int | None, cpus: int | None, say: Callable[[str], None]) -> int | None:
+    """``count`` capped at ``cpus`` (given) or the CPUs available, saying so in one line.
+
+    More processes than CPUs only compete for them (and thousands exhaust the process table).
+    ``None`` (``auto``) is returned as is: it is capped by the pool itself.
+    """
+    if count is None:
+        return None
+    limit = cpus if cpus is not None else available_cpus()
+    if count <= limit:
+        return count
+    where = f"--cpus {cpus}" if cpus is not None else f"the {limit} CPU(s) available"
+    say(f"workers: {count} asked for, capped at {limit} ({where})")
+    return limit
 
 
 def pool_pays(seconds_per_walker: float, walkers: int, steps: int, workers: int) -> bool:
@@ -295,8 +323,14 @@ def worker_pool(
     if count == 1:
         yield
         return
-    if cpus is not None and (isinstance(cpus, bool) or not isinstance(cpus, int) or cpus < 1):
-        raise ConfigError(f"cpus: must be a whole number >= 1, got {cpus!r}")
+    if cpus is not None and (
+        isinstance(cpus, bool) or not isinstance(cpus, int) or not 1 <= cpus <= MAX_WORKERS
+    ):
+        raise ConfigError(f"cpus: must be a whole number from 1 to {MAX_WORKERS}, got {cpus!r}")
+    count = cap_workers(count, cpus, say)
+    if count == 1:
+        yield
+        return
     pool = WorkerPool(
         spec,
         count,

@@ -38,6 +38,7 @@ from chainyard.engine.drivers import (
 from chainyard.engine.guards import (
     committed_steps,
     path_state,
+    refuse_inside_store,
     refuse_uncommitted,
     storage_fault,
     with_last_commit,
@@ -156,6 +157,7 @@ def sample(
             "STORE s3://BUCKET/PATH`"
         )
     path = Path(store_path)
+    refuse_inside_store(path, "store")
     try:
         model = load_model(config)
     except ConfigError as exc:
@@ -383,7 +385,7 @@ def _stored_steps(store: Store) -> int:
 
 
 def _check_identity(store: Store, identity: dict[str, Any], path: Path) -> None:
-    diffs = describe_differences(store.attrs.get("identity", {}), identity)
+    diffs = describe_differences(store.attrs.get("identity") or {}, identity)
     if diffs:
         raise StoreConflictError(
             f"{path}: store was made with different settings: {'; '.join(diffs)}. "

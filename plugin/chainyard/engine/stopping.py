@@ -7,19 +7,25 @@ that boundary, so the first signal also starts a timer: if the process is still 
 stops the run at once, without the unfinished steps (the last commit is intact and a rerun
 recomputes them bit for bit). A signal sent by the user a second time does the same at once.
 Should even that signal never be handled (a model stuck inside compiled code never returns
-to the interpreter), the process ends itself ``HARD_STOP_SECONDS`` later with ``os._exit``
-(the store keeps its last commit, as after a kill). SIGALRM is left alone: the guarded model
-evaluator uses it for ``model.call_time_limit_seconds``.
+to the interpreter), the process ends ``HARD_STOP_SECONDS`` later (the store keeps its last
+commit, as after a kill). SIGALRM is left alone: the guarded model evaluator uses it for
+``model.call_time_limit_seconds``.
+
+The timers run in a helper process (:mod:`chainyard.engine.stop_watcher`), told of each signal
+through ``signal.set_wakeup_fd``: compiled code holding the interpreter lock (a catastrophic
+regular expression) would keep a timer thread of this process from ever running. Where the
+helper cannot start, timer threads do the same job for models that release the lock.
 """
 
 from __future__ import annotations
 
 import os
 import signal
+import subprocess
 import sys
 import threading
 from collections.abc import Iterator
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from typing import Any
 
 __all__ = ["HARD_STOP_SECONDS", "STOP_GRACE_SECONDS", "Interrupted", "StopFlag", "stop_on_signals"]
@@ -71,14 +77,24 @@ class StopFlag:
         #: True once the grace period ran out (the run stops without its unfinished step)
         self.forced = False
         self._timers: list[threading.Timer] = []
+        #: the stop watcher's back channel (``F`` before a forced repeat), if it runs
+        self.watcher_fd: int | None = None
+        #: the wakeup pipe's write end (a 0 byte stands the watcher down)
+        self.watcher_wake: int | None = None
 
     def handler(self, signum: int, frame: Any) -> None:
         """The signal handler (runs on the main thread)."""
         if self.signum is not None:
             self.cancel()  # the interpreter is responsive: no need for the last resort
+            if self.watcher_fd is not None and self.watcher_wake is not None:
+                with suppress(BlockingIOError):
+                    self.forced = os.read(self.watcher_fd, 16).startswith(b"F")
+                with suppress(OSError):  # the interpreter is responsive: no SIGKILL needed
+                    os.write(self.watcher_wake, b"\0")
             raise Interrupted(signum)
         self.signum = signum
-        self._start(self.grace, self._resend)
+        if self.watcher_fd is None:  # no watcher process: timer threads instead
+            self._start(self.grace, self._resend)
 
     def _start(self, seconds: float, action: Any) -> None:
         timer = threading.Timer(seconds, action)
@@ -111,6 +127,42 @@ class StopFlag:
         self._timers = []
 
 
+class _Watcher:
+    """The stop watcher process and its two pipes (see :mod:`chainyard.engine.stop_watcher`)."""
+
+    def __init__(self, flag: StopFlag) -> None:
+        wake_r, self.wake_w = os.pipe()
+        self.back_r, back_w = os.pipe()
+        os.set_blocking(self.wake_w, False)
+        os.set_blocking(self.back_r, False)
+        script = os.path.join(os.path.dirname(__file__), "stop_watcher.py")
+        stops = f"{int(signal.SIGTERM)},{int(signal.SIGINT)}"
+        args = [str(os.getpid()), str(wake_r), str(back_w), f"{flag.grace!r}", f"{flag.hard!r}"]
+        try:
+            self.proc: subprocess.Popen[bytes] | None = subprocess.Popen(
+                [sys.executable, "-I", "-S", script, *args, stops],
+                pass_fds=(wake_r, back_w),
+                stdin=subprocess.DEVNULL,
+                stdout=subprocess.DEVNULL,
+            )
+        except OSError:
+            self.proc = None
+        finally:
+            os.close(wake_r)
+            os.close(back_w)
+
+    def close(self) -> None:
+        """Close the pipes (the watcher sees end-of-file and exits) and reap it."""
+        os.close(self.wake_w)
+        if self.proc is not None:
+            try:
+                self.proc.wait(timeout=30)
+            except subprocess.TimeoutExpired:  # pragma: no cover - a watcher that hangs
+                self.proc.kill()
+                self.proc.wait()
+        os.close(self.back_r)
+
+
 @contextmanager
 def stop_on_signals(grace: float = STOP_GRACE_SECONDS) -> Iterator[StopFlag]:
     """Handle SIGTERM and SIGINT with a :class:`StopFlag` inside the block (main thread only)."""
@@ -120,9 +172,19 @@ def stop_on_signals(grace: float = STOP_GRACE_SECONDS) -> Iterator[StopFlag]:
     except ValueError:  # not the main thread: leave signals alone
         yield flag
         return
+    watcher = _Watcher(flag)
+    old_fd = -1
+    if watcher.proc is not None:
+        old_fd = signal.set_wakeup_fd(watcher.wake_w, warn_on_full_buffer=False)
+        flag.watcher_fd = watcher.back_r
+        flag.watcher_wake = watcher.wake_w
     try:
         yield flag
     finally:
         flag.cancel()
+        flag.watcher_fd = flag.watcher_wake = None
+        if watcher.proc is not None:
+            signal.set_wakeup_fd(old_fd)
         for s, h in old.items():
             signal.signal(s, h)
+        watcher.close()

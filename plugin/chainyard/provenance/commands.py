@@ -33,19 +33,20 @@ def _replay_steps(text: str) -> int | None:
 
 
 def _check_replay_allowed(args: argparse.Namespace) -> None:
-    """Refuse (exit 2) to replay a pack without --run-pack-code, before anything is read."""
-    from chainyard.provenance.replay import require_pack_consent
+    """Refuse (exit 2) to replay code that came with a store or pack without
+    --run-pack-code, before anything is read."""
+    from chainyard.provenance.replay import require_code_consent
     from chainyard.store import Store
 
     path = Path(args.target)
-    if args.run_pack_code or (path.is_file() and path.suffix.lower() in (".json", ".png")):
+    if path.is_file() and path.suffix.lower() in (".json", ".png"):
         return
     try:
         store = Store.open(path)
     except ChainyardError:
         return  # verify reports it
     try:
-        require_pack_consent(store, False)
+        require_code_consent(store, args.run_pack_code, args.sources)
     finally:
         store.close()
 
@@ -167,9 +168,12 @@ def add_commands(sub: Any) -> None:
     )
     p.add_argument(
         "--run-pack-code",
+        "--run-stored-code",
+        dest="run_pack_code",
         action="store_true",
-        help="allow --replay on a pack (packed or unpacked): it imports and runs the model "
-        "code and config that came with the pack; only for packs from people you trust",
+        help="allow --replay on code that came with the store: it imports and runs the model "
+        "code and config of a pack (packed or unpacked) or model files inside a store's own "
+        "folder; only for stores and packs from people you trust",
     )
     p.add_argument(
         "--no-chain", action="store_true", help="do not check the inputs a store or record names"

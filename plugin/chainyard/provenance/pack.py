@@ -401,6 +401,9 @@ def unpack_store(pack: str | Path, out: str | Path) -> Path:
     pack, out = Path(pack), Path(out)
     if os.path.lexists(out):
         raise StoreError(f"{out}: already exists; unpack into a new directory")
+    from chainyard.engine.guards import refuse_inside_store
+
+    refuse_inside_store(out, "unpacked store")
     archive, index = open_pack(pack)
     tmp = out.with_name(f".{out.name}.{os.getpid()}.partial")
     root = tmp.resolve()

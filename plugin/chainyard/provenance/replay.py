@@ -148,6 +148,88 @@ def require_pack_consent(store: Store, allowed: bool) -> None:
         )
 
 
+def _code_references(data: Any) -> list[tuple[str, str]]:
+    """(field, reference) of every function a stored config names (model, loader, kernel)."""
+    if not isinstance(data, dict):
+        return []
+    model = data.get("model") if isinstance(data.get("model"), dict) else {}
+    sampler = data.get("sampler") if isinstance(data.get("sampler"), dict) else {}
+    refs = [
+        ("model.log_prob", model.get("log_prob")),
+        ("model.data_loader", model.get("data_loader")),
+        ("sampler.kernel", sampler.get("kernel")),
+    ]
+    return [(f, r) for f, r in refs if isinstance(r, str) and r]
+
+
+def _is_file_reference(ref: str) -> bool:
+    module = ref.rpartition(":")[0]
+    return module.endswith(".py") or "/" in module or "\\" in module
+
+
+def replay_base(store: Store, sources: str | Path | None) -> Path | None:
+    """The folder a plain store's recorded model paths resolve against (None for a pack).
+
+    Raises
+    ------
+    ConfigError
+        (exit 2) if the recorded ``config_dir`` is not an absolute path and no ``sources``
+        folder was given: recorded paths are never resolved against the current folder.
+    """
+    if sources is not None:
+        return Path(sources).resolve()
+    if _pack_manifest(store) is not None:
+        return None
+    recorded = store.attrs.get("config_dir")
+    if not isinstance(recorded, str) or not Path(recorded).is_absolute():
+        raise ConfigError(
+            f"{store.path}: the recorded config_dir {recorded!r} is not an absolute path; "
+            "recorded paths are never resolved against the current folder: give --sources DIR "
+            "(the folder holding the model and data)"
+        )
+    return Path(recorded)
+
+
+def stored_code(store: Store, base: Path | None) -> list[str]:
+    """The functions a replay would import from files inside the store's own folder."""
+    if base is None:
+        return []
+    inside = Path(store.path).resolve()
+    found = []
+    for field, ref in _code_references(store.attrs.get("config")):
+        if not _is_file_reference(ref):
+            continue
+        module = Path(ref.rpartition(":")[0])
+        path = (module if module.is_absolute() else base / module).resolve()
+        if path.is_relative_to(inside):
+            found.append(f"{field} {ref}")
+    return found
+
+
+def require_code_consent(store: Store, allowed: bool, sources: str | Path | None = None) -> None:
+    """Refuse to replay code that came with a store or pack unless explicitly allowed.
+
+    A pack's code, and model files that resolve inside the store's own folder, came with the
+    store (from whoever made it), not from the user's sources.
+
+    Raises
+    ------
+    ConfigError
+        (exit 2) naming what would run and the option that allows it; also if the recorded
+        ``config_dir`` is relative and no ``sources`` was given (see :func:`replay_base`).
+    """
+    require_pack_consent(store, allowed)
+    base = replay_base(store, sources)
+    if allowed:
+        return
+    code = stored_code(store, base)
+    if code:
+        raise ConfigError(
+            f"{store.path}: replaying this store would import and run code stored inside it: "
+            f"{', '.join(code)}; add {RUN_PACK_CODE} if you trust where the store came from"
+        )
+
+
 def _materialise_pack_sources(store: Store, into: Path) -> Path | None:
     """Write a pack's model/data files at their recorded relative paths below ``into``
     (copied in blocks; paths that would leave ``into`` are skipped)."""
@@ -195,7 +277,7 @@ def _check_inputs(store: Store, config: Any, base: Path) -> None:
     from chainyard.engine.identity import describe_differences, run_identity
 
     diffs = describe_differences(
-        store.attrs.get("identity", {}), run_identity(config, store.replica, driver_kind(config))
+        store.attrs.get("identity") or {}, run_identity(config, store.replica, driver_kind(config))
     )
     if diffs:
         raise VerificationError(
@@ -348,20 +430,23 @@ def replay(
         Directory the recorded model/data paths are resolved against (default: the pack's
         copies, else the directory of the original config).
     run_pack_code : bool
-        Allow replaying a pack (packed or unpacked): this imports and runs the model code and
-        the stored config that came with it. A store that is not a pack runs its config's
-        model files (the user's own) either way.
+        Allow running code that came with the store: a pack's (packed or unpacked) model
+        code and config, or model files that resolve inside the store's own folder. Other
+        model files of a plain store (the user's own, at its recorded absolute
+        ``config_dir``) run either way.
 
     Raises
     ------
     ConfigError
-        If ``target`` is a pack and ``run_pack_code`` is false (nothing is imported).
+        If the code to run came with the store or pack and ``run_pack_code`` is false, or
+        the recorded ``config_dir`` is relative and no ``sources`` is given (nothing is
+        imported).
     VerificationError
         If the model or data no longer match their recorded hashes, or nothing can be
         compared. A replay that runs but differs is returned, not raised.
     """
     store = target if isinstance(target, Store) else Store.open(target)
-    require_pack_consent(store, run_pack_code)
+    require_code_consent(store, run_pack_code, sources)
     attrs = store.attrs
     if store.steps_done == 0:
         raise VerificationError(f"{store.path}: no committed steps to replay")
@@ -379,9 +464,9 @@ def replay(
         if b < 1:
             raise VerificationError("--replay needs at least 1 step")
     with ExitStack() as stack:
-        if sources is not None:
-            base = Path(sources).resolve()
-        else:
+        base = replay_base(store, sources)
+        if base is None:  # a pack: its own copies of the model and data
             tmp = Path(stack.enter_context(tempfile.TemporaryDirectory(prefix="chainyard-")))
-            base = _materialise_pack_sources(store, tmp) or Path(attrs.get("config_dir", "."))
+            base = _materialise_pack_sources(store, tmp)
+            assert base is not None
         return _run(store, base, a, b, segment)

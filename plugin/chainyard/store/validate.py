@@ -51,6 +51,8 @@ def parse_json(data: bytes, where: str) -> Any:
         return json.loads(text)
     except ValueError as exc:
         raise StoreError(f"{where}: is not valid JSON ({exc}); the store is damaged") from None
+    except RecursionError:  # e.g. 200,000 nested lists: no record of ours nests so deep
+        raise StoreError(f"{where}: its JSON nests too deeply; the store is damaged") from None
 
 
 def _is_int(value: Any) -> bool:
@@ -91,6 +93,17 @@ def check_attrs(attrs: dict[str, Any], where: str) -> None:
     for key in ("identity", "derived", "provenance", "created_by"):
         if key in attrs and attrs[key] is not None and not isinstance(attrs[key], dict):
             raise _bad(where, f"attribute {key}", attrs[key], "a mapping")
+    identity = attrs.get("identity")
+    if isinstance(identity, dict):  # the sources it names are read by provenance and plots
+        for key in ("model_source", "data", "data_loader", "initial_positions"):
+            value = identity.get(key)
+            if value is not None and not isinstance(value, dict):
+                raise _bad(where, f"attribute identity.{key}", value, "a mapping or null")
+        extra = identity.get("extra_sources")
+        if extra is not None and not (
+            isinstance(extra, list) and all(isinstance(e, dict) for e in extra)
+        ):
+            raise _bad(where, "attribute identity.extra_sources", extra, "a list of mappings")
 
 
 def check_commit(record: Any, where: str) -> None:
