@@ -244,9 +244,10 @@ def _craft_code_store(store: Path, marker: Path) -> None:
 
 
 def test_replay_never_runs_code_from_a_store_without_opt_in(tmp_path: Path, tally: Tally) -> None:
-    """A store carrying its own model (config_dir = its folder name, resealed) verifies, but
-    ``verify --replay`` run beside it imports nothing: a relative config_dir is never resolved
-    against the current folder, and code inside the store needs --run-stored-code."""
+    """A store carrying its own model (config_dir = its folder name, resealed): ``verify``
+    names the file chainyard did not write; ``verify --replay`` beside it imports nothing: a
+    relative config_dir is never resolved against the current folder, code inside the store
+    needs --run-stored-code, and even then a file chainyard did not write is refused."""
     work, victim = tmp_path / "work", tmp_path / "victim"
     cfg = write_run(work, TINY)
     assert cli("sample", str(cfg), "--out", str(work / "s.zarr")).returncode == 0
@@ -255,7 +256,8 @@ def test_replay_never_runs_code_from_a_store_without_opt_in(tmp_path: Path, tall
     shutil.copytree(work / "s.zarr", store)
     marker = victim / "imported.txt"
     _craft_code_store(store, marker)
-    assert cli("verify", "s.zarr", cwd=victim).returncode == 0  # the seal holds
+    res = cli("verify", "s.zarr", cwd=victim)  # the seal holds; the stray file is named
+    assert res.returncode == 7 and "evilmodel.py: unknown file" in res.stderr, res.stderr
     res = cli("verify", "s.zarr", "--replay", "5", cwd=victim)
     tally.input()
     assert res.returncode == 2, res.stdout + res.stderr
@@ -279,8 +281,9 @@ def test_replay_never_runs_code_from_a_store_without_opt_in(tmp_path: Path, tall
         "--run-stored-code",
         cwd=victim,
     )
-    assert res.returncode == 0, res.stdout + res.stderr
-    assert marker.read_text() == "imported"  # the checks above could see an import
+    # even with the opt-in, a file chainyard did not write fails verification before any replay
+    assert res.returncode == 7 and "evilmodel.py: unknown file" in res.stderr, res.stderr
+    assert not marker.exists()
 
 
 # ------------------------- items 6 and 13: exports on a full disk, and killed exports' leftovers
@@ -550,8 +553,8 @@ def test_deeply_nested_commit_record_is_damage(tmp_path: Path, tally: Tally) -> 
     "identity", [None, {"model_source": 5}, {"extra_sources": [1]}], ids=["null", "int", "list"]
 )
 def test_edited_identity_stamp(identity: object, tmp_path: Path, tally: Tally) -> None:
-    """An edited ``identity`` attribute: ``plot`` either works or exits 4 naming the attribute
-    (never an internal error, exit 70)."""
+    """An edited ``identity`` attribute: ``plot`` exits 4 naming the attribute (never an
+    internal error, exit 70)."""
     import json
 
     cfg = write_run(tmp_path, TINY)
@@ -562,8 +565,6 @@ def test_edited_identity_stamp(identity: object, tmp_path: Path, tally: Tally) -
     (store / "zarr.json").write_text(json.dumps(meta))
     res = cli("plot", str(store), "--raw", "-o", str(tmp_path / "plots"))
     tally.fault()
-    if identity is None:
-        assert res.returncode == 0, res.stderr
-    else:
-        assert res.returncode == 4, res.stderr
-        assert "attribute identity." in _one_error(res.stderr)
+    # the seal is checked on every read: any edit is exit 4 naming the attribute
+    assert res.returncode == 4, res.stderr
+    assert "identity" in _one_error(res.stderr)
