@@ -97,9 +97,7 @@ def undecided_burn_in(attrs: dict[str, Any]) -> str | None:
             "burn-in was set by hand (derive --discard), not decided by a record "
             "(`chainyard decide burn-in`)"
         )
-    return (
-        "burn-in was not decided (derived with --discard 0): the draws include any burn-in"
-    )
+    return "burn-in was not decided (derived with --discard 0), so the draws include any burn-in"
 
 
 def same_run(stores: Sequence[Store]) -> None:
@@ -190,7 +188,7 @@ def choose_selection(
         raise StoreError(
             f"{stores[0].path}: a sampled store (burn-in included); give --burn-in-record "
             "(and --thinning-record) to use the recorded selection, --raw for every draw, "
-            "or the derived stores (e.g. final/replica-R.zarr)"
+            "or the derived stores (e.g. standalone/replica-R.zarr)"
         )
     discard, factor = 0, 1
     if burn_in_record is not None:
@@ -210,7 +208,7 @@ def choose_selection(
     offset, stride = row_map(stores[0].attrs)
     note = undecided_burn_in(stores[0].attrs) if derived else None
     if derived and note:
-        description = f"the derived stores' draws ({note})"
+        description = f"the derived stores' draws; {note}"
     elif derived:
         description = "the derived stores' draws (burn-in and thinning as recorded in them)"
     elif records:
