@@ -109,7 +109,7 @@ def adaptation_steps(stores: Sequence[Store]) -> int:
     """
     from chainyard.analysis.selection import row_map
 
-    attrs = stores[0].attrs
+    attrs = getattr(stores[0], "attrs", None) or {}  # arrays in memory carry no config
     sampler = (attrs.get("config") or {}).get("sampler") or {}
     if sampler.get("kind") != "metropolis_hastings":
         return 0
