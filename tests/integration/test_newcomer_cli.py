@@ -175,7 +175,7 @@ def test_derive_needs_a_record_or_an_explicit_discard(run: Path) -> None:
     note = "burn-in was not decided (derived with --discard 0), so the draws include any burn-in"
     res = cli("export", "d0.zarr", "-o", "d0.csv", cwd=run)
     assert res.returncode == 0, res.stderr
-    assert note in res.stdout
+    assert note in res.stdout and note in res.stderr
     res = cli("diagnose", "d0.zarr", cwd=run)
     assert res.returncode == 0, res.stderr
     assert note in res.stdout.splitlines()[0] and note in res.stderr
