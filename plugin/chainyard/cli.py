@@ -212,13 +212,16 @@ def _cmd_derive(args: argparse.Namespace) -> int:
         "derived" in source.attrs and undecided_burn_in(source.attrs) is None
     )
     store = derive_store(
-        source, args.out, discard=discard, factor=factor, records=records,
+        source,
+        args.out,
+        discard=discard,
+        factor=factor,
+        records=records,
         burn_in_decided=decided,
     )
     how = "" if decided else "; burn-in not decided by a record"
     print(
-        f"{args.out}: {store.steps_done:,} steps (discarded {discard:,}, kept every "
-        f"{factor}{how})"
+        f"{args.out}: {store.steps_done:,} steps (discarded {discard:,}, kept every {factor}{how})"
     )
     return 0
 
@@ -333,7 +336,9 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument("--traceback", action="store_true", help=_TRACEBACK_HELP)
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
-    p = sub.add_parser("sample", help="create, resume or extend one replica's store")
+    p = sub.add_parser(
+        "sample", help="create, resume or extend one replica's store (all: --replicas N)"
+    )
     p.add_argument("config", help="run configuration (YAML)")
     p.add_argument("--out", required=True, help="store directory to create or continue")
     p.add_argument(

@@ -79,7 +79,12 @@ def derive_store(
     with publish_derived(out, source=Path(source.path)) as tmp:
         decided = bool(records) if burn_in_decided is None else burn_in_decided
         _write_derived(
-            source, tmp, discard=discard, factor=factor, stop=end, records=records,
+            source,
+            tmp,
+            discard=discard,
+            factor=factor,
+            stop=end,
+            records=records,
             decided=decided,
         )
     return Store.open(out)
