@@ -13,7 +13,7 @@ $(STAMP): pyproject.toml
 	touch $(STAMP)
 
 demo: $(STAMP)  ## run the example workflow end to end
-	cd example_workflow && ../$(BIN)/snakemake --cores 2 --printshellcmds
+	cd example_workflow && ../$(BIN)/snakemake --cores 2
 	cd example_workflow && ../$(BIN)/snakemake --cores 1 --report report.html
 	@echo "Report: example_workflow/report.html"
 

@@ -47,15 +47,32 @@ def _cmd_sample(args: argparse.Namespace) -> int:
         cpus=args.cpus,
     )
     templated = REPLICA_FIELD in args.out
+    if args.replicas is not None:
+        from chainyard.engine.replicas import check_replicas_option
+
+        check_replicas_option(args.out, args.replicas, args.replica)
     if not args.until_targets:
-        out = args.out.replace(REPLICA_FIELD, str(args.replica))
-        sample(config, out, replica=args.replica, **kwargs)
+        if args.replicas is not None:
+            from chainyard.engine.replicas import sample_replicas
+
+            sample_replicas(config, args.out, args.replicas, **kwargs)
+            return 0
+        if templated and args.replica is None and config.replicas > 1:
+            print(
+                f"note: sampling replica 0 only of {config.replicas}; --replicas "
+                f"{config.replicas} samples them all",
+                file=sys.stderr,
+            )
+        replica = args.replica or 0
+        out = args.out.replace(REPLICA_FIELD, str(replica))
+        sample(config, out, replica=replica, **kwargs)
         return 0
     from chainyard.analysis.until import sample_until_targets
 
     if templated:  # every replica of the run, extended in turn, judged together
-        paths = replica_paths(args.out, config.replicas)
-        indices = list(range(config.replicas))
+        count = args.replicas or config.replicas
+        paths = replica_paths(args.out, count)
+        indices = list(range(count))
     elif config.replicas > 1:
         raise ConfigError(
             f"--until-targets judges the whole run ({config.replicas} replicas): give --out "
@@ -63,7 +80,7 @@ def _cmd_sample(args: argparse.Namespace) -> int:
             "replica is extended and diagnosed together"
         )
     else:
-        paths, indices = [Path(args.out)], [args.replica]
+        paths, indices = [Path(args.out)], [args.replica or 0]
     store, met = sample_until_targets(config, paths, indices, **kwargs)
     if not met:
         raise TargetsNotMetError(
@@ -133,17 +150,29 @@ def _cmd_decide(args: argparse.Namespace) -> int:
     from chainyard.analysis import decide_burn_in, decide_thinning, write_record
     from chainyard.analysis.outputs import check_record_path
     from chainyard.analysis.replicas import open_replicas
+    from chainyard.analysis.selection_options import selected_stores
 
     check_record_path(Path(args.out), "--out")
-    stores = open_replicas(args.stores)
-    config = _run_config(args, args.stores[0])
     if args.what == "burn-in":
+        if args.burn_in_record or args.thinning_record or args.raw:
+            raise ConfigError(
+                "decide burn-in: --burn-in-record, --thinning-record and --raw belong to "
+                "`decide thinning`; burn-in is decided on the sampled stores as they are"
+            )
+        stores = open_replicas(args.stores)
+        config = _run_config(args, args.stores[0])
         decision = decide_burn_in(stores, config.burn_in)
         kind = "chainyard.burn_in_decision"
+        inputs = stores
     else:
-        decision = decide_thinning(stores, config.thinning)
+        if args.thinning_record:
+            raise ConfigError("decide thinning: --thinning-record is what it writes (--out)")
+        stores, views, _ = selected_stores(args, for_what="decide thinning on")
+        config = _run_config(args, args.stores[0])
+        decision = decide_thinning(views, config.thinning)
         kind = "chainyard.thinning_decision"
-    write_record(args.out, kind, {"decision": decision.to_dict()}, stores)
+        inputs = [*stores, *([Path(args.burn_in_record)] if args.burn_in_record else [])]
+    write_record(args.out, kind, {"decision": decision.to_dict()}, inputs)
     print(decision.reason)
     return 0
 
@@ -153,42 +182,71 @@ def _cmd_derive(args: argparse.Namespace) -> int:
     from chainyard.store import Store
 
     discard, factor, records = 0, 1, []
+    if args.burn_in_record and args.discard is not None:
+        raise ConfigError(
+            "derive: --discard contradicts --burn-in-record (the recorded cut); give one"
+        )
+    if not args.burn_in_record and args.discard is None:
+        raise ConfigError(
+            "derive: give --burn-in-record FILE (from `chainyard decide burn-in`) or "
+            "--discard N (steps to drop, decided by you; --discard 0 keeps any burn-in)"
+        )
     if args.burn_in_record:
         rec = read_record(args.burn_in_record, "chainyard.burn_in_decision")
         discard = int(rec["decision"]["steps_discarded"])
         records.append(Path(args.burn_in_record))
+    else:
+        discard = args.discard
     if args.thinning_record:
         rec = read_record(args.thinning_record, "chainyard.thinning_decision")
         factor = int(rec["decision"]["factor"])
         records.append(Path(args.thinning_record))
-    store = derive_store(
-        Store.open(args.source), args.out, discard=discard, factor=factor, records=records
+    source = Store.open(args.source)
+    from chainyard.analysis.selection import undecided_burn_in
+
+    # decided here by a record, or upstream (a derived source whose burn-in was decided)
+    decided = bool(args.burn_in_record) or (
+        "derived" in source.attrs and undecided_burn_in(source.attrs) is None
     )
-    print(f"{args.out}: {store.steps_done:,} steps (discarded {discard:,}, kept every {factor})")
+    store = derive_store(
+        source,
+        args.out,
+        discard=discard,
+        factor=factor,
+        records=records,
+        burn_in_decided=decided,
+    )
+    how = "" if decided else "; burn-in not decided by a record"
+    print(
+        f"{args.out}: {store.steps_done:,} steps (discarded {discard:,}, kept every {factor}{how})"
+    )
     return 0
 
 
 def _cmd_diagnose(args: argparse.Namespace) -> int:
     from chainyard.analysis import diagnose, format_table, write_record
     from chainyard.analysis.replicas import open_replicas
+    from chainyard.analysis.selection_options import selected_stores
 
     if args.json:
         from chainyard.analysis.outputs import check_record_path
 
         check_record_path(Path(args.json), "--json")
-    stores = open_replicas(args.stores)
+    stores, views, selection = selected_stores(args, for_what="diagnose")
     config = _run_config(args, args.stores[0])
-    result = diagnose(stores, config.targets)
+    result = diagnose(views, config.targets)
+    result["selection"] = selection.description
     if args.reference:
         from chainyard.analysis.diagnose import compare_with_reference
 
         reference = open_replicas(args.reference)
         result["reference"] = compare_with_reference(
-            stores, result, reference, ", ".join(args.reference)
+            views, result, reference, ", ".join(args.reference)
         )
+    records = [Path(r) for r in (args.burn_in_record, args.thinning_record) if r]
     if args.json:
-        write_record(args.json, "chainyard.diagnostics", result, stores)
-    print(format_table(result, title=args.title or ""))
+        write_record(args.json, "chainyard.diagnostics", result, [*stores, *records])
+    print(format_table(result, title=args.title or "", selection=selection.description))
     verdict = result["verdict"]
     if args.strict and not verdict["ok"]:
         sys.stdout.flush()
@@ -204,7 +262,15 @@ def _cmd_diagnose(args: argparse.Namespace) -> int:
 
 
 class _Parser(argparse.ArgumentParser):
-    """argparse with one-line usage errors: ``chainyard: error: MSG (see PROG --help)``."""
+    """argparse with one-line usage errors: ``chainyard: error: MSG (see PROG --help)``.
+
+    Option abbreviations are off for this parser and every subparser made from it
+    (``--res`` is not ``--restart``): a prefix must never select an option silently.
+    """
+
+    def __init__(self, *args: Any, **kwargs: Any) -> None:
+        kwargs["allow_abbrev"] = False
+        super().__init__(*args, **kwargs)
 
     def error(self, message: str) -> NoReturn:
         sys.stderr.write(f"chainyard: error: {message} (see {self.prog} --help)\n")
@@ -274,10 +340,22 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument("--traceback", action="store_true", help=_TRACEBACK_HELP)
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
-    p = sub.add_parser("sample", help="create, resume or extend one replica's store")
+    p = sub.add_parser(
+        "sample", help="create, resume or extend one replica's store (all: --replicas N)"
+    )
     p.add_argument("config", help="run configuration (YAML)")
     p.add_argument("--out", required=True, help="store directory to create or continue")
-    p.add_argument("--replica", type=_int_at_least(0), default=0, help="replica index (default 0)")
+    p.add_argument(
+        "--replica", type=_int_at_least(0), default=None, help="replica index (default 0)"
+    )
+    p.add_argument(
+        "--replicas",
+        type=_int_at_least(1),
+        default=None,
+        metavar="N",
+        help="sample replicas 0 to N-1 one after the other; --out must hold {replica} "
+        "(e.g. --out 'run/replica-{replica}.zarr')",
+    )
     p.add_argument(
         "--steps",
         type=_int_at_least(1),
@@ -340,13 +418,16 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument(
         "stores",
         nargs="+",
-        help="the run's replica stores: sampled ones for burn-in, derived (after burn-in) "
-        "ones for thinning",
+        help="the run's replica stores: sampled ones for burn-in; for thinning, derived ones "
+        "(after burn-in), or sampled ones with --burn-in-record (or --raw)",
     )
     p.add_argument("--out", required=True, help="decision record (JSON) to write")
     p.add_argument(
         "--config", default=None, help="run config with the policy (default: the one stored)"
     )
+    from chainyard.analysis.selection_options import add_selection_options
+
+    add_selection_options(p, "thinning: ")
     p.set_defaults(func=_cmd_decide)
 
     p = sub.add_parser("derive", help="write a store with burn-in discarded and/or thinned")
@@ -358,11 +439,27 @@ def _parser() -> argparse.ArgumentParser:
         "source, folders holding it, the current folder and anything else are refused)",
     )
     p.add_argument("--burn-in-record", default=None, help="burn-in decision record")
+    p.add_argument(
+        "--discard",
+        type=_int_at_least(0),
+        default=None,
+        metavar="N",
+        help="without a burn-in record: drop the first N steps, decided by you (--discard 0 "
+        "keeps every step; the derived store records that burn-in was not decided)",
+    )
     p.add_argument("--thinning-record", default=None, help="thinning decision record")
     p.set_defaults(func=_cmd_derive)
 
     p = sub.add_parser("diagnose", help="convergence diagnostics and verdict for a run")
-    p.add_argument("stores", nargs="+", help="the run's replica stores (after burn-in)")
+    p.add_argument(
+        "stores",
+        nargs="+",
+        help="the run's replica stores: derived ones (after burn-in), or sampled ones with "
+        "--burn-in-record (or --raw)",
+    )
+    from chainyard.analysis.selection_options import add_selection_options
+
+    add_selection_options(p, "")
     p.add_argument(
         "--config", default=None, help="run config with the targets (default: the one stored)"
     )

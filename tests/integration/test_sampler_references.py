@@ -346,6 +346,7 @@ def test_diagnose_reference_flags_a_wrong_run(tmp_path: Path) -> None:
         record = tmp_path / f"{name}.json"
         res = cli(
             "diagnose",
+            "--raw",
             str(stores[name]),
             "--reference",
             str(stores["ref"]),

@@ -404,7 +404,7 @@ def run_commands(
     commands = {
         "inspect": ["inspect", complete.name],
         "verify": ["verify", complete.name],
-        "diagnose": ["diagnose", complete.name],
+        "diagnose": ["diagnose", "--raw", complete.name],
         "resume": ["sample", str(config), "--out", partial.name, "--progress", "off"],
         "extend": ["sample", str(config), "--out", complete.name, "--steps", "400"],
     }

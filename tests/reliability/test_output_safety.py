@@ -28,6 +28,9 @@ from tests.reliability.conftest import Tally, snapshot
 
 pytestmark = pytest.mark.slow
 
+#: derive with every step kept, decided here (no burn-in record)
+DERIVE0 = ("derive", "--discard", "0")
+
 VECTOR_MODEL = """
 import numpy as np
 
@@ -72,7 +75,7 @@ def references(source: Path, tmp_path_factory: pytest.TempPathFactory) -> dict[s
     folder = tmp_path_factory.mktemp("ref")
     record = source.parent / "burn.json"
     out = {"full": folder / "full.zarr", "trimmed": folder / "trimmed.zarr"}
-    assert cli("derive", str(source), "--out", str(out["full"])).returncode == 0
+    assert cli(*DERIVE0, str(source), "--out", str(out["full"])).returncode == 0
     res = cli("derive", str(source), "--out", str(out["trimmed"]), "--burn-in-record", str(record))
     assert res.returncode == 0, res.stderr
     return out
@@ -105,7 +108,7 @@ def test_refuses_the_source_itself(source: Path, tally: Tally) -> None:
     """`derive S --out S` (also through another spelling of the path) refuses; S is intact."""
     before = snapshot(source)
     for out in (source, source.parent / "." / source.name):
-        line = one_error_line(cli("derive", str(source), "--out", str(out)), 4)
+        line = one_error_line(cli(*DERIVE0, str(source), "--out", str(out)), 4)
         assert line == (
             f"chainyard: error: {out}: refusing to write the derived store there: "
             "it is the source store"
@@ -118,7 +121,7 @@ def test_refuses_a_folder_holding_the_source(source: Path, tally: Tally) -> None
     """An --out that holds the source (its parent, grandparent) is refused; nothing removed."""
     before = snapshot(source.parent)
     for out in (source.parent, source.parent.parent):
-        line = one_error_line(cli("derive", str(source), "--out", str(out)), 4)
+        line = one_error_line(cli(*DERIVE0, str(source), "--out", str(out)), 4)
         assert line.endswith(
             f"refusing to write the derived store there: it holds the source store {source}"
         )
@@ -129,7 +132,7 @@ def test_refuses_a_folder_holding_the_source(source: Path, tally: Tally) -> None
 def test_refuses_a_path_inside_the_source(source: Path, tally: Tally) -> None:
     """An --out inside the source store is refused and creates nothing there."""
     before = snapshot(source)
-    line = one_error_line(cli("derive", str(source), "--out", str(source / "draws" / "x")), 4)
+    line = one_error_line(cli(*DERIVE0, str(source), "--out", str(source / "draws" / "x")), 4)
     assert line.endswith(f"it is inside the source store {source}")
     assert not (source / "draws" / "x").exists()
     tally.input()
@@ -143,11 +146,11 @@ def test_refuses_the_current_folder(source: Path, tmp_path: Path, tally: Tally) 
     (work / "notes.txt").write_text("mine\n")
     (work / "sub" / "data.csv").write_text("a,b\n1,2\n")
     before = snapshot(work)
-    line = one_error_line(cli("derive", str(source), "--out", ".", cwd=work), 4)
+    line = one_error_line(cli(*DERIVE0, str(source), "--out", ".", cwd=work), 4)
     assert line == (
         "chainyard: error: .: refusing to write the derived store there: it is the current folder"
     )
-    line = one_error_line(cli("derive", str(source), "--out", "..", cwd=work / "sub"), 4)
+    line = one_error_line(cli(*DERIVE0, str(source), "--out", "..", cwd=work / "sub"), 4)
     assert line.endswith("it holds the current folder")
     tally.input(2)
     tally.assert_intact(before, work)
@@ -167,7 +170,7 @@ def test_refuses_a_user_folder_and_a_user_file(source: Path, tmp_path: Path, tal
         ("notes.txt", "a file of that name exists"),
     ):
         out = tmp_path / name
-        line = one_error_line(cli("derive", str(source), "--out", str(out)), 4)
+        line = one_error_line(cli(*DERIVE0, str(source), "--out", str(out)), 4)
         assert line == (
             f"chainyard: error: {out}: refusing to write the derived store there: "
             f"{why} (only a derived store is replaced; choose another path)"
@@ -180,16 +183,16 @@ def test_refuses_a_user_folder_and_a_user_file(source: Path, tmp_path: Path, tal
 def test_refuses_a_sampled_store(source: Path, tmp_path: Path, tally: Tally) -> None:
     """A sampled store at --out (even a copy of the source) is refused, byte-identical after."""
     other = tmp_path / "other.zarr"
-    res = cli("derive", str(source), "--out", str(tmp_path / "d.zarr"))
+    res = cli(*DERIVE0, str(source), "--out", str(tmp_path / "d.zarr"))
     assert res.returncode == 0, res.stderr
     shutil.copytree(source, other)  # a sampled store that is not the source
     before = snapshot(other)
-    line = one_error_line(cli("derive", str(source), "--out", str(other)), 4)
+    line = one_error_line(cli(*DERIVE0, str(source), "--out", str(other)), 4)
     assert line.endswith(
         "it is a sampled store, not a derived one (only a derived store is "
         "replaced; choose another path)"
     )
-    line = one_error_line(cli("derive", str(source), "--out", str(other / "inner")), 4)
+    line = one_error_line(cli(*DERIVE0, str(source), "--out", str(other / "inner")), 4)
     assert line.endswith(f"it is inside the chainyard store {other}")
     tally.input(2)
     tally.assert_intact(before, other)
@@ -201,7 +204,7 @@ def test_replaces_a_derived_store(
     """An existing derived store is replaced by the new one (also through a symlink)."""
     out = tmp_path / "d.zarr"
     before = snapshot(source)
-    assert cli("derive", str(source), "--out", str(out)).returncode == 0
+    assert cli(*DERIVE0, str(source), "--out", str(out)).returncode == 0
     same_derived(out, references["full"])
     record = source.parent / "burn.json"
     link = tmp_path / "link.zarr"
@@ -230,12 +233,12 @@ def test_second_derive_of_the_same_output_exits_6(
 ) -> None:
     """While one derive writes (held stopped mid-write), a second gets exit 6 in one line."""
     out = tmp_path / "d.zarr"
-    first = popen_cli("derive", str(source), "--out", str(out))
+    first = popen_cli(*DERIVE0, str(source), "--out", str(out))
     try:
         _wait_for(lambda: leftovers(out) != [] or first.poll() is not None)
         os.kill(first.pid, signal.SIGSTOP)
         assert first.poll() is None, "the first derive finished before it could be stopped"
-        second = cli("derive", str(source), "--out", str(out))
+        second = cli(*DERIVE0, str(source), "--out", str(out))
         line = one_error_line(second, 6)
         assert "another process is writing" in line and str(out) in line
     finally:
@@ -253,7 +256,7 @@ def test_concurrent_derives_leave_one_complete_output(
     """Two derives started together: each ends 0 or 6 (one line), the output verifies."""
     out = tmp_path / "d.zarr"
     for _ in range(2):
-        procs = [popen_cli("derive", str(source), "--out", str(out)) for _ in range(2)]
+        procs = [popen_cli(*DERIVE0, str(source), "--out", str(out)) for _ in range(2)]
         codes = []
         for p in procs:
             _, err = p.communicate(timeout=120)
@@ -280,6 +283,8 @@ def test_kill_before_publish_keeps_the_old_store(
     before = snapshot(source)
     res = cli(
         "derive",
+        "--discard",
+        "0",
         str(source),
         "--out",
         str(tmp_path / "fresh.zarr"),
@@ -287,7 +292,7 @@ def test_kill_before_publish_keeps_the_old_store(
     )
     assert res.returncode == -signal.SIGKILL
     assert not (tmp_path / "fresh.zarr").exists()
-    assert cli("derive", str(source), "--out", str(out)).returncode == 0
+    assert cli(*DERIVE0, str(source), "--out", str(out)).returncode == 0
     old = snapshot(out)
     res = cli(
         "derive",
@@ -306,7 +311,7 @@ def test_kill_before_publish_keeps_the_old_store(
     same_derived(out, references["trimmed"])
     assert leftovers(out) == []
     verify_ok(out)
-    res = cli("derive", str(source), "--out", str(tmp_path / "fresh.zarr"))
+    res = cli(*DERIVE0, str(source), "--out", str(tmp_path / "fresh.zarr"))
     assert res.returncode == 0
     assert leftovers(tmp_path / "fresh.zarr") == []
     tally.assert_intact(before, source)
@@ -322,12 +327,12 @@ def test_random_kills_leave_old_or_new_store(
     record = str(source.parent / "burn.json")
     before = snapshot(source)
     started = time.monotonic()
-    assert cli("derive", str(source), "--out", str(out)).returncode == 0
+    assert cli(*DERIVE0, str(source), "--out", str(out)).returncode == 0
     span = time.monotonic() - started
     kills = 0
     for _ in range(6):
         now = "trimmed" if chainyard.open_store(out).attrs["derived"]["discard"] else "full"
-        swap = ["--burn-in-record", record] if now == "full" else []
+        swap = ["--burn-in-record", record] if now == "full" else ["--discard", "0"]
         proc = popen_cli("derive", str(source), "--out", str(out), *swap)
         time.sleep(float(rng.uniform(0.3, 1.1)) * span)
         if proc.poll() is None:
@@ -505,7 +510,7 @@ def test_diagnose_strict_targets_not_met_exit_1(source: Path) -> None:
     cfg["targets"] = {"min_ess_bulk": 10_000_000}
     config = source.parent / "strict.yaml"
     config.write_text(json.dumps(cfg))
-    res = cli("diagnose", str(source), "--config", str(config), "--strict")
+    res = cli("diagnose", str(source), "--raw", "--config", str(config), "--strict")
     assert res.returncode == 1, res.stderr
     assert len(res.stderr.splitlines()) == 1
     assert res.stderr.startswith("chainyard: error: targets not met for ")

@@ -41,7 +41,7 @@ def test_decide_burn_in_on_8_steps_names_the_minimum(tmp_path: Path) -> None:
 def test_diagnose_on_3_steps_names_the_minimum(tmp_path: Path) -> None:
     """diagnose on a 3-step store: split chains need 2 x 2 draws; exit 4, one line."""
     _store(tmp_path, 3, "r0.zarr")
-    res = cli("diagnose", "r0.zarr", cwd=tmp_path)
+    res = cli("diagnose", "--raw", "r0.zarr", cwd=tmp_path)
     assert res.returncode == 4
     assert res.stderr.strip() == (
         "chainyard: error: diagnose needs at least 4 steps per replica after burn-in "

@@ -59,6 +59,7 @@ def test_change_starts_over_and_completes(tmp_path: Path, change: str) -> None:
     _run(wf)
     log = (wf / LOG).read_text()
     assert "starting over" in log, log
+    assert "Use --restart" not in log, log  # the workflow starts over by itself
     assert "is held" not in log, log
     assert_same_store(wf / TARGET, fresh)
     again = snakemake(wf, "--cores", "2", TARGET)

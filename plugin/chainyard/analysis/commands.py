@@ -29,6 +29,8 @@ def _open(args: argparse.Namespace) -> tuple[list[Any], Any]:
         burn_in_record=args.burn_in_record,
         thinning_record=args.thinning_record,
     )
+    if selection.note:  # a derived store whose burn-in no record decided
+        print(f"note: {stores[0].path}: {selection.note}", file=sys.stderr)
     lengths = {s.steps_done for s in stores}
     if len(lengths) > 1:
         print(

@@ -25,6 +25,7 @@ from chainyard.config import (
 from chainyard.decisions import (
     BurnInDecision,
     ThinningDecision,
+    burn_in_after_adaptation,
     burn_in_fixed,
     burn_in_fraction,
     burn_in_from_tau,
@@ -41,7 +42,13 @@ from chainyard.diagnostics import autocorrelation, integrated_time
 from chainyard.errors import StoreError
 from chainyard.store import Store
 
-__all__ = ["decide_burn_in", "decide_thinning", "tau_per_param", "tau_per_replica"]
+__all__ = [
+    "adaptation_steps",
+    "decide_burn_in",
+    "decide_thinning",
+    "tau_per_param",
+    "tau_per_replica",
+]
 
 
 def tau_per_replica(stores: Sequence[Store], steps: int) -> list[dict[str, float]]:
@@ -94,11 +101,30 @@ def _too_short(what: str, steps: int, error: ValueError) -> StoreError:
     return StoreError(f"cannot decide {what} on {steps} steps: {error}")
 
 
+def adaptation_steps(stores: Sequence[Store]) -> int:
+    """Rows of the stores still inside the sampler's adaptation window (0 for none).
+
+    Metropolis-Hastings with ``sampler.adapt_steps`` tunes its proposal during the first
+    ``adapt_steps`` sampled steps; for derived stores the rows already dropped count.
+    """
+    from chainyard.analysis.selection import row_map
+
+    attrs = getattr(stores[0], "attrs", None) or {}  # arrays in memory carry no config
+    sampler = (attrs.get("config") or {}).get("sampler") or {}
+    if sampler.get("kind") != "metropolis_hastings":
+        return 0
+    adapt = int(sampler.get("adapt_steps") or 0)
+    offset, stride = row_map(attrs)
+    return max(0, -(-(adapt - offset) // stride))
+
+
 def decide_burn_in(stores: Sequence[Store], spec: BurnInSpec) -> BurnInDecision:
     """The burn-in cut (steps to discard from every replica) under ``spec``.
 
     Data-driven policies are applied to each replica's walker-mean log-prob trace; the largest
-    cut over replicas is taken so that every replica keeps the same steps.
+    cut over replicas is taken so that every replica keeps the same steps. A
+    Metropolis-Hastings adaptation window is always discarded (the cut is at least
+    ``sampler.adapt_steps``; :func:`chainyard.decisions.burn_in_after_adaptation`).
 
     Raises
     ------
@@ -108,7 +134,8 @@ def decide_burn_in(stores: Sequence[Store], spec: BurnInSpec) -> BurnInDecision:
     """
     steps = min(s.steps_done for s in stores)
     try:
-        return _decide_burn_in(stores, spec, steps)
+        decision = _decide_burn_in(stores, spec, steps)
+        return burn_in_after_adaptation(decision, adaptation_steps(stores), steps)
     except ValueError as e:
         raise _too_short("burn-in", steps, e) from None
 

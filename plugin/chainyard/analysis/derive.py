@@ -31,6 +31,7 @@ def derive_store(
     factor: int = 1,
     stop: int | None = None,
     records: Sequence[Path] = (),
+    burn_in_decided: bool | None = None,
 ) -> Store:
     """Write ``source`` steps ``discard, discard + factor, ...`` to a new store at ``out``.
 
@@ -51,6 +52,10 @@ def derive_store(
     records : sequence of Path
         Decision records that justified ``discard`` and ``factor`` (identified by content
         hash in the derived store's attributes).
+    burn_in_decided : bool, optional
+        Whether a burn-in decision (a record) set ``discard``, or the source's burn-in was
+        already decided; recorded as ``attrs["derived"]["burn_in_decided"]`` so that readers
+        can say when the draws may include burn-in. Default: True when ``records`` is given.
 
     Returns
     -------
@@ -72,12 +77,28 @@ def derive_store(
         raise StoreError(f"thinning factor must be >= 1, got {factor}")
     out = Path(out)
     with publish_derived(out, source=Path(source.path)) as tmp:
-        _write_derived(source, tmp, discard=discard, factor=factor, stop=end, records=records)
+        decided = bool(records) if burn_in_decided is None else burn_in_decided
+        _write_derived(
+            source,
+            tmp,
+            discard=discard,
+            factor=factor,
+            stop=end,
+            records=records,
+            decided=decided,
+        )
     return Store.open(out)
 
 
 def _write_derived(
-    source: Store, out: Path, *, discard: int, factor: int, stop: int, records: Sequence[Path]
+    source: Store,
+    out: Path,
+    *,
+    discard: int,
+    factor: int,
+    stop: int,
+    records: Sequence[Path],
+    decided: bool,
 ) -> None:
     """Write the derived store at ``out`` (a fresh temporary folder)."""
     kept = np.arange(discard, stop, factor)
@@ -92,6 +113,7 @@ def _write_derived(
         "factor": int(factor),
         "source_steps": [int(discard), int(stop), int(factor)],
         "records": [input_identity(Path(r)) for r in records],
+        "burn_in_decided": bool(decided),
         "parent": parent,
         "created_utc": utc_now(),
     }

@@ -591,8 +591,11 @@ def _questions(check: dict[str, Any]) -> str:
     return "FAIL " + ",".join(failed) if failed else "FAIL"
 
 
-def format_table(result: dict[str, Any], title: str = "") -> str:
+def format_table(result: dict[str, Any], title: str = "", selection: str | None = None) -> str:
     """A plain-text table of the diagnostics with the verdict (for terminals and logs).
+
+    ``selection`` says which draws were diagnosed (default "after burn-in", as the
+    workflow's selection always is).
 
     Columns: nested R-hat (mixing), classic R-hat (reported), tau growth and steps per tau
     (tau), bulk/tail ESS (precision); under the table the verdict, the steps still needed,
@@ -609,7 +612,7 @@ def format_table(result: dict[str, Any], title: str = "") -> str:
     unit = "walkers" if result.get("sampler_kind", "ensemble") == "ensemble" else "chains"
     lines.append(
         f"{result['replicas']} replica(s) x {result['walkers']} {unit} x "
-        f"{result['steps']:,} steps (after burn-in)"
+        f"{result['steps']:,} steps ({selection or 'after burn-in'})"
     )
     lines.append(head)
     lines.append("-" * len(head))
@@ -661,7 +664,7 @@ def reference_lines(ref: dict[str, Any]) -> list[str]:
     for name, r in ref["params"].items():
         lines.append(
             f"  {name}: KS D = {r['ks_statistic']:.4f}, p = {r['ks_pvalue']:.3g} (effective "
-            f"sizes {r['n_effective']:.0f} vs {r['m_effective']:.0f}); "
-            f"{'differs' if r['differs'] else 'consistent'}"
+            f"sizes {r['n_effective']:.0f} vs {r['m_effective']:.0f}), energy distance "
+            f"{r['energy_distance']:.4g}; {'differs' if r['differs'] else 'consistent'}"
         )
     return lines

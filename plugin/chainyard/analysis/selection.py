@@ -7,7 +7,9 @@
 * sampled stores with ``raw``: every committed row (burn-in included).
 
 A sampled store given without records or ``raw`` is refused, so burn-in never slips into a
-result unnoticed.
+result unnoticed; ``raw`` together with a record is refused as a contradiction. A derived
+store whose burn-in was not decided by a record (``derive --discard N``) is read as it is,
+and the selection says so (:func:`undecided_burn_in`).
 """
 
 from __future__ import annotations
@@ -21,10 +23,18 @@ import numpy as np
 from numpy.typing import NDArray
 
 from chainyard.analysis.records import read_record
-from chainyard.errors import StoreError
+from chainyard.errors import ConfigError, StoreError
 from chainyard.store import Store
 
-__all__ = ["SelectedStore", "Selection", "choose_selection", "row_map", "same_run", "selected"]
+__all__ = [
+    "SelectedStore",
+    "Selection",
+    "choose_selection",
+    "row_map",
+    "same_run",
+    "selected",
+    "undecided_burn_in",
+]
 
 
 @dataclass(frozen=True)
@@ -42,6 +52,7 @@ class Selection:
     step_stride: int
     description: str
     records: tuple[Path, ...] = field(default=())
+    note: str | None = None
 
     def steps(self) -> NDArray[np.int64]:
         """The sampler step of every kept draw, shape (draws,)."""
@@ -60,6 +71,33 @@ def row_map(attrs: dict[str, Any]) -> tuple[int, int]:
     for d, f in reversed(chain):  # innermost (closest to the sampled store) first
         offset, stride = offset + stride * d, stride * f
     return offset, stride
+
+
+def undecided_burn_in(attrs: dict[str, Any]) -> str | None:
+    """For a derived store whose burn-in no decision record set, one sentence saying so.
+
+    A derivation step records ``burn_in_decided`` (``derive`` with a burn-in record, or the
+    workflow's selection); stores written before that key existed count as decided when the
+    step named any record. Returns None for sampled stores and decided ones.
+    """
+    derived = attrs.get("derived")
+    by_hand = False
+    while isinstance(derived, dict):
+        decided = derived.get("burn_in_decided")
+        if decided is None:
+            decided = bool(derived.get("records"))
+        if decided:
+            return None
+        by_hand = by_hand or int(derived.get("discard", 0)) > 0
+        derived = derived.get("parent")
+    if attrs.get("derived") is None:
+        return None
+    if by_hand:
+        return (
+            "burn-in was set by hand (derive --discard), not decided by a record "
+            "(`chainyard decide burn-in`)"
+        )
+    return "burn-in was not decided (derived with --discard 0), so the draws include any burn-in"
 
 
 def same_run(stores: Sequence[Store]) -> None:
@@ -131,9 +169,15 @@ def choose_selection(
         For sampled stores without records or ``raw`` (burn-in would be exported silently),
         ``raw`` or records with derived stores, or fewer than one row left (exit 4).
     """
+    records = tuple(Path(r) for r in (burn_in_record, thinning_record) if r is not None)
+    if raw and records:
+        which = "--burn-in-record" if burn_in_record is not None else "--thinning-record"
+        raise ConfigError(
+            f"--raw (every draw, burn-in included) contradicts {which} (the recorded "
+            "selection); give one or the other"
+        )
     same_run(stores)
     derived = "derived" in stores[0].attrs
-    records = tuple(Path(r) for r in (burn_in_record, thinning_record) if r is not None)
     if derived and (raw or records):
         what = "--raw" if raw else "a decision record"
         raise StoreError(
@@ -143,8 +187,8 @@ def choose_selection(
     if not derived and not raw and not records:
         raise StoreError(
             f"{stores[0].path}: a sampled store (burn-in included); give --burn-in-record "
-            "(and --thinning-record) to export the recorded selection, --raw for every draw, "
-            "or the derived stores (e.g. final/replica-R.zarr)"
+            "(and --thinning-record) to use the recorded selection, --raw for every draw, "
+            "or the derived stores (e.g. standalone/replica-R.zarr)"
         )
     discard, factor = 0, 1
     if burn_in_record is not None:
@@ -162,7 +206,10 @@ def choose_selection(
         )
     draws = len(range(discard, shortest, factor))
     offset, stride = row_map(stores[0].attrs)
-    if derived:
+    note = undecided_burn_in(stores[0].attrs) if derived else None
+    if derived and note:
+        description = f"the derived stores' draws; {note}"
+    elif derived:
         description = "the derived stores' draws (burn-in and thinning as recorded in them)"
     elif records:
         description = f"burn-in {discard:,} steps discarded, every {factor} kept (from records)"
@@ -176,6 +223,7 @@ def choose_selection(
         step_stride=stride * factor,
         description=description,
         records=records,
+        note=note,
     )
 
 

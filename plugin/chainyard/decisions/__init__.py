@@ -8,6 +8,7 @@ Pure functions on numpy arrays / numbers that return frozen records
 from __future__ import annotations
 
 from .burn_in import (
+    burn_in_after_adaptation,
     burn_in_fixed,
     burn_in_fraction,
     burn_in_from_tau,
@@ -30,6 +31,7 @@ __all__ = [
     "acf_efficiency",
     "ar1_efficiency",
     "assess",
+    "burn_in_after_adaptation",
     "burn_in_fixed",
     "burn_in_fraction",
     "burn_in_from_tau",

@@ -222,3 +222,58 @@ def combine_burn_in(decisions: Sequence[BurnInDecision], steps: int) -> BurnInDe
         n,
         discard_sentence(n, total, f"largest of {len(decisions)} policies ({worst.policy})"),
     )
+
+
+def burn_in_after_adaptation(
+    decision: BurnInDecision, adapt_steps: int, steps: int
+) -> BurnInDecision:
+    """Raise a burn-in cut to at least the sampler's adaptation window.
+
+    Steps taken while a Metropolis-Hastings proposal is still being tuned are not draws from
+    one fixed transition kernel, so the usual MCMC guarantees do not cover them; they are
+    always discarded, whatever the policy found (Roberts and Rosenthal 2009, "Examples of
+    adaptive MCMC", J. Comput. Graph. Stat. 18(2): adaptation must stop, or diminish, for
+    the chain to target the posterior; a fixed window then discarded is the simple case).
+
+    Parameters
+    ----------
+    decision : BurnInDecision
+        The policy's decision.
+    adapt_steps : int
+        Steps of the adaptation phase (from step 0 of the stores decided on).
+    steps : int
+        Total steps per chain.
+
+    Returns
+    -------
+    BurnInDecision
+        ``decision`` unchanged when it already discards ``adapt_steps`` or more; otherwise
+        the same policy with ``steps_discarded = adapt_steps``, the policy's own cut kept in
+        ``inputs["policy_cut"]`` and a reason that says why.
+
+    Raises
+    ------
+    ValueError
+        If the adaptation window holds every step (nothing would be left).
+    """
+    adapt = positive_int(adapt_steps, "adapt_steps", minimum=0)
+    total = positive_int(steps, "steps")
+    _check_cut(adapt, total, "the adaptation window (sampler.adapt_steps)")
+    if decision.steps_discarded >= adapt:
+        if adapt == 0:
+            return decision
+        inputs = {**decision.inputs, "adapt_steps": adapt}
+        reason = decision.reason.rstrip(".") + (
+            f" (this also covers the {fmt_int(adapt)} adaptation steps, which are always "
+            "discarded)."
+        )
+        return BurnInDecision(decision.policy, inputs, decision.steps_discarded, reason)
+    inputs = {**decision.inputs, "adapt_steps": adapt, "policy_cut": decision.steps_discarded}
+    reason = discard_sentence(
+        adapt,
+        total,
+        f"the Metropolis-Hastings adaptation window (sampler.adapt_steps = {fmt_int(adapt)}) "
+        "is always discarded, since its draws do not come from one fixed kernel; the "
+        f"{decision.policy} policy alone would discard {fmt_int(decision.steps_discarded)}",
+    )
+    return BurnInDecision(decision.policy, inputs, adapt, reason)

@@ -417,17 +417,19 @@ def open_pack(path: str | Path) -> tuple[zipfile.ZipFile, PackIndex]:
     path = Path(path)
     try:
         if path.stat().st_size == 0:
-            raise StoreError(f"{path}: empty file, not a chainyard pack")
+            raise StoreError(f"{path}: not a chainyard store or pack: empty file")
         declared = _declared_entries(path)
     except OSError as exc:
         raise StoreError(f"{path}: cannot be read ({exc.strerror or exc})") from None
     if declared is None:
-        raise StoreError(f"{path}: not a zip file (or truncated): not a chainyard pack")
+        raise StoreError(f"{path}: not a chainyard store or pack: not a zip file (or truncated)")
     limits.check("pack_members", declared, str(path))
     try:
         archive = zipfile.ZipFile(path)
     except (zipfile.BadZipFile, OSError, ValueError, EOFError) as exc:
-        raise StoreError(f"{path}: not a readable zip file ({exc}): not a chainyard pack") from None
+        raise StoreError(
+            f"{path}: not a chainyard store or pack: not a readable zip file ({exc})"
+        ) from None
     try:
         limits.check("pack_members", len(archive.infolist()), str(path))
         infos = _member_rules(path, archive)

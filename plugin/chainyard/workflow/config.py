@@ -128,7 +128,13 @@ def load_workflow_config(config: dict[str, Any], source: str = "config") -> dict
     """
     if not isinstance(config, dict):
         raise ConfigError(f"{source}: must be a mapping, got {type(config).__name__}")
-    section = config.get("chainyard", config)
+    if "chainyard" not in config:
+        found = ", ".join(sorted(map(str, config))) or "nothing"
+        raise ConfigError(
+            f"{source}: no 'chainyard:' section (found: {found}); put the workflow settings "
+            "under it, e.g. chainyard: {runs: {kiln: config/runs/kiln.yaml}}"
+        )
+    section = config["chainyard"]
     if not isinstance(section, dict):
         raise ConfigError(
             f"{source}: chainyard: must be a mapping (with 'runs'), got {type(section).__name__}"

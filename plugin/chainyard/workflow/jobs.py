@@ -49,13 +49,52 @@ def p_step(sm: Any) -> str:
     return str(getattr(sm.params, "step", "?"))
 
 
+def _job_fields(sm: Any) -> dict[str, Any]:
+    """Run, replica, step and attempt of a job (for its failure file)."""
+    wildcards = getattr(sm, "wildcards", None)
+    run = getattr(wildcards, "run", None) if wildcards is not None else None
+    replica = getattr(wildcards, "replica", None) if wildcards is not None else None
+    attempt = sm.resources.get("attempt") if hasattr(sm.resources, "get") else None
+    return {
+        "run": None if run is None else str(run),
+        "replica": None if replica is None else int(replica),
+        "step": p_step(sm),
+        "attempt": None if attempt is None else int(attempt),
+    }
+
+
+def _report_failure(log: str | None, sm: Any, code: int, reason: str | None) -> None:
+    """The failure's one line on the terminal, and its failure file beside the log."""
+    from chainyard.workflow.failure import cause_from_log, write_failure
+
+    if reason is None and log:
+        reason = cause_from_log(log)
+    reason = reason or f"exit status {code}"
+    job = _job_fields(sm)
+    where = f"run {job['run']}" if job["run"] else "the overview"
+    if job["replica"] is not None:
+        where += f", replica {job['replica']}"
+    if log:
+        with contextlib.suppress(OSError):
+            write_failure(log, job, code, reason)
+    more = f"; log: {log}" if log else ""
+    print(
+        f"chainyard: error: {job['step']} job failed ({where}): {reason}{more}",
+        file=sys.__stderr__,
+        flush=True,
+    )
+
+
 def run_job(sm: Any) -> None:
     """Run the job described by Snakemake's ``snakemake`` object.
 
     Output and errors go to the job's log file (Snakemake does not redirect scripts).
     A user mistake ends the job with its one-line message and exit status, no traceback.
+    A failing job also prints its one-line cause to the terminal and writes it beside the
+    log (:mod:`chainyard.workflow.failure`); a job that succeeds removes that file.
     """
     log = sm.log[0] if len(sm.log) else None
+    reason: str | None = None
     with contextlib.ExitStack() as stack:
         if log:
             f = stack.enter_context(open(log, "w", buffering=1))
@@ -71,17 +110,22 @@ def run_job(sm: Any) -> None:
                     f"exit status {code}, which a retry cannot mend: {earlier['message']}",
                     file=sys.stderr,
                 )
+                reason = f"{earlier['message']} (not retried: a retry cannot mend it)"
                 sys.stderr.flush()
             else:
                 _dispatch(sm)
                 code = 0
         except Interrupted as exc:
             code = 128 + exc.signum
+            reason = f"stopped by signal {exc.signum} after committing the finished steps"
         except ChainyardError as exc:
-            for line in str(exc).splitlines():
+            lines = str(exc).splitlines() or [type(exc).__name__]
+            for line in lines:
                 print(f"chainyard: error: {line}", file=sys.stderr)
             sys.stderr.flush()
             code = exc.exit_code
+            more = f" (and {len(lines) - 1} more problem(s) in the log)" if len(lines) > 1 else ""
+            reason = lines[0] + more
             if note is not None:
                 note.remember(code, str(exc))
         except OSError as exc:  # a storage fault the engine or store did not name
@@ -97,6 +141,9 @@ def run_job(sm: Any) -> None:
             if code == 0 and note is not None:
                 note.clear()
     if code:
-        if log:
-            print(f"chainyard: job failed; see {log}", file=sys.__stderr__)
+        _report_failure(log, sm, code, reason)
         sys.exit(code)
+    if log:
+        from chainyard.workflow.failure import clear_failure
+
+        clear_failure(log)

@@ -84,7 +84,9 @@ def sample_step(
             config, resumable, replica, progress="log", progress_interval=progress_interval, **pool
         )
     except StoreConflictError as exc:
-        print(f"chainyard: {exc}; the workflow changed these settings: starting over", flush=True)
+        # the CLI's "Use --restart" hint is not for a workflow, which starts over by itself
+        what = str(exc).split(". Use --restart")[0].rstrip(".")
+        print(f"chainyard: {what}; the workflow changed these settings: starting over", flush=True)
         store = sample(
             config,
             resumable,
