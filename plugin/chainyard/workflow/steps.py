@@ -188,7 +188,7 @@ def diagnose_step(
     table and the posterior summary (CSV). Returns the record as written."""
     from chainyard.analysis.diagnose import diagnose, format_table
     from chainyard.analysis.records import write_record
-    from chainyard.analysis.summary import summarise, write_summary_csv
+    from chainyard.analysis.summary_table import summary_table, write_summary_csv
     from chainyard.config import TargetsSpec
     from chainyard.workflow.selection import read_selection
 
@@ -204,7 +204,7 @@ def diagnose_step(
     )
     table = format_table(result, title=f"run {run}")
     Path(outputs["table"]).write_text(table + "\n")
-    write_summary_csv(summarise(kept, record), outputs["summary"])
+    write_summary_csv(summary_table(kept, diagnostics=record), outputs["summary"])
     print(table, flush=True)
     return record
 
@@ -221,12 +221,8 @@ def plot_step(
     ``references`` is the JSON of the current config's reference values (the stored config
     keeps those of sampling time, and changing them must not resample).
     """
-    from chainyard.report.plots import (
-        acceptance_plot,
-        pairs_plot,
-        tau_history_plot,
-        trace_plot,
-    )
+    from chainyard.report.pairs import pairs_plot
+    from chainyard.report.plots import acceptance_plot, tau_history_plot, trace_plot
     from chainyard.workflow.selection import read_selection
 
     sel, replicas = read_selection(selection, stores)
