@@ -265,7 +265,8 @@ def overview_step(
     """The cross-run overview: ``runs.csv`` and the report's opening page."""
     from chainyard.errors import StoreError
     from chainyard.store import Store
-    from chainyard.workflow.overview import overview_row, write_overview_rst, write_runs_csv
+    from chainyard.workflow.overview import MET, overview_row, write_overview_rst, write_runs_csv
+    from chainyard.workflow.overview_figure import overview_png
 
     rows = []
     for path in diagnostics:  # plain JSON: the analysis package (scipy) is not needed here
@@ -274,9 +275,12 @@ def overview_step(
             raise StoreError(f"{path}: expected a {DIAGNOSTICS_KIND!r} record")
         rows.append(overview_row(rec, [Store.open(p) for p in stores[rec["run"]]]))
     ordered = write_runs_csv(rows, outputs["table"])
-    write_overview_rst(ordered, results, outputs["page"])
-    failed = [r["run"] for r in ordered if r["verdict"] != "converged"]
+    figure = overview_png(ordered)
+    if outputs.get("figure"):
+        Path(outputs["figure"]).write_bytes(figure)
+    write_overview_rst(ordered, results, outputs["page"], figure)
+    failed = [r["run"] for r in ordered if r["verdict"] != MET]
     print(
-        f"{len(ordered)} run(s); not converged: {', '.join(failed) if failed else 'none'}",
+        f"{len(ordered)} run(s); targets not met: {', '.join(failed) if failed else 'none'}",
         flush=True,
     )
