@@ -222,14 +222,15 @@ def pairs_figure(
     )
     shown = "" if k == len(all_names) else f" (first {k} of {len(all_names)} parameters)"
     fig.suptitle(
-        f"How the parameters vary together{shown}: density regions per replica (below), "
-        f"correlation r with its MCSE (above); {len(stores)} replica(s), every "
+        f"How the parameters vary together{shown}\n"
+        f"below: density regions per replica; above: correlation r with its MCSE (tint from "
+        f"r = -1, purple, to +1, orange)\n{len(stores)} replica(s), every "
         f"{member_word(stores)} pooled, after burn-in and thinning",
         fontsize=8.5,
         color=INK,
         y=0.995,
     )
-    fig.tight_layout(rect=(0, 0.035, 1, 0.975), pad=0.4, h_pad=0.25, w_pad=0.25)
+    fig.tight_layout(rect=(0, 0.035, 1, 0.955), pad=0.4, h_pad=0.25, w_pad=0.25)
     return fig
 
 

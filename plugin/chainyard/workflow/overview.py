@@ -110,7 +110,9 @@ def warning_sentences(diagnostics: dict[str, Any]) -> list[str]:
     stuck = verdict.get("stuck_walkers") or {}
     for replica in sorted(stuck, key=lambda r: int(r) if str(r).isdigit() else str(r)):
         members = list(stuck[replica] or [])
-        if members:
+        # an acceptance warning may already name them
+        told = any(w.startswith(f"Replica {replica}:") and "stuck" in w for w in out)
+        if members and not told:
             many = len(members) > 1
             out.append(
                 f"Replica {replica}: {word}{'s' if many else ''} {_listed(members)} "
