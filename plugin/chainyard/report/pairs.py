@@ -215,7 +215,7 @@ def pairs_figure(
     fig.legend(
         handles=handles,
         loc="lower center",
-        ncols=min(len(handles), 6),
+        ncols=len(handles) if k >= 4 else min(len(handles), 4),
         fontsize=7,
         frameon=False,
         bbox_to_anchor=(0.5, 0.0),
@@ -230,7 +230,12 @@ def pairs_figure(
         color=INK,
         y=0.995,
     )
-    fig.tight_layout(rect=(0, 0.035, 1, 0.955), pad=0.4, h_pad=0.25, w_pad=0.25)
+    fig.tight_layout(
+        rect=(0, 0.035 if k >= 4 else 0.07, 1, 0.97 if k >= 6 else 0.93),
+        pad=0.4,
+        h_pad=0.25,
+        w_pad=0.25,
+    )
     return fig
 
 

@@ -142,7 +142,8 @@ def overview_row(diagnostics: dict[str, Any], stores: Sequence[Any]) -> dict[str
         "walkers": diagnostics.get("walkers", ""),
         "sampling_seconds": round(_seconds(stores), 1),
         "warnings": " ".join(warnings),
-        "targets": diagnostics.get("targets") or {},
+        "targets": diagnostics.get("targets") or {},  # these two: for the figure only
+        "worst_nested_rhat": _worst(params, "rhat_nested", max)[0],
     }
 
 
@@ -186,6 +187,10 @@ div.prose:has(#chainyard-overview) { max-width: none; }
 #chainyard-overview .chainyard-runs thead th {
   position: sticky; top: 0; background: #ffffff; z-index: 1; }
 #chainyard-overview img { max-width: 100%; height: auto; }
+#chainyard-overview .chainyard-runs td:last-child { min-width: 18rem; }
+#chainyard-overview .chainyard-runs td:nth-child(8) { min-width: 15rem; }
+#chainyard-overview .chainyard-runs td, #chainyard-overview .chainyard-runs th {
+  padding-top: 0.3rem; padding-bottom: 0.3rem; }
 </style>"""
 
 
@@ -240,12 +245,15 @@ def write_overview_rst(
         "",
     ]
     if figure is not None:
-        data = base64.b64encode(figure).decode("ascii")
+        # docutils refuses lines over 10,000 characters; a data URL may hold line breaks
+        data = base64.encodebytes(figure).decode("ascii").splitlines()
         lines += [
             ".. raw:: html",
             "",
-            f'   <img alt="worst R-hat against lowest ESS, one point per run" '
-            f'src="data:image/png;base64,{data}">',
+            '   <img alt="worst R-hat against lowest ESS, one point per run" '
+            'src="data:image/png;base64,',
+            *(f"   {chunk}" for chunk in data),
+            '   ">',
             "",
         ]
     lines += [

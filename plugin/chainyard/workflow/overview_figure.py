@@ -1,5 +1,8 @@
 """One figure across runs: each run's worst R-hat against its lowest bulk ESS, with the targets.
 
+The R-hat drawn is the one the verdict gates on: R-hat when ``max_rhat`` is a target, else
+nested R-hat (``max_nested_rhat``).
+
 Readable at hundreds of runs: one point per run, the region where both targets are met
 shaded, runs that did not meet their targets drawn in a contrasting colour and the worst
 few named.
@@ -41,11 +44,16 @@ def overview_png(rows: Sequence[dict[str, Any]]) -> bytes:
     from chainyard.workflow.overview import MET
 
     max_rhat, rhat_differs = _common(rows, "max_rhat")
+    key, what = "worst_rhat", "R-hat"
+    if max_rhat is None:  # the verdict gates on nested R-hat: draw that against its target
+        max_rhat, rhat_differs = _common(rows, "max_nested_rhat")
+        if max_rhat is not None:
+            key, what = "worst_nested_rhat", "nested R-hat"
     min_ess, ess_differs = _common(rows, "min_ess_bulk")
-    points = [r for r in rows if r["worst_rhat"] is not None and r["lowest_ess"] is not None]
+    points = [r for r in rows if r.get(key) is not None and r["lowest_ess"] is not None]
     fig, ax = plt.subplots(figsize=(7.5, 3.6))
     ess = [max(float(r["lowest_ess"]), 1.0) for r in points]
-    rhat = [float(r["worst_rhat"]) for r in points]
+    rhat = [float(r[key]) for r in points]
     limit = max_rhat if max_rhat is not None else 1.01
     top = max(1.05, 1.0 + 4.0 * (limit - 1.0))  # runs above are drawn on the top edge
     size = 18 if len(points) <= 100 else 8
@@ -92,7 +100,7 @@ def overview_png(rows: Sequence[dict[str, Any]]) -> bytes:
     if max_rhat is not None:
         ax.axhline(max_rhat, color=INK, linestyle="--", linewidth=0.9)
         ax.annotate(
-            f"R-hat target {max_rhat:g}" + (" (most runs)" if rhat_differs else ""),
+            f"{what} target {max_rhat:g}" + (" (most runs)" if rhat_differs else ""),
             xy=(0.01, max_rhat),
             xycoords=("axes fraction", "data"),
             xytext=(0, 3),
@@ -111,21 +119,30 @@ def overview_png(rows: Sequence[dict[str, Any]]) -> bytes:
             fontsize=7,
             color=INK,
         )
-    worst = sorted(
-        (r for r in points if r["verdict"] != MET), key=lambda r: -float(r["worst_rhat"])
-    )[:NAMED]
-    for r in worst:
-        y = min(float(r["worst_rhat"]), top)
+    not_met = sorted((r for r in points if r["verdict"] != MET), key=lambda r: -float(r[key]))
+    above = [r for r in not_met if float(r[key]) > top]
+    for r in [r for r in not_met if float(r[key]) <= top][: max(0, NAMED - len(above))]:
         ax.annotate(
             str(r["run"])[:24],
-            xy=(max(float(r["lowest_ess"]), 1.0), y),
-            xytext=(4, -8 if y >= top else 2),
+            xy=(max(float(r["lowest_ess"]), 1.0), float(r[key])),
+            xytext=(4, 2),
             textcoords="offset points",
             fontsize=6.5,
             color=NOT_MET_COLOUR,
         )
+    if above:  # named in a line of their own: their triangles share the top edge
+        names = ", ".join(str(r["run"])[:24] for r in above[:NAMED])
+        more = f" and {len(above) - NAMED} more" if len(above) > NAMED else ""
+        fig.text(
+            0.01,
+            -0.02,
+            f"{what} above {top:g} (worst first): {names}{more}",
+            fontsize=7,
+            color=NOT_MET_COLOUR,
+            wrap=True,
+        )
     ax.set_xlabel("lowest bulk ESS of the run (over parameters, log scale)", fontsize=8)
-    ax.set_ylabel(f"worst R-hat of the run\n(triangles: above {top:g})", fontsize=8)
+    ax.set_ylabel(f"worst {what} of the run\n(triangles: above {top:g})", fontsize=8)
     ax.tick_params(labelsize=7, colors=INK)
     ax.spines[["top", "right"]].set_visible(False)
     shown = f"{len(points)} run(s)"
