@@ -227,7 +227,7 @@ def test_overview_table_and_report_opening_page(finished: Path) -> None:
         (row,) = list(csv.DictReader(f))
     diag = json.loads((finished / "results/gauss/diagnostics.json").read_text())
     assert row["run"] == "gauss"
-    assert row["verdict"] == ("converged" if diag["verdict"]["ok"] else "NOT converged")
+    assert row["verdict"] == ("targets met" if diag["verdict"]["ok"] else "targets not met")
     worst = max(diag["params"], key=lambda p: diag["params"][p]["rhat"])
     assert row["worst_rhat_parameter"] == worst
     assert float(row["worst_rhat"]) == pytest.approx(diag["params"][worst]["rhat"], abs=1e-4)
