@@ -335,6 +335,12 @@ def _lower_panel(
         )
 
 
+def _two(value: float) -> str:
+    """Two decimals, without a sign on zero (``0.00``, not ``-0.00``)."""
+    text = f"{value:.2f}"
+    return "0.00" if text == "-0.00" else text
+
+
 def _upper_panel(
     ax: Any,
     ys: list[npt.NDArray[np.float64]],
@@ -361,10 +367,10 @@ def _upper_panel(
         )
         return
     ax.set_facecolor((*cmap(0.5 + 0.5 * r)[:3], 0.35))
-    text = f"r = {r:.2f}\n± {err:.2g} (MCSE)"
+    text = f"r = {_two(r)}\n± {err:.2g} (MCSE)"
     if len(xs) > 1:
         each = [correlation_with_mcse(a, b)[0] for a, b in zip(xs, ys, strict=True)]
-        text += f"\nreplicas {min(each):.2f} to {max(each):.2f}"
+        text += f"\nreplicas {_two(min(each))} to {_two(max(each))}"
     ax.text(
         0.5,
         0.5,
