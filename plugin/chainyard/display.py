@@ -14,7 +14,7 @@ __all__ = ["beside_limit", "count", "readable"]
 def readable(value: float | None, digits: int = 4) -> str:
     """``value`` with ``digits`` significant digits, positional where that stays short.
 
-    Positional for 1e-3 <= |value| < 1e9 (thousands separated by commas: ``20,360``,
+    Positional for 1e-4 <= |value| < 1e9 (thousands separated by commas: ``20,360``,
     ``0.01235``, ``3.142``), scientific otherwise (``1.445e+39``, ``2.5e-07``); ``-`` for a
     missing value, ``nan``/``inf`` as such.
     """
@@ -26,7 +26,7 @@ def readable(value: float | None, digits: int = 4) -> str:
     if x == 0.0:
         return "0"
     magnitude = math.floor(math.log10(abs(x)))
-    if magnitude < -3 or magnitude >= 9:
+    if magnitude < -4 or magnitude >= 9:
         return f"{x:.{digits - 1}e}"
     decimals = max(0, digits - 1 - magnitude)
     return f"{x:,.{decimals}f}"
