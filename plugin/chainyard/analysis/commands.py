@@ -99,7 +99,7 @@ def _interval(text: str) -> float:
     return value
 
 
-#: the command's name before 0.x; accepted, unlisted, with one deprecation line
+#: the command's old name: still accepted for one release, unlisted, with one deprecation line
 OLD_TABLE_COMMAND = "summarise"
 TABLE_COMMAND = "results-table"
 
