@@ -33,7 +33,7 @@ def _open(args: argparse.Namespace) -> tuple[list[Any], Any]:
     )
     if exact:
         selection = dataclasses.replace(
-            selection, description="every draw (accept-reject draws are exact: no burn-in)"
+            selection, description="every draw; accept-reject draws are exact: no burn-in"
         )
     lengths = {s.steps_done for s in stores}
     if len(lengths) > 1:
@@ -154,6 +154,8 @@ def _cmd_plot(args: argparse.Namespace) -> int:
     cut = None if (derived or not selection.records) else selection.discard
     folder.mkdir(parents=True, exist_ok=True)
     xlabel = "draw (after the stores' burn-in and thinning)" if derived else "step"
+    if _exact_draws(stores):
+        xlabel = "draw"  # accept-reject: one exact draw per row
     trace_plot(whole, cut, folder / "traces.png", references=refs, xlabel=xlabel)
     tau_history_plot(views, folder / "tau.png", diagnostics=diag)
     pairs_plot(views, folder / "pairs.png", references=refs)
