@@ -3,8 +3,8 @@
 # - burn-in and thinning, decided and recorded as a selection over the replica stores
 #   (decisions/selection.json: steps used, first kept step, thinning factor); nothing is
 #   copied, later steps read the stores through that selection;
-# - diagnostics across replicas with the verdict, and the posterior summary table;
-# - the plots: traces with the burn-in cut, tau against steps, pairwise marginals,
+# - diagnostics across replicas with the verdict, and the results table (summary.csv);
+# - the plots: traces with the burn-in cut, tau against steps, the pairs figure,
 #   acceptance per walker.
 # A policy or target change reruns this job, never sampling.
 

@@ -1,6 +1,7 @@
-# The cross-run overview: RESULTS/runs.csv (one row per run, failed runs first) and the
-# report's opening page (RESULTS/overview.rst: the same table, linking to every run's plots
-# and tables).
+# The cross-run overview: RESULTS/runs.csv (one row per run, runs that did not meet their
+# targets first), RESULTS/runs.png (worst R-hat against lowest ESS, one point per run) and
+# the report's opening page (RESULTS/overview.rst: the figure and the table, linking to
+# every run's plots and tables).
 
 
 rule overview:
@@ -11,6 +12,11 @@ rule overview:
         table=report(
             results_file("runs.csv"),
             caption="report/runs.rst",
+            category="overview",
+        ),
+        figure=report(
+            results_file("runs.png"),
+            caption="report/runs_figure.rst",
             category="overview",
         ),
         page=results_file("overview.rst"),

@@ -493,7 +493,7 @@ def _parser() -> argparse.ArgumentParser:
     from chainyard.analysis.commands import add_commands as add_result_commands
     from chainyard.provenance.commands import add_commands
 
-    add_result_commands(sub)  # export, summarise, plot
+    add_result_commands(sub)  # export, results-table, plot
     add_commands(sub)  # verify, inspect, pack, unpack, export-prov
     for command in sub.choices.values():  # also accepted after the command
         command.add_argument(

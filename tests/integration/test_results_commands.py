@@ -1,4 +1,4 @@
-"""`chainyard export`, `summarise` and `plot` on real stores, through the real command line.
+"""`chainyard export`, `results-table` and `plot` on real stores, through the real command line.
 
 Reference libraries used only in tests: arviz-base 0.8 (opens the exported files) and
 arviz-stats 0.8 (R-hat on the exported file); emcee's own ``autocorr.integrated_time``
@@ -19,7 +19,7 @@ import yaml
 import chainyard
 from chainyard.analysis import decide_burn_in, derive_store, diagnose, read_record, write_record
 from chainyard.analysis.replicas import open_replicas
-from chainyard.analysis.summary import summarise
+from chainyard.analysis.summary_table import summary_table, write_summary_csv
 from chainyard.diagnostics import rhat
 from tests.conftest import cli, tree_snapshot, write_run
 
@@ -241,23 +241,26 @@ def test_export_refusals_are_one_line(run: Path) -> None:
     assert not list(run.glob(".*.tmp"))
 
 
-def test_summarise_order_interval_and_formats(run: Path) -> None:
-    """Rows follow the config's parameter order; --interval 0.8 gives q10/q50/q90 equal to
-    numpy's quantiles of the pooled draws; --json and --csv carry the same table."""
-    proc = cli("summarise", "t0.zarr", "t1.zarr", "--interval", "0.8", "--json", cwd=run)
+def test_results_table_order_interval_and_formats(run: Path) -> None:
+    """Rows follow the config's parameter order; --interval 0.8 gives lower_10pct/median/
+    upper_90pct equal to numpy's quantiles of the pooled draws; --json and --csv carry the
+    same table."""
+    proc = cli("results-table", "t0.zarr", "t1.zarr", "--interval", "0.8", "--json", cwd=run)
     assert proc.returncode == 0, proc.stderr
+    assert proc.stderr == ""
     table = json.loads(proc.stdout)
     assert [r["parameter"] for r in table["rows"]] == ["zeta", "alpha"]
     for row in table["rows"]:
         pooled = _expected_chains(run, row["parameter"]).ravel()
         # reference: numpy.quantile (linear interpolation) of every pooled draw
         expected = np.quantile(pooled, [0.1, 0.5, 0.9])
-        assert [row["q10"], row["q50"], row["q90"]] == pytest.approx(expected, rel=1e-12)
+        got = [row["lower_10pct"], row["median"], row["upper_90pct"]]
+        assert got == pytest.approx(expected, rel=1e-12)
         assert row["mean"] == pytest.approx(pooled.mean(), rel=1e-9)
-        assert row["mcse_q10"] > 0
+        assert row["mcse_lower_10pct"] > 0
     assert table["rows"][0]["unit"] == "m"
     proc = cli(
-        "summarise",
+        "results-table",
         "r0.zarr",
         "r1.zarr",
         "--burn-in-record",
@@ -270,22 +273,63 @@ def test_summarise_order_interval_and_formats(run: Path) -> None:
     assert proc.returncode == 0, proc.stderr
     rows = list(csv.DictReader(proc.stdout.splitlines()))
     assert [r["parameter"] for r in rows] == ["zeta", "alpha"]
-    assert "q2.5" in rows[0] and "mcse_q97.5" in rows[0] and "rhat_nested" in rows[0]
-    proc = cli("summarise", "t0.zarr", "t1.zarr", cwd=run)
+    assert list(rows[0]) == [
+        "parameter", "unit", "mean", "sd", "lower_2.5pct", "upper_97.5pct", "mcse_mean",
+        "mcse_sd", "mcse_lower_2.5pct", "mcse_upper_97.5pct", "bulk_ess", "tail_ess", "rhat",
+        "nested_rhat",
+    ]  # fmt: skip
+    proc = cli("results-table", "t0.zarr", "t1.zarr", cwd=run)
     assert proc.returncode == 0 and proc.stdout.splitlines()[3].startswith("zeta")
-    line = _one_line_error(cli("summarise", "t0.zarr", "--quantiles", "0.5,1.5", cwd=run), 2)
+    line = _one_line_error(cli("results-table", "t0.zarr", "--quantiles", "0.5,1.5", cwd=run), 2)
     assert "1.5" in line
-    _one_line_error(cli("summarise", "t0.zarr", "--interval", "90", cwd=run), 2)
+    _one_line_error(cli("results-table", "t0.zarr", "--interval", "90", cwd=run), 2)
 
 
-def test_workflow_summary_rows_follow_the_config(run: Path) -> None:
-    """summary.csv rows (from a diagnostics record read back from sorted JSON) follow the
-    config's parameter order, as diagnostics.txt does."""
+def test_old_command_name_prints_one_deprecation_line(run: Path) -> None:
+    """`summarise` still works (same table) with one deprecation line on stderr, and is
+    neither listed in --help nor offered in the usage error's choices."""
+    new = cli("results-table", "t0.zarr", "t1.zarr", "--csv", cwd=run)
+    old = cli("summarise", "t0.zarr", "t1.zarr", "--csv", cwd=run)
+    assert old.returncode == 0 and old.stdout == new.stdout
+    lines = old.stderr.strip().splitlines()
+    assert len(lines) == 1 and "`chainyard summarise` is now `chainyard results-table`" in lines[0]
+    listed = [line.split()[0] for line in cli("--help", cwd=run).stdout.splitlines()[5:] if line]
+    assert "results-table" in listed and "summarise" not in listed
+    wrong = cli("frobnicate", cwd=run)
+    assert "'results-table'" in wrong.stderr and "summarise" not in wrong.stderr
+
+
+def test_cli_table_and_summary_csv_have_the_same_columns(run: Path) -> None:
+    """The workflow's summary.csv (built from a diagnostics record read back from sorted
+    JSON) has exactly the CLI table's columns in the same order, rows in the config's
+    order, and the same numbers."""
     stores = open_replicas([run / "t0.zarr", run / "t1.zarr"])
     record = run / "diagnostics.json"
     write_record(record, "chainyard.diagnostics", diagnose(stores), stores)
-    rows = summarise(stores, read_record(record, "chainyard.diagnostics"))
-    assert [r["parameter"] for r in rows] == ["zeta", "alpha"]
+    write_summary_csv(
+        summary_table(stores, diagnostics=read_record(record, "chainyard.diagnostics")),
+        run / "summary.csv",
+    )
+    with open(run / "summary.csv", newline="") as f:
+        workflow_rows = list(csv.DictReader(f))
+    proc = cli("results-table", "t0.zarr", "t1.zarr", "--csv", cwd=run)
+    assert proc.returncode == 0, proc.stderr
+    cli_rows = list(csv.DictReader(proc.stdout.splitlines()))
+    assert list(workflow_rows[0]) == list(cli_rows[0])
+    assert [r["parameter"] for r in workflow_rows] == ["zeta", "alpha"]
+    for a, b in zip(workflow_rows, cli_rows, strict=True):
+        for key in a:
+            if key in ("parameter", "unit"):
+                assert a[key] == b[key]
+            else:
+                assert float(a[key]) == pytest.approx(float(b[key]), rel=1e-9), key
+    text = cli("results-table", "t0.zarr", "t1.zarr", cwd=run).stdout.splitlines()
+    assert text[1].split() == list(cli_rows[0])  # the text table: the same header
+    header = text[1].split()
+    for line in text[3:]:  # ESS as whole numbers, R-hats with 4 decimals
+        cells = dict(zip(header, line.split(), strict=True))
+        assert cells["bulk_ess"].replace(",", "").isdigit()
+        assert len(cells["rhat"].split(".")[1]) >= 4
 
 
 def test_plot_writes_the_four_pngs(run: Path) -> None:

@@ -227,7 +227,7 @@ def test_overview_table_and_report_opening_page(finished: Path) -> None:
         (row,) = list(csv.DictReader(f))
     diag = json.loads((finished / "results/gauss/diagnostics.json").read_text())
     assert row["run"] == "gauss"
-    assert row["verdict"] == ("converged" if diag["verdict"]["ok"] else "NOT converged")
+    assert row["verdict"] == ("targets met" if diag["verdict"]["ok"] else "targets not met")
     worst = max(diag["params"], key=lambda p: diag["params"][p]["rhat"])
     assert row["worst_rhat_parameter"] == worst
     assert float(row["worst_rhat"]) == pytest.approx(diag["params"][worst]["rhat"], abs=1e-4)
@@ -240,6 +240,14 @@ def test_overview_table_and_report_opening_page(finished: Path) -> None:
     assert "<h1 class=\\\"title\\\">Runs</h1>" in page and ">gauss</td>" in page
     assert "showResultInfo('results/gauss/plots/traces.png')" in page
     assert "system-message" not in page
+    # the figure across runs, embedded above the table; the page lifts the narrow column
+    assert (finished / "results" / "runs.png").read_bytes().startswith(b"\x89PNG")
+    assert "data:image/png;base64," in page and "chainyard-overview" in page
+    # summary.csv has the results table's columns (chainyard results-table)
+    from chainyard.analysis.summary_table import DEFAULT_QUANTILES, table_columns
+
+    with open(finished / "results/gauss/summary.csv", newline="") as f:
+        assert next(csv.reader(f)) == table_columns(DEFAULT_QUANTILES)
 
 
 def test_logs_show_progress_lines(finished: Path) -> None:

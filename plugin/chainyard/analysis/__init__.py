@@ -1,4 +1,4 @@
-"""Store-level steps: decide burn-in and thinning, derive stores, diagnose, summarise.
+"""Store-level steps: decide burn-in and thinning, derive stores, diagnose, the posterior table.
 
 These functions read stores one parameter column at a time, a few stored chunks per read
 (bounded memory: :func:`diagnose` peaks at about three columns), call the pure
@@ -11,7 +11,7 @@ from chainyard.analysis.decide import decide_burn_in, decide_thinning
 from chainyard.analysis.derive import derive_store
 from chainyard.analysis.diagnose import diagnose, diagnose_arrays, format_table
 from chainyard.analysis.records import read_record, store_digest, write_record
-from chainyard.analysis.summary import summarise, write_summary_csv
+from chainyard.analysis.summary_table import summary_table, write_summary_csv
 
 __all__ = [
     "decide_burn_in",
@@ -22,7 +22,7 @@ __all__ = [
     "format_table",
     "read_record",
     "store_digest",
-    "summarise",
+    "summary_table",
     "write_record",
     "write_summary_csv",
 ]

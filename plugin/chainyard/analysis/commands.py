@@ -1,4 +1,4 @@
-"""The ``export``, ``summarise`` and ``plot`` commands: a run's results from the command line.
+"""The ``export``, ``results-table`` and ``plot`` commands: a run's results from the command line.
 
 Each takes the replica stores of one run and chooses the draws as
 :mod:`chainyard.analysis.selection` describes (derived stores as they are; sampled stores with
@@ -8,6 +8,7 @@ Each takes the replica stores of one run and chooses the draws as
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import sys
 from pathlib import Path
 from typing import Any
@@ -23,14 +24,19 @@ def _open(args: argparse.Namespace) -> tuple[list[Any], Any]:
     from chainyard.store import Store
 
     stores = sorted((Store.open(p) for p in args.stores), key=lambda s: s.replica)
+    exact = _exact_draws(stores) and not (args.raw or args.burn_in_record or args.thinning_record)
     selection = choose_selection(
         stores,
-        raw=args.raw,
+        raw=args.raw or exact,
         burn_in_record=args.burn_in_record,
         thinning_record=args.thinning_record,
     )
     if selection.note:  # a derived store whose burn-in no record decided
         print(f"note: {stores[0].path}: {selection.note}", file=sys.stderr)
+    if exact:
+        selection = dataclasses.replace(
+            selection, description="every draw; accept-reject draws are exact: no burn-in"
+        )
     lengths = {s.steps_done for s in stores}
     if len(lengths) > 1:
         print(
@@ -39,6 +45,13 @@ def _open(args: argparse.Namespace) -> tuple[list[Any], Any]:
             file=sys.stderr,
         )
     return stores, selection
+
+
+def _exact_draws(stores: list[Any]) -> bool:
+    """Sampled (not derived) accept-reject stores: exact, independent draws that need no
+    burn-in decision (the store's ``sampler_kind`` attribute says so)."""
+    attrs = stores[0].attrs
+    return attrs.get("sampler_kind") == "accept_reject" and "derived" not in attrs
 
 
 def _records(args: argparse.Namespace) -> list[Path]:
@@ -88,7 +101,31 @@ def _interval(text: str) -> float:
     return value
 
 
-def _cmd_summarise(args: argparse.Namespace) -> int:
+#: the command's old name: still accepted for one release, unlisted, with one deprecation line
+OLD_TABLE_COMMAND = "summarise"
+TABLE_COMMAND = "results-table"
+
+
+class _Unlisted(dict[str, Any]):
+    """Subcommand parsers by name; names in :attr:`unlisted` work but are not offered
+    (argparse lists the choices by iterating the names)."""
+
+    unlisted: frozenset[str] = frozenset({OLD_TABLE_COMMAND})
+
+    def __iter__(self) -> Any:
+        return (k for k in super().__iter__() if k not in self.unlisted)
+
+
+def _cmd_old_table(args: argparse.Namespace) -> int:
+    print(
+        f"note: `chainyard {OLD_TABLE_COMMAND}` is now `chainyard {TABLE_COMMAND}` (same "
+        "options, new column names); the old name goes away in the next release",
+        file=sys.stderr,
+    )
+    return _cmd_table(args)
+
+
+def _cmd_table(args: argparse.Namespace) -> int:
     from chainyard.analysis.selection import selected
     from chainyard.analysis.summary_table import format_summary, summary_table
 
@@ -103,13 +140,9 @@ def _cmd_summarise(args: argparse.Namespace) -> int:
 def _cmd_plot(args: argparse.Namespace) -> int:
     from chainyard.analysis.diagnose import diagnose
     from chainyard.analysis.selection import selected
+    from chainyard.report.pairs import pairs_plot
     from chainyard.report.plot_outputs import check_plot_folder
-    from chainyard.report.plots import (
-        acceptance_plot,
-        pairs_plot,
-        tau_history_plot,
-        trace_plot,
-    )
+    from chainyard.report.plots import acceptance_plot, tau_history_plot, trace_plot
     from chainyard.report.references import reference_values
 
     folder = Path(args.output)
@@ -120,9 +153,11 @@ def _cmd_plot(args: argparse.Namespace) -> int:
     diag = diagnose(views)
     derived = "derived" in stores[0].attrs
     whole = views if derived else stores  # traces and acceptance: every sampled step
-    cut = None if (derived or args.raw) else selection.discard
+    cut = None if (derived or not selection.records) else selection.discard
     folder.mkdir(parents=True, exist_ok=True)
     xlabel = "draw (after the stores' burn-in and thinning)" if derived else "step"
+    if _exact_draws(stores):
+        xlabel = "draw"  # accept-reject: one exact draw per row
     trace_plot(whole, cut, folder / "traces.png", references=refs, xlabel=xlabel)
     tau_history_plot(views, folder / "tau.png", diagnostics=diag)
     pairs_plot(views, folder / "pairs.png", references=refs)
@@ -158,8 +193,31 @@ def _selection_options(p: argparse.ArgumentParser) -> None:
     )
 
 
+def _table_options(p: argparse.ArgumentParser) -> None:
+    _selection_options(p)
+    which = p.add_mutually_exclusive_group()
+    which.add_argument(
+        "--interval",
+        type=_interval,
+        default=None,
+        metavar="P",
+        help="central credible interval holding probability P: its ends and the median are "
+        "reported (default 0.9: lower_5pct, median, upper_95pct)",
+    )
+    which.add_argument(
+        "--quantiles",
+        default=None,
+        metavar="Q,Q,...",
+        help="report these quantiles instead (probabilities, e.g. 0.025,0.5,0.975 give "
+        "lower_2.5pct, median, upper_97.5pct)",
+    )
+    how = p.add_mutually_exclusive_group()
+    how.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    how.add_argument("--csv", action="store_true", help="print CSV instead of a table")
+
+
 def add_commands(sub: Any) -> None:
-    """Add ``export``, ``summarise`` and ``plot`` to the ``chainyard`` subcommands."""
+    """Add ``export``, ``results-table`` and ``plot`` to the ``chainyard`` subcommands."""
     p = sub.add_parser(
         "export",
         help="write a run's draws as ArviZ netCDF (.nc), zarr (.zarr) or CSV (.csv)",
@@ -177,29 +235,19 @@ def add_commands(sub: Any) -> None:
     p.set_defaults(func=_cmd_export)
 
     p = sub.add_parser(
-        "summarise",
-        help="posterior summary: mean, sd, MCSE, quantiles, ESS, R-hat, unit per parameter",
+        TABLE_COMMAND,
+        help="per parameter: mean, sd, quantiles, their MCSE, ESS, R-hat (as summary.csv)",
+        description="Per parameter, in the config's order: mean, sd and the quantiles "
+        "(lower_5pct, median, upper_95pct by default), then the MCSE of each in the same "
+        "order (mcse_mean, ...), then bulk_ess, tail_ess, rhat, nested_rhat. The workflow's "
+        "summary.csv has the same columns.",
     )
-    _selection_options(p)
-    which = p.add_mutually_exclusive_group()
-    which.add_argument(
-        "--interval",
-        type=_interval,
-        default=None,
-        metavar="P",
-        help="central credible interval holding probability P: its ends and the median are "
-        "reported (default 0.9: q5, q50, q95)",
-    )
-    which.add_argument(
-        "--quantiles",
-        default=None,
-        metavar="Q,Q,...",
-        help="report these quantiles instead (probabilities, e.g. 0.025,0.5,0.975)",
-    )
-    how = p.add_mutually_exclusive_group()
-    how.add_argument("--json", action="store_true", help="print JSON instead of a table")
-    how.add_argument("--csv", action="store_true", help="print CSV instead of a table")
-    p.set_defaults(func=_cmd_summarise)
+    _table_options(p)
+    p.set_defaults(func=_cmd_table)
+    sub.choices = sub._name_parser_map = _Unlisted(sub._name_parser_map)
+    p = sub.add_parser(OLD_TABLE_COMMAND)  # no help: not listed in --help
+    _table_options(p)
+    p.set_defaults(func=_cmd_old_table)
 
     p = sub.add_parser(
         "plot",

@@ -622,10 +622,10 @@ def format_table(result: dict[str, Any], title: str = "", selection: str | None 
         lines.append(
             f"{name[:15]:<16}{_num(d['mean'], '11.5g')}{_num(d['sd'], '10.4g')}"
             f"{_num(d['mcse_mean'], '9.3g')}{_num(d.get('rhat_nested'), '8.4f')}"
-            f"{_num(d['rhat'], '7.3f')}"
+            f"{_num(d['rhat'], '8.4f')}"
             f"{_num(d['ess_bulk'], '9.0f')}{_num(d['ess_tail'], '9.0f')}"
             f"{_num(d['tau'], '8.1f')}{_num(d['steps_per_tau'], '10.1f')}"
-            f"{_num(d.get('tau_growth'), '7.2f')}{_num(c.get('steps_needed'), '13,d')}  "
+            f"{_num(d.get('tau_growth'), '7.3f')}{_num(c.get('steps_needed'), '13,d')}  "
             + _questions(c)
         )
     lines.append("")
@@ -647,14 +647,25 @@ def format_table(result: dict[str, Any], title: str = "", selection: str | None 
 
 
 def accept_reject_line(ar: dict[str, Any]) -> str:
-    """One line: acceptance rate, binomial SE, proposals per draw (and 1/M if known)."""
+    """One line: acceptance rate, binomial SE, proposals per draw (and 1/M if known), in
+    :func:`chainyard.display.readable` numbers; a 1/M below 1e-6 is called
+    negligible, one far from the rate marks an unnormalised target."""
+    from chainyard.display import count, readable
+
     text = (
-        f"Accept-reject: acceptance rate {ar['rate']:.4f} +- {ar['se']:.4f} (binomial SE; "
-        f"{ar['draws']:,} draws from {ar['proposals']:,} proposals, "
-        f"{ar['proposals_per_draw']:.3g} per draw)"
+        f"Accept-reject: acceptance rate {readable(ar['rate'])} +- {readable(ar['se'], 2)} "
+        f"(binomial SE; {count(ar['draws'])} draws from {count(ar['proposals'])} proposals, "
+        f"{readable(ar['proposals_per_draw'])} per draw)"
     )
-    if ar.get("one_over_m") is not None:
-        text += f"; 1/M = {ar['one_over_m']:.4f} (equal for a normalised target)"
+    one_over_m = ar.get("one_over_m")
+    if one_over_m is not None:
+        text += f"; 1/M = {readable(one_over_m)}"
+        if one_over_m < 1e-6:
+            text += " (negligible: the envelope is far above the target's scale)"
+        elif not 0.1 < one_over_m / ar["rate"] < 10.0:
+            text += " (far from the rate: the target is not normalised)"
+        else:
+            text += " (equal to the rate for a normalised target)"
     return text
 
 

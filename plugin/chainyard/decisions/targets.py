@@ -142,8 +142,13 @@ def _fmt(value: float) -> str:
     return f"{value:.3g}" if abs(value) >= 1.1 else f"{value:.4f}"
 
 
-def _fmt_key(key: str, value: float) -> str:
-    """R-hats with 4 decimals, the tau growth ratio with 2, other numbers by :func:`_fmt`."""
+def _fmt_key(key: str, value: float, limit: float | None = None) -> str:
+    """R-hats with 4 decimals, the tau growth ratio with 2, other numbers by :func:`_fmt`;
+    given the ``limit``, R-hat and tau growth get the digits that show its side of it."""
+    if limit is not None and math.isfinite(value) and key.startswith(("rhat", "tau_growth")):
+        from chainyard.display import beside_limit
+
+        return beside_limit(value, limit, 4 if key.startswith("rhat") else 2)
     if math.isfinite(value) and key.startswith("rhat"):
         return f"{value:.4f}"
     if math.isfinite(value) and key == "tau_growth":
@@ -235,9 +240,9 @@ def _check_param(
             if math.isnan(value):
                 failures.append(f"{key} is nan")
             elif is_max and not value <= limit:
-                failures.append(f"{key} {_fmt_key(key, value)} > {limit:g}")
+                failures.append(f"{key} {_fmt_key(key, value, limit)} > {limit:g}")
             elif not is_max and not value >= limit:
-                failures.append(f"{key} {_fmt_key(key, value)} < {limit:g}")
+                failures.append(f"{key} {_fmt_key(key, value, limit)} < {limit:g}")
             else:
                 continue
         failed.add(key)

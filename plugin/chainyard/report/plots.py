@@ -1,5 +1,6 @@
-"""Plots of a run: traces with the burn-in cut, tau against steps, pairwise marginals,
-acceptance per walker. Each reads one parameter column at a time and writes a PNG.
+"""Plots of a run: traces with the burn-in cut, tau against steps, acceptance per walker
+(or chain); the pairs figure is in :mod:`chainyard.report.pairs`. Each reads one parameter
+column at a time and writes a PNG.
 """
 
 from __future__ import annotations
@@ -23,7 +24,6 @@ from chainyard.store import Store
 __all__ = [
     "acceptance_plot",
     "axis_label",
-    "pairs_plot",
     "tau_history_plot",
     "trace_figure",
     "trace_plot",
@@ -51,6 +51,13 @@ WALKERS_SHOWN = 3
 
 def _colour(i: int) -> str:
     return REPLICA_COLOURS[i % len(REPLICA_COLOURS)]
+
+
+def member_word(stores: Sequence[Any]) -> str:
+    """``walker`` for ensemble runs, ``chain`` for the chain kinds (from the store's
+    ``sampler_kind`` attribute; a selected view asks its store)."""
+    attrs = getattr(getattr(stores[0], "store", stores[0]), "attrs", None) or {}
+    return "walker" if attrs.get("sampler_kind", "ensemble") == "ensemble" else "chain"
 
 
 def _parameter(store: Any, name: str) -> Any:
@@ -141,11 +148,12 @@ def trace_figure(
 ) -> Any:
     """Traces of every parameter and the log-probability, one panel each (a Figure).
 
-    Per replica: the walker mean (line) and the 5-95% band of its walkers; for the first
-    replica also a few individual walkers (thin lines), to show mixing beyond the mean. The
-    burn-in ``cut`` is marked (None: no cut drawn), reference values are dotted lines, and
-    the log-probability panel's y-range is fitted to the steps after the cut (earlier steps
-    usually span orders of magnitude more and would flatten what matters). Each panel is
+    Per replica: the walker mean (line) and the 5-95% band of its walkers ("chains" for the
+    chain kinds); for the first replica also a few individual walkers (thin lines), to show
+    mixing beyond the mean. The burn-in ``cut`` is marked (None: no cut drawn), reference
+    values are dotted lines, and the log-probability panel's y-range is fitted to the steps
+    after the cut (earlier steps usually span orders of magnitude more and would flatten
+    what matters). Each panel is
     titled with the parameter's label (wrapped), the unit on the y axis.
     """
     names = stores[0].param_names
@@ -156,6 +164,7 @@ def trace_figure(
     stride = max(1, steps // MAX_POINTS)
     x = np.arange(0, steps, stride)
     shown = _walkers_shown(stores[0].walkers)
+    word = member_word(stores)
     for row, j in enumerate([*range(len(names)), -1]):
         ax = axes[row, 0]
         plotted = []
@@ -174,11 +183,13 @@ def trace_figure(
                         color=WALKER_INK,
                         linewidth=0.45,
                         alpha=0.55,
-                        label=f"walkers {', '.join(map(str, shown))} of replica {s.replica}"
+                        label=f"{word}s {', '.join(map(str, shown))} of replica {s.replica}"
                         if k == 0
                         else None,
                     )
-            ax.plot(x, mean, color=_colour(i), linewidth=1.0, label=f"replica {s.replica} mean")
+            ax.plot(
+                x, mean, color=_colour(i), linewidth=1.0, label=f"replica {s.replica}: {word} mean"
+            )
         if cut is not None:
             ax.axvline(cut, color=CUT_COLOUR, linestyle="--", linewidth=1.0, label="burn-in cut")
         if j >= 0 and names[j] in references:
@@ -228,7 +239,7 @@ def trace_figure(
     )
     axes[-1, 0].set_xlabel(xlabel, fontsize=9)
     fig.suptitle(
-        "Traces: walker mean (line), 5-95% of walkers (band) and a few single walkers",
+        f"Traces: {word} mean (line), 5-95% of {word}s (band) and a few single {word}s",
         fontsize=10,
     )
     fig.tight_layout(rect=(0, 0.04, 1, 1))
@@ -321,69 +332,17 @@ def tau_history_plot(
     _save(fig, path, stores)
 
 
-def pairs_plot(
-    stores: Sequence[Any],
-    path: str | Path,
-    max_params: int = 6,
-    max_draws: int = 20_000,
-    *,
-    references: Mapping[str, float] | None = None,
-) -> None:
-    """Pairwise marginals of the pooled final draws (subsampled evenly).
-
-    Reference values (``references``, by parameter name) are drawn as dotted lines on the
-    marginals and as a cross where two of them meet.
-    """
-    references = references or {}
-    names = stores[0].param_names[:max_params]
-    cols = []
-    for j in range(len(names)):
-        pooled = np.concatenate([s.column(j).reshape(-1) for s in stores])
-        cols.append(pooled)
-    n = cols[0].size
-    take = np.linspace(0, n - 1, min(n, max_draws)).astype(int)
-    data = [c[take] for c in cols]
-    k = len(names)
-    fig, axes = plt.subplots(k, k, figsize=(2.0 * k + 0.5, 2.0 * k + 0.5), squeeze=False)
-    for r in range(k):
-        for c in range(k):
-            ax = axes[r, c]
-            if c > r:
-                ax.set_visible(False)
-                continue
-            ref_c, ref_r = references.get(names[c]), references.get(names[r])
-            if r == c:
-                ax.hist(data[c], bins=40, color=REPLICA_COLOURS[0], alpha=0.8)
-                ax.set_yticks([])
-            else:
-                ax.hist2d(data[c], data[r], bins=40, cmap="Blues")
-                if ref_c is not None and ref_r is not None:
-                    ax.plot(ref_c, ref_r, "x", color=REFERENCE_COLOUR, markersize=6, mew=1.5)
-            if ref_c is not None:
-                ax.axvline(ref_c, color=REFERENCE_COLOUR, linestyle=":", linewidth=1.2)
-            if ref_r is not None and r != c:
-                ax.axhline(ref_r, color=REFERENCE_COLOUR, linestyle=":", linewidth=1.2)
-            if r == k - 1:
-                ax.set_xlabel(axis_label(stores[0], names[c], short=True), fontsize=7)
-            if c == 0 and r > 0:
-                ax.set_ylabel(axis_label(stores[0], names[r], short=True), fontsize=7)
-            ax.tick_params(labelsize=6)
-    title = "Pairwise marginals (after burn-in and thinning, replicas pooled)"
-    if any(n in references for n in names):
-        title += "; dotted: reference values"
-    fig.suptitle(title, fontsize=9)
-    _save(fig, path, stores)
-
-
 def acceptance_plot(
     stores: Sequence[Store], path: str | Path, diagnostics: dict[str, Any] | None = None
 ) -> None:
-    """Acceptance fraction of every walker per replica, with the informative band shaded.
+    """Acceptance fraction of every walker (or chain) per replica, with the informative band
+    shaded.
 
     The band is the one the diagnostics used for the run's moves
     (:func:`chainyard.diagnostics.acceptance.acceptance_band`), if ``diagnostics`` is given.
     """
     fig, ax = plt.subplots(figsize=(9, 2.8))
+    word = member_word(stores)
     bands = [a.get("band") for a in (diagnostics or {}).get("acceptance", []) if a.get("band")]
     if bands:
         lo, hi = bands[0]
@@ -411,10 +370,12 @@ def acceptance_plot(
     if any(stuck.values()):
         from matplotlib.patches import Patch
 
-        handles.append(Patch(facecolor="white", edgecolor=INK, hatch="////", label="stuck walker"))
+        handles.append(
+            Patch(facecolor="white", edgecolor=INK, hatch="////", label=f"stuck {word}")
+        )
     ax.set_ylabel("acceptance fraction", fontsize=8)
     ax.set_xticks([])
-    ax.set_xlabel("walkers, grouped by replica", fontsize=8)
+    ax.set_xlabel(f"{word}s, grouped by replica", fontsize=8)
     ax.set_ylim(0, 1)
     _style(ax)
     ax.legend(

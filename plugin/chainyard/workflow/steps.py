@@ -190,7 +190,7 @@ def diagnose_step(
     table and the posterior summary (CSV). Returns the record as written."""
     from chainyard.analysis.diagnose import diagnose, format_table
     from chainyard.analysis.records import write_record
-    from chainyard.analysis.summary import summarise, write_summary_csv
+    from chainyard.analysis.summary_table import summary_table, write_summary_csv
     from chainyard.config import TargetsSpec
     from chainyard.workflow.selection import read_selection
 
@@ -206,7 +206,7 @@ def diagnose_step(
     )
     table = format_table(result, title=f"run {run}")
     Path(outputs["table"]).write_text(table + "\n")
-    write_summary_csv(summarise(kept, record), outputs["summary"])
+    write_summary_csv(summary_table(kept, diagnostics=record), outputs["summary"])
     print(table, flush=True)
     return record
 
@@ -223,12 +223,8 @@ def plot_step(
     ``references`` is the JSON of the current config's reference values (the stored config
     keeps those of sampling time, and changing them must not resample).
     """
-    from chainyard.report.plots import (
-        acceptance_plot,
-        pairs_plot,
-        tau_history_plot,
-        trace_plot,
-    )
+    from chainyard.report.pairs import pairs_plot
+    from chainyard.report.plots import acceptance_plot, tau_history_plot, trace_plot
     from chainyard.workflow.selection import read_selection
 
     sel, replicas = read_selection(selection, stores)
@@ -271,7 +267,8 @@ def overview_step(
     """The cross-run overview: ``runs.csv`` and the report's opening page."""
     from chainyard.errors import StoreError
     from chainyard.store import Store
-    from chainyard.workflow.overview import overview_row, write_overview_rst, write_runs_csv
+    from chainyard.workflow.overview import MET, overview_row, write_overview_rst, write_runs_csv
+    from chainyard.workflow.overview_figure import overview_png
 
     rows = []
     for path in diagnostics:  # plain JSON: the analysis package (scipy) is not needed here
@@ -280,9 +277,12 @@ def overview_step(
             raise StoreError(f"{path}: expected a {DIAGNOSTICS_KIND!r} record")
         rows.append(overview_row(rec, [Store.open(p) for p in stores[rec["run"]]]))
     ordered = write_runs_csv(rows, outputs["table"])
-    write_overview_rst(ordered, results, outputs["page"])
-    failed = [r["run"] for r in ordered if r["verdict"] != "converged"]
+    figure = overview_png(ordered)
+    if outputs.get("figure"):
+        Path(outputs["figure"]).write_bytes(figure)
+    write_overview_rst(ordered, results, outputs["page"], figure)
+    failed = [r["run"] for r in ordered if r["verdict"] != MET]
     print(
-        f"{len(ordered)} run(s); not converged: {', '.join(failed) if failed else 'none'}",
+        f"{len(ordered)} run(s); targets not met: {', '.join(failed) if failed else 'none'}",
         flush=True,
     )
