@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from chainyard.decisions import Targets, assess
-from chainyard.decisions.targets import steps_needed
+from chainyard.decisions.targets import long_run_tau, steps_needed
 from chainyard.diagnostics import (
     ensemble_to_chains,
     ess_bulk,
@@ -103,19 +103,32 @@ def test_each_target_reports_its_failing_number() -> None:
 
 
 def test_steps_needed_from_ess_and_tau() -> None:
-    """ESS in proportion to steps: 120 of 400 at 1,000 steps needs 3,334; 50 x tau 40 = 2,000."""
+    """ESS in proportion to steps; tau corrected for its low bias; each times the margin 1.25."""
     targets = Targets()
     diag = {"ess_bulk": 120.0, "ess_tail": 390.0, "tau": 40.0}
-    # 1000 * 400 / 120 = 3333.3 -> 3334 (ceil); arithmetic by hand
-    assert steps_needed(diag, targets, 1000, {"ess_bulk", "ess_tail"}) == 3334
-    assert steps_needed(diag, targets, 1000, {"steps_per_tau"}) == 2000
-    assert steps_needed(diag, targets, 1000, {"tau_growth"}) == 2000  # at least double
+    # arithmetic by hand: 1000 * 400 / 120 * 1.25 = 4166.7 -> 4167; long-run tau
+    # 40 / (1 - 10 * 40 / 1000) = 66.67, and (50 - 10) * 66.67 * 1.25 = 3333.3 -> 3334
+    assert steps_needed(diag, targets, 1000, {"ess_bulk", "ess_tail"}) == 4167
+    assert steps_needed(diag, targets, 1000, {"steps_per_tau"}) == 3334
+    # growth: 10 * (2 - 1.2) * 66.67 / 0.2 * 1.25 = 3333.3 -> 3334
+    assert steps_needed(diag, targets, 1000, {"tau_growth"}) == 3334
     assert steps_needed(diag, targets, 1000, {"rhat_nested"}) is None  # mixing: no estimate
     verdict = assess({"a": {**diag, "rhat_nested": 1.0, "steps_per_tau": 25.0}}, steps=1000)
-    assert verdict.params["a"].steps_needed == 3334
-    assert verdict.more_steps == 2334
-    assert verdict.to_dict()["more_steps"] == 2334
-    assert any("about 2,334 more" in line for line in verdict.lines)
+    assert verdict.params["a"].steps_needed == 4167
+    assert verdict.more_steps == 3167
+    assert verdict.to_dict()["more_steps"] == 3167
+    assert any("about 3,167 more" in line for line in verdict.lines)
+
+
+def test_steps_needed_corrects_the_low_tau_estimate() -> None:
+    """tau 20 on 1,000 steps is 25 long-run; a run too short to correct gets twice its length."""
+    targets = Targets()
+    assert long_run_tau(20.0, 1000) == 25.0  # 20 / (1 - 10 * 20 / 1000), by hand
+    # (50 - 10) * 25 * 1.25 = 1,250: more than the uncorrected 50 * 20 = 1,000
+    assert steps_needed({"tau": 20.0}, targets, 1000, {"steps_per_tau"}) == 1250
+    assert long_run_tau(60.0, 1000) is None  # 1 - 600 / 1000 = 0.4: correction above 2
+    assert steps_needed({"tau": 60.0}, targets, 1000, {"steps_per_tau"}) == 2500  # 2 x 1.25
+    assert long_run_tau(float("nan"), 1000) is None
 
 
 def test_missing_or_nan_fails_and_none_disables() -> None:
