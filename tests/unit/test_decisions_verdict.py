@@ -203,14 +203,15 @@ def test_stuck_walker_fails_mixing() -> None:
     assert not verdict.ok and verdict.checks["mixing"] is False
     assert verdict.lines[0].startswith("Overall: FAIL (0 of 1 parameters failed; stuck walkers")
     assert (
-        "FAIL: stuck walkers (acceptance far below their ensemble): replica 0: walker 3; "
-        "replica 2: walkers 1, 5"
+        "FAIL: stuck walkers (acceptance far below their ensemble's and they barely move): "
+        "replica 0: walker 3; replica 2: walkers 1, 5"
     ) in verdict.lines
     assert verdict.to_dict()["stuck_walkers"] == {"0": [3], "2": [1, 5]}
 
 
 def test_diagnose_arrays_fails_a_run_with_a_stuck_walker() -> None:
-    """diagnose_arrays with acceptance flags: a walker accepting 1% among 60% fails the run."""
+    """diagnose_arrays with acceptance flags: a walker accepting 1% among 60% that barely
+    moves is stuck; one that moves as much as the others holds a minority region."""
     from chainyard.analysis.diagnose import diagnose_arrays
 
     rng = np.random.default_rng(9)
@@ -218,5 +219,50 @@ def test_diagnose_arrays_fails_a_run_with_a_stuck_walker() -> None:
     accepted = rng.random((4, 400, 16)) < 0.6
     assert diagnose_arrays(draws, accepted=accepted)["verdict"]["ok"]
     accepted[1, :, 7] = rng.random(400) < 0.01
+    moving = diagnose_arrays(draws, accepted=accepted)["verdict"]
+    assert not moving["ok"] and moving["minority_walkers"] == {"1": [7]}
+    assert not moving["stuck_walkers"]
+    assert any("walkers in a minority region" in line for line in moving["lines"])
+    draws[1, :, 7] = draws[1, 0, 7] + 0.01 * rng.standard_normal((400, 2))  # barely moves
     verdict = diagnose_arrays(draws, accepted=accepted)["verdict"]
     assert not verdict["ok"] and verdict["stuck_walkers"] == {"1": [7]}
+    assert not verdict["minority_walkers"]
+
+
+def test_slow_independent_chain_is_judged_by_its_own_ess() -> None:
+    """Metropolis-Hastings: a chain accepting 0.08 among 0.22 whose own ESS meets its share
+    of the target is reported as slow, not stuck; one that never moves is stuck."""
+    from chainyard.analysis.diagnose import diagnose_arrays
+
+    rng = np.random.default_rng(4)
+    replicas, steps, chains = 4, 2000, 8
+    draws = rng.standard_normal((replicas, steps, chains, 2))  # independent draws: ESS ~ steps
+    accepted = rng.random((replicas, steps, chains)) < 0.22
+    accepted[2, :, 5] = rng.random(steps) < 0.08
+    result = diagnose_arrays(draws, accepted=accepted, kind="metropolis_hastings")
+    verdict = result["verdict"]
+    assert verdict["ok"], verdict["lines"]
+    (slow,) = verdict["slow_chains"]["2"]
+    assert slow["chain"] == 5 and slow["own_ess_bulk"] >= slow["required"] == 400 / 32
+    assert any("chain 5 is slow, not stuck" in line for line in verdict["lines"])
+    draws[2, :, 5] = draws[2, 0, 5]  # never moves
+    accepted[2, :, 5] = False
+    verdict = diagnose_arrays(draws, accepted=accepted, kind="metropolis_hastings")["verdict"]
+    assert not verdict["ok"] and verdict["stuck_walkers"] == {"2": [5]}
+
+
+def test_one_replica_says_what_was_not_checked() -> None:
+    """One replica: mixing reads 'ok within one replica only' and 4 replicas are advised."""
+    from chainyard.analysis.diagnose import diagnose_arrays, format_table
+
+    rng = np.random.default_rng(2)
+    result = diagnose_arrays(rng.standard_normal((1, 2000, 16, 2)))
+    lines = result["verdict"]["lines"]
+    assert "mixing ok within one replica only" in lines[0]
+    assert any("Run 4 replicas" in line for line in lines)
+    assert "halves" in result["what_each_check_compares"]["rhat_nested"]
+    assert "Run 4 replicas" in format_table(result)
+    four = diagnose_arrays(rng.standard_normal((4, 2000, 16, 2)))["verdict"]["lines"]
+    assert not any("replica only" in line or "Run 4 replicas" in line for line in four)
+
+

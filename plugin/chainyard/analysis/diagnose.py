@@ -36,6 +36,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from chainyard.analysis.low_acceptance import classify as classify_low_acceptance
 from chainyard.config import TargetsSpec
 from chainyard.decisions import assess
 from chainyard.decisions.targets import WHAT_EACH_CHECK_COMPARES
@@ -474,6 +475,7 @@ def diagnose(
             else None
         ),
     }
+    low = classify_low_acceptance(stores, steps, acceptance, kind, targets.min_ess_bulk)
     keys = ("rhat_nested", "rhat", "ess_bulk", "ess_tail", "steps_per_tau", "tau_growth", "tau")
     verdict = assess(
         {n: {k: (np.nan if params[n][k] is None else params[n][k]) for k in keys} for n in names},
@@ -481,7 +483,10 @@ def diagnose(
         multivariate_ess=multivariate["ess"],
         n_params=len(names),
         steps=steps,
-        stuck_walkers={a["replica"]: a["stuck_walkers"] for a in acceptance},
+        stuck_walkers=low.stuck,
+        minority_walkers=low.minority,
+        slow_chains=low.slow,
+        replicas=len(stores),
     )
     bad_acceptance = [a for a in acceptance if a["messages"]]
     extra: dict[str, Any] = {}
@@ -502,8 +507,19 @@ def diagnose(
         "more_steps": verdict.more_steps,
         "targets": targets.model_dump(mode="json"),
         "what_is_compared": WHAT_IS_COMPARED,
-        "what_each_check_compares": dict(WHAT_EACH_CHECK_COMPARES),
+        "what_each_check_compares": _what_each(len(stores)),
     }
+
+
+def _what_each(replicas: int) -> dict[str, str]:
+    """What each check compares; with one replica, what nested R-hat could not compare."""
+    out = dict(WHAT_EACH_CHECK_COMPARES)
+    if replicas == 1:
+        out["rhat_nested"] = (
+            "mixing: one replica, so nested R-hat compares only the run's two halves (a drift "
+            "check; no independent starts compared); run 4 replicas"
+        )
+    return out
 
 
 def compare_with_reference(

@@ -116,6 +116,9 @@ class Verdict:
     steps: int | None = None
     more_steps: int | None = None
     stuck_walkers: dict[int, list[int]] = field(hash=False, default_factory=dict)
+    minority_walkers: dict[int, list[int]] = field(hash=False, default_factory=dict)
+    slow_chains: dict[int, list[dict[str, Any]]] = field(hash=False, default_factory=dict)
+    replicas: int | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """Return a JSON-serialisable dict."""
@@ -125,6 +128,9 @@ class Verdict:
             "steps": self.steps,
             "more_steps": self.more_steps,
             "stuck_walkers": {str(r): list(ws) for r, ws in self.stuck_walkers.items()},
+            "minority_walkers": {str(r): list(ws) for r, ws in self.minority_walkers.items()},
+            "slow_chains": {str(r): to_builtin(cs) for r, cs in self.slow_chains.items()},
+            "replicas": self.replicas,
             "params": {
                 name: {
                     "ok": c.ok,
@@ -344,7 +350,7 @@ def _advice(checks: dict[str, bool], more_steps: int | None, steps: int | None) 
     if not checks["mixing"]:
         lines.append(
             "mixing: the replicas disagree (different starts not forgotten, modes held in "
-            "different shares, or stuck walkers); more steps may not help: look at the traces."
+            "different shares, stuck walkers, or walkers in a minority region); more steps may not help: look at the traces."
         )
     return lines
 
@@ -357,6 +363,9 @@ def assess(
     n_params: int | None = None,
     steps: int | None = None,
     stuck_walkers: Mapping[int, Sequence[int]] | None = None,
+    minority_walkers: Mapping[int, Sequence[int]] | None = None,
+    slow_chains: Mapping[int, Sequence[Mapping[str, Any]]] | None = None,
+    replicas: int | None = None,
 ) -> Verdict:
     """Check per-parameter diagnostics against targets, question by question.
 
@@ -379,6 +388,16 @@ def assess(
     stuck_walkers : mapping of int to sequence of int, optional
         Stuck walkers per replica (:func:`chainyard.diagnostics.acceptance_report`); any
         fails the mixing question: a walker that stopped moving does not sample the target.
+    minority_walkers : mapping of int to sequence of int, optional
+        Walkers that move but whose acceptance is far below their ensemble's: they hold a
+        region most walkers are not in (:mod:`chainyard.analysis.low_acceptance`); any fails
+        the mixing question, in its own words.
+    slow_chains : mapping of int to sequence of mapping, optional
+        Independent chains with low acceptance whose own ESS meets their share (``chain``,
+        ``acceptance``, ``own_ess_bulk``, ``required``): reported, not a failure.
+    replicas : int, optional
+        Number of replicas; with one, the verdict says that mixing compared only the run's
+        halves and recommends 4 replicas.
 
     Returns
     -------
@@ -401,7 +420,11 @@ def assess(
             needed.append(math.ceil(steps * mess["required"] / value))
     more_steps = max(needed) - steps if needed and steps is not None else None
     stuck = {int(r): [int(w) for w in ws] for r, ws in (stuck_walkers or {}).items() if len(ws)}
-    if stuck:
+    minority = {
+        int(r): [int(w) for w in ws] for r, ws in (minority_walkers or {}).items() if len(ws)
+    }
+    slow = {int(r): [dict(c) for c in cs] for r, cs in (slow_chains or {}).items() if len(cs)}
+    if stuck or minority:
         checks["mixing"] = False
     lines: list[str] = []
     for check in params.values():
@@ -419,15 +442,55 @@ def assess(
             + (" ..." if len(ws) > 10 else "")
             for r, ws in sorted(stuck.items())
         )
-        lines.append(f"FAIL: stuck walkers (acceptance far below their ensemble): {shown}")
+        lines.append(
+            f"FAIL: stuck walkers (acceptance far below their ensemble's and they barely "
+            f"move): {shown}"
+        )
+    if minority:
+        lines.append(
+            "FAIL: walkers in a minority region (they move, but their acceptance is far below "
+            "their ensemble's: they hold a mode or region most walkers are not in): "
+            + _listing(minority, "walker")
+        )
+    for r, cs in sorted(slow.items()):
+        for c in cs:
+            lines.append(
+                f"note: replica {r}: chain {c['chain']} is slow, not stuck (acceptance "
+                f"{c['acceptance']:.3f}, far below the median; its own bulk ESS "
+                f"{c['own_ess_bulk']:.0f} >= {c['required']:.3g}, its share of the target): "
+                "not a failure"
+            )
+    if replicas == 1:
+        lines.append(
+            "note: 1 replica: mixing compared only the two halves of this run (a drift check); "
+            "nothing compared independent starts, so a mode or region the run never reached "
+            "cannot show. Run 4 replicas (sampler.replicas: 4)."
+        )
     n_fail = sum(not c.ok for c in params.values())
-    ok = n_fail == 0 and (mess is None or mess["ok"]) and not stuck
+    ok = n_fail == 0 and (mess is None or mess["ok"]) and not stuck and not minority
     summary = f"Overall: {'ok' if ok else 'FAIL'} ({n_fail} of {len(params)} parameters failed"
     if mess is not None and not mess["ok"]:
         summary += "; multivariate ESS below target"
     if stuck:
         summary += "; stuck walkers"
-    summary += "; " + ", ".join(f"{q} {'ok' if checks[q] else 'FAIL'}" for q in QUESTIONS)
+    if minority:
+        summary += "; walkers in a minority region"
+    words = {q: "ok" if checks[q] else "FAIL" for q in QUESTIONS}
+    if replicas == 1 and checks["mixing"]:
+        words["mixing"] = "ok within one replica only"
+    summary += "; " + ", ".join(f"{q} {words[q]}" for q in QUESTIONS)
     lines.insert(0, summary + ")")
     lines.extend(_advice(checks, more_steps, steps))
-    return Verdict(ok, params, mess, tuple(lines), checks, steps, more_steps, stuck)
+    return Verdict(
+        ok, params, mess, tuple(lines), checks, steps, more_steps, stuck, minority, slow, replicas
+    )
+
+
+def _listing(found: Mapping[int, Sequence[int]], noun: str) -> str:
+    """'replica 0: walker 3; replica 2: walkers 1, 5' (at most 10 per replica)."""
+    return "; ".join(
+        f"replica {r}: {noun}{'s' if len(ws) > 1 else ''} "
+        + ", ".join(map(str, ws[:10]))
+        + (" ..." if len(ws) > 10 else "")
+        for r, ws in sorted(found.items())
+    )
