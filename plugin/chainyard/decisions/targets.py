@@ -350,7 +350,8 @@ def _advice(checks: dict[str, bool], more_steps: int | None, steps: int | None) 
     if not checks["mixing"]:
         lines.append(
             "mixing: the replicas disagree (different starts not forgotten, modes held in "
-            "different shares, stuck walkers, or walkers in a minority region); more steps may not help: look at the traces."
+            "different shares, stuck walkers, or walkers in a minority region); more steps "
+            "may not help: look at the traces."
         )
     return lines
 
