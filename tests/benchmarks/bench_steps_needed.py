@@ -8,7 +8,7 @@ judging a run of ``n`` steps (the runs are prefix-consistent). A run starts at `
 steps per (long-run) tau, is judged (default burn-in, default targets) and, when it fails,
 extended by the ``more_steps`` it suggests and judged again. Recorded per run: whether it
 passed after that first suggestion, and the suggested length over the shortest passing
-length (the first on a grid of lengths growing by 5% from the start that passes).
+length (the first on a grid of lengths growing by 8% from the start that passes).
 Results are JSON lines in tests/benchmarks/.work/steps-needed.jsonl.
 """
 
@@ -27,7 +27,7 @@ sys.path.insert(0, str(ROOT))
 from tests.statistics.judge import Judgement, judge  # noqa: E402
 from tests.statistics.runs import FAMILIES, TAU, simulate, steps_for  # noqa: E402
 
-GRID = 1.05
+GRID = 1.08
 
 
 def one(family: str, seed: int, start: float, longest: float) -> dict:

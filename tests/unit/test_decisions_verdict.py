@@ -33,7 +33,16 @@ def diagnose(replicas: list[np.ndarray]) -> dict[str, float]:
         "ess_tail": ess_tail(pooled),
         "steps_per_tau": tau.steps_per_tau,
         "tau_growth": tau.tau / integrated_time(replicas[0][:half].T),
+        "rhat_tail": _tail_rhat(replicas),
     }
+
+
+def _tail_rhat(replicas: list[np.ndarray]) -> float:
+    """Split R-hat of each replica's share of draws in the pooled 5% / 95% tails."""
+    q05, q95 = np.quantile(np.concatenate(replicas), (0.05, 0.95))
+    lower = np.stack([(r <= q05).mean(axis=1) for r in replicas])
+    upper = np.stack([(r >= q95).mean(axis=1) for r in replicas])
+    return max(rhat(lower), rhat(upper))
 
 
 def test_iid_replicas_pass() -> None:
@@ -65,6 +74,7 @@ def test_classic_rhat_reported_but_gates_only_when_set() -> None:
     """Classic R-hat 1.03 fails only with max_rhat set (default None: reported, not gating)."""
     diag = {
         "rhat_nested": 1.001,
+        "rhat_tail": 1.01,
         "rhat": 1.03,
         "ess_bulk": 1e4,
         "ess_tail": 1e4,
@@ -83,6 +93,7 @@ def test_each_target_reports_its_failing_number() -> None:
         {
             "a": {
                 "rhat_nested": 1.001,
+                "rhat_tail": 1.01,
                 "ess_bulk": 120.0,
                 "ess_tail": 390.0,
                 "tau": 40.0,
@@ -137,8 +148,14 @@ def test_missing_or_nan_fails_and_none_disables() -> None:
         {"a": {"rhat_nested": float("nan"), "ess_bulk": 500.0, "ess_tail": 500.0}},
         Targets(max_tau_growth=None),
     )
-    assert v.params["a"].failures == ("rhat_nested is nan", "steps_per_tau missing")
-    relaxed = Targets(min_steps_per_tau=None, max_nested_rhat=None, max_tau_growth=None)
+    assert v.params["a"].failures == (
+        "rhat_nested is nan",
+        "rhat_tail missing",
+        "steps_per_tau missing",
+    )
+    relaxed = Targets(
+        min_steps_per_tau=None, max_nested_rhat=None, max_tau_growth=None, max_tail_rhat=None
+    )
     assert assess({"a": {"ess_bulk": 500.0, "ess_tail": 500.0}}, relaxed).ok
 
 
@@ -147,6 +164,7 @@ def test_multivariate_ess_target() -> None:
     diag = {
         "a": {
             "rhat_nested": 1.0,
+            "rhat_tail": 1.0,
             "ess_bulk": 1e4,
             "ess_tail": 1e4,
             "steps_per_tau": 100.0,
@@ -192,6 +210,7 @@ def test_stuck_walker_fails_mixing() -> None:
     diag = {
         "a": {
             "rhat_nested": 1.0,
+            "rhat_tail": 1.0,
             "ess_bulk": 1e4,
             "ess_tail": 1e4,
             "steps_per_tau": 100.0,
@@ -264,5 +283,3 @@ def test_one_replica_says_what_was_not_checked() -> None:
     assert "Run 4 replicas" in format_table(result)
     four = diagnose_arrays(rng.standard_normal((4, 2000, 16, 2)))["verdict"]["lines"]
     assert not any("replica only" in line or "Run 4 replicas" in line for line in four)
-
-

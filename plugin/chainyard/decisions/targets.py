@@ -64,8 +64,10 @@ WHAT_EACH_CHECK_COMPARES = {
     "steps_per_tau": "tau: steps after burn-in / tau (mean of the per-replica estimates, walkers "
     "averaged; "
     "Foreman-Mackey et al. 2013)",
-    "tau_growth": "tau: tau of the whole run / tau of its first half (pooled over replicas); "
-    "above the limit tau is still growing",
+    "rhat_tail": "mixing: split R-hat of each replica's share of draws in the 5% and 95% "
+    "tails over time (do all replicas, and both halves of each, visit the tails equally?)",
+    "tau_growth": "tau: tau of the whole run / tau of its first half on rank-normalised draws "
+    "(pooled over replicas); above the limit tau is still growing",
     "ess_bulk": "precision: bulk ESS, every walker of every replica as a chain",
     "ess_tail": "precision: tail ESS (5% and 95% quantiles), every walker as a chain",
     "mess": "precision: multivariate ESS of the replicas' walker-mean traces vs "
@@ -83,6 +85,7 @@ class Targets:
     min_ess_tail: float | None = 400.0
     min_steps_per_tau: float | None = 50.0
     max_tau_growth: float | None = 1.3
+    max_tail_rhat: float | None = 1.1
     mess_eps: float | None = None
     mess_alpha: float = 0.05
 
@@ -181,6 +184,7 @@ def _checks(diag: Mapping[str, Any], targets: Targets) -> list[tuple[str, str, A
     return [
         ("mixing", "rhat_nested", _get(diag, "rhat_nested"), targets.max_nested_rhat, True),
         ("mixing", "rhat", _get(diag, "rhat"), targets.max_rhat, True),
+        ("mixing", "rhat_tail", _get(diag, "rhat_tail"), targets.max_tail_rhat, True),
         ("tau", "steps_per_tau", _steps_per_tau(diag), targets.min_steps_per_tau, False),
         ("tau", "tau_growth", _get(diag, "tau_growth"), targets.max_tau_growth, True),
         ("precision", "ess_bulk", _get(diag, "ess_bulk"), targets.min_ess_bulk, False),
