@@ -103,6 +103,8 @@ STATS = (
     ("rhat_nested", max),
     ("rhat", max),
     ("tau_growth", max),
+    ("tau_growth_raw", max),
+    ("rhat_tail", max),
     ("steps_per_tau", min),
     ("ess_bulk", min),
     ("ess_tail", min),

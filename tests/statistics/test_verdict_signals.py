@@ -36,3 +36,18 @@ def test_funnel_fails_on_the_tail_rhat_alone() -> None:
     (run,) = cell.runs
     assert not run.ok
     assert "rhat_tail" in run.checks, run.lines
+
+
+def test_following_steps_needed_once_passes() -> None:
+    """A healthy run failed at 20 steps per tau passes once extended by its suggestion, and
+    the suggestion is not far beyond the shortest passing length (study: >= 80% pass)."""
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "benchmarks"))
+    from bench_steps_needed import one
+
+    for seed in (0, 1):
+        row = one("healthy/gauss4_corr", seed, start=20.0, longest=80.0)
+        assert not row["ok_at_start"] and row["ok_after"], row
+        assert row["overshoot"] is not None and row["overshoot"] <= 1.5, row

@@ -83,6 +83,9 @@ def overview_row(diagnostics: dict[str, Any], stores: Sequence[Any]) -> dict[str
     stuck = verdict.get("stuck_walkers") or {}
     if stuck:
         warnings.append(f"stuck walkers: {stuck}")
+    minority = verdict.get("minority_walkers") or {}
+    if minority:
+        warnings.append(f"walkers in a minority region: {minority}")
     selection = diagnostics.get("selection") or {}
     return {
         "run": diagnostics.get("run", ""),
