@@ -48,6 +48,6 @@ def test_following_steps_needed_once_passes() -> None:
     from bench_steps_needed import one
 
     for seed in (0, 1):
-        row = one("healthy/gauss4_corr", seed, start=20.0, longest=80.0)
+        row = one("healthy/gauss4_corr", seed, start=20.0, longest=100.0)
         assert not row["ok_at_start"] and row["ok_after"], row
         assert row["overshoot"] is not None and row["overshoot"] <= 1.5, row
