@@ -60,8 +60,10 @@ MARK_START = "<!-- bench_verdict.py: start -->"
 MARK_END = "<!-- bench_verdict.py: end -->"
 
 #: (family, steps, label, seeds at scale 1)
-HEALTHY_SEEDS = {"gauss4_corr": 40, "banana": 12, "gamma3": 20}
+HEALTHY_SEEDS = {"gauss4_corr": 40, "banana": 12, "gamma3": 20, "student_t5_mh": 24}
 HEALTHY_LENGTHS = (50, 100, 200)
+#: extra lengths per healthy target (steps per tau): the heavy-tailed MH case of issue 18
+EXTRA_LENGTHS = {"student_t5_mh": (380,)}
 
 
 def plan(scale: float) -> list[tuple[str, int, str, int]]:
@@ -73,7 +75,7 @@ def plan(scale: float) -> list[tuple[str, int, str, int]]:
     cells = []
     for target, seeds in HEALTHY_SEEDS.items():
         fam = f"healthy/{target}"
-        for k in HEALTHY_LENGTHS:
+        for k in (*HEALTHY_LENGTHS, *EXTRA_LENGTHS.get(target, ())):
             cells.append((fam, steps_for(fam, k), f"{k} steps/tau", n(seeds)))
     for steps, seeds in (
         (1000, 6),

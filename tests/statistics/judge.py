@@ -103,6 +103,8 @@ STATS = (
     ("rhat_nested", max),
     ("rhat", max),
     ("tau_growth", max),
+    ("tau_growth_raw", max),
+    ("rhat_tail", max),
     ("steps_per_tau", min),
     ("ess_bulk", min),
     ("ess_tail", min),
@@ -125,10 +127,11 @@ def _diagnose(
     accepted: npt.NDArray[np.bool_],
     names: tuple[str, ...],
     move_kinds: tuple[str, ...] | None,
+    kind: str = "ensemble",
 ) -> dict[str, Any]:
     """``diagnose`` on arrays after burn-in, default targets (``diagnose_arrays``)."""
     mod = importlib.import_module("chainyard.analysis.diagnose")
-    kwargs: dict[str, Any] = {"accepted": accepted, "names": list(names)}
+    kwargs: dict[str, Any] = {"accepted": accepted, "names": list(names), "kind": kind}
     if move_kinds is not None:
         kwargs["move_kinds"] = list(move_kinds)
     return mod.diagnose_arrays(draws, TargetsSpec(), **kwargs)
@@ -140,16 +143,19 @@ def judge(
     log_prob: FloatArray,
     accepted: npt.NDArray[np.bool_],
     move_kinds: tuple[str, ...] | None = None,
+    *,
+    kind: str = "ensemble",
 ) -> Judgement:
     """Judge one run: ``draws`` (replicas, steps, walkers, d), the others (replicas, steps,
-    walkers); ``move_kinds`` as the run config names its moves (None: the stretch move)."""
+    walkers); ``move_kinds`` as the run config names its moves (None: the stretch move);
+    ``kind`` the sampler kind (the basis of R-hat and ESS, and the low-acceptance rules)."""
     names = target.names
     full = [
         ArrayReplica(draws[k], log_prob[k], accepted[k], k, names) for k in range(draws.shape[0])
     ]
     try:
         cut = decide_burn_in(full, DefaultBurnIn(policy="default")).steps_discarded  # type: ignore[arg-type]
-        result = _diagnose(draws[:, cut:], accepted[:, cut:], names, move_kinds)
+        result = _diagnose(draws[:, cut:], accepted[:, cut:], names, move_kinds, kind)
     except (ValueError, ChainyardError) as exc:  # too short for a method: the run is not ok
         return Judgement(False, {"refused"}, [], 0, 0, False, "", [], [f"refused: {exc}"])
     verdict = result["verdict"]
@@ -158,6 +164,8 @@ def judge(
         checks.update(check_name(f) for f in p["failures"])
     if any(verdict.get("stuck_walkers", {}).values()):
         checks.add("stuck walkers")
+    if any(verdict.get("minority_walkers", {}).values()):
+        checks.add("minority region")
     run_level = verdict.get("checks")  # {question: passed}: named only if no failure line is
     if isinstance(run_level, dict) and not checks:
         checks.update(f"run:{k}" for k, v in run_level.items() if v is False)

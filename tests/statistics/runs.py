@@ -14,17 +14,26 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .samplers import Runs, random_walk, stretch
-from .targets import BANANA, BIMODAL, CORR_GAUSS, EIGHT_SCHOOLS, GAMMA, Target
+from .samplers import Runs, adaptive_random_walk, random_walk, stretch
+from .targets import BANANA, BIMODAL, CORR_GAUSS, EIGHT_SCHOOLS, GAMMA, STUDENT_T, Target
 
 REPLICAS = 4
 WALKERS = 32
+
+#: the heavy-tailed Metropolis-Hastings case (issue 18, item 11): 4 replicas x 8 chains,
+#: proposal sd 1 per parameter adapted per chain over the first 1,000 steps, then frozen
+T_MH_CHAINS = 8
+T_MH_ADAPT = 1000
+#: tau (steps) of the slowest parameter, measured by ``bench_verdict.py --measure-tau``
+#: (4 runs x 4 replicas x 20,000 steps, first 2,000 dropped, emcee.autocorr.integrated_time
+#: per replica, averaged; 2026-12-03): 22.8 (sd over replicas 3.1)
+T_MH_TAU = 22.8
 
 #: integrated autocorrelation time (steps) of the slowest parameter of each healthy target
 #: under the stretch move with 32 walkers, measured once by ``bench_verdict.py --measure-tau``
 #: (16 ensembles x 20,000 steps, emcee.autocorr.integrated_time per ensemble, averaged;
 #: 2026-12-02): gauss4_corr 48.7 (sd over ensembles 2.0), banana 188 (13), gamma3 52.1 (1.0)
-TAU = {"gauss4_corr": 48.7, "banana": 188.0, "gamma3": 52.1}
+TAU = {"gauss4_corr": 48.7, "banana": 188.0, "gamma3": 52.1, "student_t5_mh": T_MH_TAU}
 
 FAMILY_CODE = {
     "healthy/gauss4_corr": 1,
@@ -35,6 +44,7 @@ FAMILY_CODE = {
     "stuck_walker": 13,
     "small_step": 14,
     "far_start": 15,
+    "healthy/student_t5_mh": 4,
 }
 
 HEALTHY_TARGETS = {"gauss4_corr": CORR_GAUSS, "banana": BANANA, "gamma3": GAMMA}
@@ -54,6 +64,8 @@ class Family:
     healthy: bool
     what: str
     move_kinds: tuple[str, ...] | None = None
+    kind: str = "ensemble"
+    walkers: int = WALKERS
 
 
 FAMILIES = {
@@ -63,6 +75,17 @@ FAMILIES = {
         )
         for k, t in HEALTHY_TARGETS.items()
     },
+    "healthy/student_t5_mh": Family(
+        "healthy/student_t5_mh",
+        STUDENT_T,
+        True,
+        f"Metropolis-Hastings, {T_MH_CHAINS} chains per replica, proposal sd 1 adapted per "
+        f"chain towards acceptance 0.234 over the first {T_MH_ADAPT:,} steps then frozen, "
+        f"started at the target ({STUDENT_T.source})",
+        ("metropolis_hastings",),
+        "metropolis_hastings",
+        T_MH_CHAINS,
+    ),
     "eight_schools": Family(
         "eight_schools",
         EIGHT_SCHOOLS,
@@ -116,7 +139,10 @@ def simulate(family: str, steps: int, seeds: Sequence[int]) -> Runs:
     fam = FAMILIES[family]
     tg = fam.target
     gens = _gens(family, steps, seeds)
-    shape = (REPLICAS, WALKERS)
+    shape = (REPLICAS, fam.walkers)
+    if family == "healthy/student_t5_mh":
+        start = np.stack([tg.exact(g, shape) for g in gens])  # type: ignore[misc]
+        return adaptive_random_walk(tg.log_prob, start, steps, gens, np.ones(tg.dim), T_MH_ADAPT)
     if fam.healthy:
         start = np.stack([tg.exact(g, shape) for g in gens])  # type: ignore[misc]
         return stretch(tg.log_prob, start, steps, gens)

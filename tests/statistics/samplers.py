@@ -166,3 +166,60 @@ def random_walk(
             lps[:, t] = lp
             accs[:, t] = ok
     return out
+
+
+#: steps per adaptation window (as chainyard.engine.metropolis.ADAPT_WINDOW)
+ADAPT_WINDOW = 50
+
+
+def adaptive_random_walk(
+    log_prob: LogProb,
+    start: FloatArray,
+    steps: int,
+    gens: Sequence[np.random.Generator],
+    scale: FloatArray,
+    adapt_steps: int,
+    target: float = 0.234,
+) -> Runs:
+    """Random-walk Metropolis per chain with the engine's adaptation, then frozen.
+
+    Each chain's proposal sd is ``scale * exp(log_s)``; after every window of
+    :data:`ADAPT_WINDOW` steps during the first ``adapt_steps`` steps, ``log_s += (a_hat -
+    target) / sqrt(k)`` for the k-th window (Robbins and Monro 1951; Andrieu and Thoms 2008,
+    section 4), as ``chainyard.engine.metropolis`` does; frozen afterwards, so chains end
+    with different scales, as real adapted runs do.
+    """
+    n, r, w, d = start.shape
+    e = n * r
+    x = start.reshape(e, w, d).copy()
+    lp = log_prob(x)
+    log_s = np.zeros((e, w))
+    window = np.zeros((e, w))
+    out = _allocate(n, r, steps, w, d)
+    draws = out.draws.reshape(e, steps, w, d)
+    lps = out.log_prob.reshape(e, steps, w)
+    accs = out.accepted.reshape(e, steps, w)
+    for t0 in range(0, steps, BLOCK):
+        tb = min(BLOCK, steps - t0)
+        blocks = [(g.standard_normal((tb, r, w, d)), g.random((tb, r, w))) for g in gens]
+        z = np.concatenate([b[0] for b in blocks], axis=1)
+        u = np.concatenate([b[1] for b in blocks], axis=1)
+        for i in range(tb):
+            t = t0 + i
+            y = x + z[i] * scale * np.exp(log_s)[..., None]
+            lp_y = log_prob(y)
+            ok = lp_y - lp > np.log(u[i])
+            x[ok] = y[ok]
+            lp[ok] = lp_y[ok]
+            draws[:, t] = x
+            lps[:, t] = lp
+            accs[:, t] = ok
+            if t < adapt_steps:
+                window += ok
+                done = t + 1
+                if done % ADAPT_WINDOW == 0 or done == adapt_steps:
+                    k = (done + ADAPT_WINDOW - 1) // ADAPT_WINDOW
+                    size = done - (k - 1) * ADAPT_WINDOW
+                    log_s += (window / size - target) / np.sqrt(k)
+                    window[:] = 0.0
+    return out

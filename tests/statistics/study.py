@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .judge import Judgement, judge
-from .runs import FAMILIES, REPLICAS, WALKERS, simulate
+from .runs import FAMILIES, REPLICAS, simulate
 
 #: bytes of draws simulated at once (runs are batched up to this)
 BATCH_BYTES = 400 * 2**20
@@ -103,7 +103,7 @@ def run_cell(
     import time
 
     fam = FAMILIES[family]
-    per_run = REPLICAS * WALKERS * steps * fam.target.dim * 8
+    per_run = REPLICAS * fam.walkers * steps * fam.target.dim * 8
     batch = max(1, min(len(seeds), BATCH_BYTES // per_run))
     cell = Cell(family, steps, label or f"{steps} steps")
     t0 = time.perf_counter()
@@ -119,6 +119,7 @@ def run_cell(
                     runs.log_prob[k],
                     runs.accepted[k],
                     fam.move_kinds,
+                    kind=fam.kind,
                 )
             )
         del runs

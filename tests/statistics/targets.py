@@ -146,6 +146,30 @@ GAMMA = Target(
     exact=_gamma_exact,
 )
 
+# ---------------------------------------------------------------------- heavy tails
+
+T_DOF = 5.0
+T_DIM = 5
+
+
+def _t_log_prob(x: FloatArray) -> FloatArray:
+    return np.sum(-0.5 * (T_DOF + 1.0) * np.log1p(x * x / T_DOF), axis=-1)
+
+
+def _t_exact(rng: np.random.Generator, shape: tuple[int, ...]) -> FloatArray:
+    return rng.standard_t(T_DOF, size=(*shape, T_DIM))
+
+
+STUDENT_T = Target(
+    name="student_t5",
+    names=tuple(f"t{i + 1}" for i in range(T_DIM)),
+    log_prob=_t_log_prob,
+    mean=np.zeros(T_DIM),  # Student-t with nu > 2: mean 0, variance nu / (nu - 2) (textbook)
+    sd=np.full(T_DIM, np.sqrt(T_DOF / (T_DOF - 2.0))),
+    source="analytic: 5 independent Student-t with 5 dof: mean 0, sd sqrt(5/3)",
+    exact=_t_exact,
+)
+
 # ---------------------------------------------------------------------------- bimodal
 
 BIMODAL_SHIFT = 8.0  # modes at -+ 4 in each of the d coordinates (unit sd)

@@ -38,6 +38,7 @@ from chainyard.decisions import (
     thin_none,
     thin_to_target,
 )
+from chainyard.decisions.records import discard_sentence
 from chainyard.diagnostics import autocorrelation, integrated_time
 from chainyard.errors import StoreError
 from chainyard.store import Store
@@ -134,10 +135,36 @@ def decide_burn_in(stores: Sequence[Store], spec: BurnInSpec) -> BurnInDecision:
     """
     steps = min(s.steps_done for s in stores)
     try:
+        if _exact_draws(stores) and not isinstance(spec, FixedBurnIn):
+            return _no_burn_in(spec, steps)
         decision = _decide_burn_in(stores, spec, steps)
         return burn_in_after_adaptation(decision, adaptation_steps(stores), steps)
     except ValueError as e:
         raise _too_short("burn-in", steps, e) from None
+
+
+def _exact_draws(stores: Sequence[Store]) -> bool:
+    """Whether the stores hold accept-reject draws (exact, independent draws of the target)."""
+    from chainyard.analysis.diagnose import sampler_kind
+
+    return sampler_kind(stores) == "accept_reject"
+
+
+def _no_burn_in(spec: BurnInSpec, steps: int) -> BurnInDecision:
+    """Burn-in 0 for accept-reject draws: every draw is an exact, independent draw of the
+    target (Robert and Casella 2004, section 2.3), so there is no start to forget."""
+    return BurnInDecision(
+        "none (accept-reject)",
+        {"sampler_kind": "accept_reject", "configured_policy": spec.policy, "steps": steps},
+        0,
+        discard_sentence(
+            0,
+            steps,
+            "accept-reject draws are exact, independent draws of the target, so there is no "
+            f"start to forget (the configured '{spec.policy}' policy is not applied; only a "
+            "'fixed' burn-in is applied as asked)",
+        ),
+    )
 
 
 def _decide_burn_in(stores: Sequence[Store], spec: BurnInSpec, steps: int) -> BurnInDecision:

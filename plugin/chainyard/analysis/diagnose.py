@@ -36,6 +36,8 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from chainyard.analysis.low_acceptance import classify as classify_low_acceptance
+from chainyard.analysis.signals import score_growth, tail_rhat
 from chainyard.config import TargetsSpec
 from chainyard.decisions import assess
 from chainyard.decisions.targets import WHAT_EACH_CHECK_COMPARES
@@ -328,14 +330,18 @@ def _param_diagnostics(
     # estimate, so the mean is the less noisy estimate of the same tau; the largest is reported
     tau = float(np.mean([r.tau for r in reports]))
     tau_max = max(r.tau for r in reports)
-    growth = _tau_growth(x, stores, steps, [r.tau for r in reports])
+    growth_raw = _tau_growth(x, stores, steps, [r.tau for r in reports])
     draws_total = x.size
     pooled = pooled_summary(x, work, overwrite=True)  # x holds normal scores afterwards
     groups = _nested_groups(stores)
     nested = None
+    tails = None
+    # on the normal scores in x (its middle column set to 0): robust to heavy tails
+    growth = score_growth(x, stores) if np.isfinite(pooled["ess_bulk"]) else growth_raw
     if groups is not None and np.isfinite(pooled["ess_bulk"]):
         bulk = nested_rhat_of_scores(x, groups)  # x: normal scores of the split chains
         read_column(stores, j, steps, x, walker_means)
+        tails = tail_rhat(x, stores, pooled["q05"], pooled["q95"])
         folded = nested_rhat_folded_inplace(x, work, groups)
         nested = _finite(max(bulk, folded))
     out = {
@@ -360,6 +366,8 @@ def _param_diagnostics(
         "tau_per_replica": [_finite(r.tau) for r in reports],
         "steps_per_tau": float(steps / tau) if tau > 0 else None,
         "tau_growth": growth,
+        "tau_growth_raw": growth_raw,
+        "rhat_tail": tails,
         "tau_reliable": all(r.reliable for r in reports),
         "tau_messages": [r.message for r in reports if r.message],
     }
@@ -375,6 +383,7 @@ def _param_diagnostics(
             tau_per_replica=[1.0] * len(stores),
             steps_per_tau=float(steps),
             tau_growth=1.0,
+            tau_growth_raw=1.0,
             tau_reliable=True,
             tau_messages=[],
             mcse_mean=_finite(sd / np.sqrt(n)) if sd is not None else None,
@@ -474,14 +483,19 @@ def diagnose(
             else None
         ),
     }
-    keys = ("rhat_nested", "rhat", "ess_bulk", "ess_tail", "steps_per_tau", "tau_growth", "tau")
+    low = classify_low_acceptance(stores, steps, acceptance, kind, targets.min_ess_bulk)
+    keys = ("rhat_nested", "rhat", "rhat_tail", "ess_bulk", "ess_tail", "steps_per_tau")
+    keys += ("tau_growth", "tau")
     verdict = assess(
         {n: {k: (np.nan if params[n][k] is None else params[n][k]) for k in keys} for n in names},
         targets.to_targets(),
         multivariate_ess=multivariate["ess"],
         n_params=len(names),
         steps=steps,
-        stuck_walkers={a["replica"]: a["stuck_walkers"] for a in acceptance},
+        stuck_walkers=low.stuck,
+        minority_walkers=low.minority,
+        slow_chains=low.slow,
+        replicas=len(stores),
     )
     bad_acceptance = [a for a in acceptance if a["messages"]]
     extra: dict[str, Any] = {}
@@ -502,8 +516,19 @@ def diagnose(
         "more_steps": verdict.more_steps,
         "targets": targets.model_dump(mode="json"),
         "what_is_compared": WHAT_IS_COMPARED,
-        "what_each_check_compares": dict(WHAT_EACH_CHECK_COMPARES),
+        "what_each_check_compares": _what_each(len(stores)),
     }
+
+
+def _what_each(replicas: int) -> dict[str, str]:
+    """What each check compares; with one replica, what nested R-hat could not compare."""
+    out = dict(WHAT_EACH_CHECK_COMPARES)
+    if replicas == 1:
+        out["rhat_nested"] = (
+            "mixing: one replica, so nested R-hat compares only the run's two halves (a drift "
+            "check; no independent starts compared); run 4 replicas"
+        )
+    return out
 
 
 def compare_with_reference(

@@ -41,6 +41,12 @@ class TargetsSpec(_Strict):
         gt=1,
         description="Largest tau(whole run) / tau(first half): above it tau is still growing.",
     )
+    max_tail_rhat: float | None = Field(
+        default=1.1,
+        gt=1,
+        description="Largest split R-hat of the replicas' tail-share traces (5% and 95% "
+        "tails): do the replicas visit the tails equally?",
+    )
     relative_precision: float | None = Field(
         default=None,
         gt=0,
@@ -59,6 +65,7 @@ class TargetsSpec(_Strict):
             min_ess_tail=self.min_ess_tail,
             min_steps_per_tau=self.min_steps_per_tau,
             max_tau_growth=self.max_tau_growth,
+            max_tail_rhat=self.max_tail_rhat,
             mess_eps=self.relative_precision,
         )
 

@@ -170,8 +170,9 @@ def acceptance_report(
     if stuck.size:
         shown = ", ".join(str(i) for i in stuck[:10]) + (" ..." if stuck.size > 10 else "")
         messages.append(
-            f"{stuck.size} of {frac.size} walkers look stuck (acceptance far below the "
-            f"median {median:.3f}): {shown}."
+            f"{stuck.size} of {frac.size} walkers or chains have acceptance far below the "
+            f"median {median:.3f}: {shown} (the verdict says whether they are stuck, in a "
+            "minority region, or slow chains)."
         )
     return AcceptanceReport(
         per_walker=tuple(float(f) for f in frac),

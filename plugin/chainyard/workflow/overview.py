@@ -96,7 +96,8 @@ def warning_sentences(diagnostics: dict[str, Any]) -> list[str]:
     """The verdict's failures and warnings of one run as plain sentences (no Python reprs).
 
     One sentence per failed parameter (``alpha did not meet its targets: rhat 1.0104 >
-    1.01.``), one per acceptance warning, one per replica with stuck walkers (chains).
+    1.01.``), one per acceptance warning, one per replica with stuck walkers (chains) or
+    walkers in a minority region.
     """
     verdict = diagnostics.get("verdict") or {}
     out = [
@@ -117,6 +118,15 @@ def warning_sentences(diagnostics: dict[str, Any]) -> list[str]:
             out.append(
                 f"Replica {replica}: {word}{'s' if many else ''} {_listed(members)} "
                 f"{'are' if many else 'is'} stuck (acceptance far below the others)."
+            )
+    minority = verdict.get("minority_walkers") or {}
+    for replica in sorted(minority, key=lambda r: int(r) if str(r).isdigit() else str(r)):
+        members = list(minority[replica] or [])
+        if members:
+            many = len(members) > 1
+            out.append(
+                f"Replica {replica}: {word}{'s' if many else ''} {_listed(members)} "
+                f"{'sit' if many else 'sits'} in a region the other {word}s do not visit."
             )
     return out
 

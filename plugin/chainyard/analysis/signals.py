@@ -1,0 +1,89 @@
+"""Two verdict statistics computed on one parameter column (helpers of ``diagnose``).
+
+* :func:`tail_rhat`: split R-hat (rank-normalised, Vehtari et al. 2021, Bayesian Analysis
+  16(2)) of each replica's mean trace of the tail indicators ``I(x <= q05)`` and ``I(x >=
+  q95)`` (pooled quantiles), the larger of the two tails. It asks whether every replica,
+  and both halves of each, spend the same share of time in each tail: R-hat of an indicator
+  is the "local" R-hat of Vehtari et al. (2021, section 4.3) at that quantile. A funnel's
+  rare, long excursions into its neck show here (measured in tests/benchmarks/RESULTS.md)
+  while the bulk statistics look settled.
+* :func:`score_growth`: the tau growth ratio, tau(whole run) / tau(first half), on the
+  rank-normalised draws (normal scores of the pooled ranks): the same question as on the
+  raw draws, robust to heavy tails, where a few extreme draws dominate the raw ACF.
+
+Memory: the column ``x`` (given), one step-block of indicators per replica, and the
+(replicas, steps) traces.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from chainyard.diagnostics import integrated_time, rhat
+from chainyard.diagnostics._validation import MIN_DRAWS
+
+FloatArray = npt.NDArray[np.float64]
+
+#: steps of one replica's rows turned into indicators at a time
+BLOCK_STEPS = 4096
+
+
+def tail_rhat(x: FloatArray, stores: Sequence[Any], q05: float, q95: float) -> float | None:
+    """Largest split R-hat of the replicas' mean tail-indicator traces (module docstring).
+
+    Parameters
+    ----------
+    x : ndarray, shape (chains, steps)
+        Raw draws of one parameter, every walker/chain of every replica, replica by replica.
+    stores : sequence
+        The replicas (their ``walkers`` give the row blocks of ``x``).
+    q05, q95 : float
+        Pooled 5% and 95% quantiles.
+
+    Returns
+    -------
+    float or None
+        ``None`` if an indicator is constant (no draw beyond a quantile) or R-hat is NaN.
+    """
+    steps = x.shape[1]
+    lower = np.empty((len(stores), steps))
+    upper = np.empty((len(stores), steps))
+    row = 0
+    for r, s in enumerate(stores):
+        rows = x[row : row + s.walkers]
+        for a in range(0, steps, BLOCK_STEPS):
+            block = rows[:, a : a + BLOCK_STEPS]
+            lower[r, a : a + block.shape[1]] = (block <= q05).mean(axis=0)
+            upper[r, a : a + block.shape[1]] = (block >= q95).mean(axis=0)
+        row += s.walkers
+    values = [float(rhat(t)) for t in (lower, upper) if np.ptp(t) > 0]
+    values = [v for v in values if np.isfinite(v)]
+    return max(values) if values else None
+
+
+def score_growth(scores: FloatArray, stores: Sequence[Any]) -> float | None:
+    """tau(whole) / tau(first half) on normal scores, both averaged over replicas.
+
+    ``scores`` holds the rank-normalised split chains as ``pooled_summary`` leaves them (odd
+    ``steps``: the middle column is ``+inf``, set here to 0, the median score).
+    """
+    steps = scores.shape[1]
+    half = steps // 2
+    if half < MIN_DRAWS:
+        return None
+    if steps % 2:
+        scores[:, half] = 0.0
+    whole = first = 0.0
+    row = 0
+    for s in stores:
+        rows = scores[row : row + s.walkers]
+        whole += integrated_time(rows)
+        first += integrated_time(rows[:, :half])
+        row += s.walkers
+    if not (np.isfinite(whole) and np.isfinite(first)) or first <= 0:
+        return None
+    return float(whole / first)

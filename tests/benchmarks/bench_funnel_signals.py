@@ -1,0 +1,137 @@
+"""Candidate second signals for biased funnel runs, measured against healthy runs.
+
+    nice -n 10 .venv/bin/python tests/benchmarks/bench_funnel_signals.py --part es16
+    (parts: es16, es64, healthy, all; results as JSON lines in tests/benchmarks/.work/)
+
+For every simulated run (``tests/statistics/runs.py``, 4 replicas x 32 walkers, stretch move,
+judged with the default burn-in as ``tests/statistics/judge.py`` does) and every parameter,
+on the draws kept after burn-in:
+
+* ``tail_nrhat``: nested R-hat (Margossian et al. 2024) of the tail indicators
+  ``I(x <= q05)`` and ``I(x >= q95)`` (pooled quantiles), replicas as superchains: do the
+  replicas (and the halves of each walker) visit the tails in the same shares? (the local
+  R-hat idea of Vehtari et al. 2021, section 4, on tail quantiles);
+* ``tail_rhat``: split R-hat of each replica's walker-mean tail-indicator trace;
+* ``tau_trend``: tau of the second half / tau of the first half (walkers averaged, mean over
+  replicas): does the autocorrelation time keep growing over the run?
+* ``rank_growth``: the verdict's tau growth on rank-normalised draws (Vehtari et al. 2021,
+  eq. 14), robust to heavy tails.
+
+The extreme over parameters is kept per run (max), with the verdict, its checks and
+whether the run is biased (mean or sd > 4 MCSE off the reference).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parents[1]
+sys.path.insert(0, str(ROOT))
+
+from chainyard.analysis.decide import decide_burn_in  # noqa: E402
+from chainyard.config import DefaultBurnIn  # noqa: E402
+from chainyard.diagnostics import integrated_time, rhat  # noqa: E402
+from chainyard.diagnostics.nested import nested_rhat_of_scores  # noqa: E402
+from tests.statistics.judge import ArrayReplica, judge  # noqa: E402
+from tests.statistics.runs import FAMILIES, simulate, steps_for  # noqa: E402
+
+
+def _tau(x: np.ndarray, replicas: int) -> float:
+    """Mean over replicas of the walker-averaged tau of (chains, steps) rows."""
+    w = x.shape[0] // replicas
+    return float(np.mean([integrated_time(x[r * w : (r + 1) * w]) for r in range(replicas)]))
+
+
+def _normal_scores(x: np.ndarray) -> np.ndarray:
+    from scipy.special import ndtri
+    from scipy.stats import rankdata
+
+    r = rankdata(x.reshape(-1), method="average").reshape(x.shape)
+    return ndtri((r - 0.375) / (x.size + 0.25))
+
+
+def signals(kept: np.ndarray) -> dict[str, float]:
+    """Candidate statistics of one run, max over parameters; ``kept`` (R, S, W, d)."""
+    n_rep, steps, walkers, d = kept.shape
+    out = {"tail_nrhat": 0.0, "tail_rhat": 0.0, "tau_trend": 0.0, "rank_growth": 0.0}
+    half = steps // 2
+    for j in range(d):
+        x = np.ascontiguousarray(kept[..., j].transpose(0, 2, 1).reshape(-1, steps))
+        q05, q95 = np.quantile(x, (0.05, 0.95))
+        for ind in (x <= q05, x >= q95):
+            f = ind.astype(np.float64)
+            out["tail_nrhat"] = max(out["tail_nrhat"], nested_rhat_of_scores(f, n_rep))
+            traces = f.reshape(n_rep, walkers, steps).mean(axis=1)
+            out["tail_rhat"] = max(out["tail_rhat"], float(rhat(traces)))
+        t1 = _tau(x[:, :half], n_rep)
+        t2 = _tau(x[:, steps - half :], n_rep)
+        out["tau_trend"] = max(out["tau_trend"], t2 / t1)
+        z = _normal_scores(x)
+        out["rank_growth"] = max(out["rank_growth"], _tau(z, n_rep) / _tau(z[:, :half], n_rep))
+    return out
+
+
+def run(family: str, steps: int, seeds: range, path: Path) -> None:
+    """Simulate, judge and measure every seed; append one JSON line per run to ``path``."""
+    fam = FAMILIES[family]
+    tg = fam.target
+    for s in seeds:
+        t0 = time.perf_counter()
+        runs = simulate(family, steps, [s])
+        draws, lp, acc = runs.draws[0], runs.log_prob[0], runs.accepted[0]
+        j = judge(tg, draws, lp, acc, fam.move_kinds)
+        full = [ArrayReplica(draws[k], lp[k], acc[k], k, tg.names) for k in range(len(draws))]
+        cut = decide_burn_in(full, DefaultBurnIn(policy="default")).steps_discarded  # type: ignore[arg-type]
+        sig = signals(draws[:, cut:])
+        row = {
+            "family": family,
+            "steps": steps,
+            "seed": s,
+            "ok": j.ok,
+            "checks": sorted(j.checks),
+            "biased": j.biased,
+            "bias": j.bias_detail,
+            **{k: j.stats.get(k) for k in ("tau_growth", "steps_per_tau", "rhat_nested")},
+            **sig,
+            "seconds": time.perf_counter() - t0,
+        }
+        with path.open("a") as fh:
+            fh.write(json.dumps(row) + "\n")
+        print(json.dumps(row), flush=True)
+        del runs, draws
+
+
+PARTS = {
+    "es16": [("eight_schools", 16000, 20)],
+    "es64": [("eight_schools", 64000, 8)],
+    "healthy": [
+        (f"healthy/{t}", steps_for(f"healthy/{t}", k), n)
+        for k in (50, 100)
+        for t, n in (("gauss4_corr", 20), ("gamma3", 20), ("banana", 12))
+    ],
+}
+
+
+def main() -> None:
+    """Command line."""
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--part", choices=[*PARTS, "all"], default="all")
+    ap.add_argument("--first-seed", type=int, default=0)
+    args = ap.parse_args()
+    parts = list(PARTS) if args.part == "all" else [args.part]
+    out = HERE / ".work"
+    out.mkdir(exist_ok=True)
+    for p in parts:
+        for family, steps, n in PARTS[p]:
+            run(family, steps, range(args.first_seed, n), out / f"funnel-signals-{p}.jsonl")
+
+
+if __name__ == "__main__":
+    main()
