@@ -259,14 +259,26 @@ def _positive_seconds(text: str) -> float:
     return value
 
 
-def _parser() -> argparse.ArgumentParser:
-    from chainyard import __version__
+class _VersionAction(argparse.Action):
+    """``--version``: the package version, looked up only when asked for."""
 
+    def __init__(self, option_strings: Sequence[str], dest: str, **kwargs: Any) -> None:
+        kwargs.setdefault("help", "show the version and exit")
+        super().__init__(option_strings, dest, nargs=0, default=argparse.SUPPRESS, **kwargs)
+
+    def __call__(self, parser: argparse.ArgumentParser, *_: Any, **__: Any) -> NoReturn:
+        from chainyard import __version__
+
+        sys.stdout.write(f"chainyard {__version__}\n")
+        parser.exit()
+
+
+def _parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="chainyard",
         description="Reproducible, resumable MCMC sampling steps for data pipelines.",
     )
-    parser.add_argument("--version", action="version", version=f"chainyard {__version__}")
+    parser.add_argument("--version", action=_VersionAction)
     parser.add_argument("--traceback", action="store_true", help=_TRACEBACK_HELP)
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
