@@ -32,9 +32,13 @@ __all__ = ["main", "os_error_exit", "report_internal"]
 
 
 def _cmd_sample(args: argparse.Namespace) -> int:
-    from chainyard.analysis.until import REPLICA_FIELD, replica_paths
+    from chainyard.workflow.imports import import_emcee_without_kde
+
+    import_emcee_without_kde()  # emcee's KDE-only scipy.stats import is ~0.6 s of start-up
     from chainyard.config import load_config
     from chainyard.engine import sample
+
+    REPLICA_FIELD = "{replica}"  # chainyard.analysis.until's, imported for --until-targets only
 
     config = load_config(args.config)
     if args.steps is not None:
@@ -51,7 +55,7 @@ def _cmd_sample(args: argparse.Namespace) -> int:
         out = args.out.replace(REPLICA_FIELD, str(args.replica))
         sample(config, out, replica=args.replica, **kwargs)
         return 0
-    from chainyard.analysis.until import sample_until_targets
+    from chainyard.analysis.until import replica_paths, sample_until_targets
 
     if templated:  # every replica of the run, extended in turn, judged together
         paths = replica_paths(args.out, config.replicas)
