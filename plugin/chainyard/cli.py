@@ -409,6 +409,9 @@ def _parser() -> argparse.ArgumentParser:
 
     add_result_commands(sub)  # export, summarise, plot
     add_commands(sub)  # verify, inspect, pack, unpack, export-prov
+    from chainyard.status.command import add_command as add_status_command
+
+    add_status_command(sub)  # status
     for command in sub.choices.values():  # also accepted after the command
         command.add_argument(
             "--traceback", action="store_true", default=argparse.SUPPRESS, help=_TRACEBACK_HELP

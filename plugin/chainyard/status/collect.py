@@ -35,7 +35,9 @@ __all__ = [
     "ReplicaStatus",
     "RunStatus",
     "collect",
+    "combine",
     "discover_runs",
+    "eta_seconds",
     "failure_reason",
 ]
 
@@ -385,8 +387,11 @@ def replica_status(
     marker = read_marker(resumable)
     failure = failure_reason(results, run, replica)
     if marker is not None:
-        latest = max(t for t in (info.updated if info else None, _marker_time(resumable), 0.0)
-                     if t is not None)
+        latest = max(
+            t
+            for t in (info.updated if info else None, _marker_time(resumable), 0.0)
+            if t is not None
+        )
         if marker.get("host") == host:
             alive = _pid_alive(marker.get("pid"))
             gone = f"pid {marker.get('pid', '?')} is not running"
@@ -415,8 +420,8 @@ def replica_status(
     if failure is not None and (info is None or info.updated is None or failure[1] >= info.updated):
         status.state, status.reason = "failed", failure[0]
         return status
-    if complete:  # sampled, not yet published (the job is finishing)
-        status.state = "done" if published.exists() else "sampling"
+    if complete:  # every asked step committed and no writer left (publishing is a link)
+        status.state = "done"
     return status
 
 
@@ -463,11 +468,12 @@ def combine(run: str, replicas: list[ReplicaStatus], n_replicas: int | None = No
     out.steps_asked = sum(a for a in asked if a is not None) if None not in asked else None
     rates = [r.steps_per_second for r in replicas if r.steps_per_second]
     out.steps_per_second = sum(rates) if rates else None
-    out.eta_seconds = _eta(replicas)
+    out.eta_seconds = eta_seconds(replicas)
     return out
 
 
-def _eta(replicas: list[ReplicaStatus]) -> float | None:
+def eta_seconds(replicas: list[ReplicaStatus]) -> float | None:
+    """Seconds until the slowest unfinished replica is done (0: all done; None: unknown)."""
     if replicas and all(r.state == "done" for r in replicas):
         return 0.0
     worst = 0.0
