@@ -155,6 +155,7 @@ def render_html(
         ", ".join(f"{n} {s}" for s in STATES if (n := sum(r.state == s for r in runs)))
         or "no runs found"
     )
+    total = sum(r.steps_done for r in runs)
     rows = []
     for r in runs:
         pct = f" ({100.0 * r.steps_done / r.steps_asked:.0f}%)" if r.steps_asked else ""
@@ -177,7 +178,8 @@ def render_html(
     return (
         '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
         f'<meta http-equiv="refresh" content="{refresh}">'
-        f"<title>chainyard status: {_e(results)}</title><style>{_STYLE}</style></head><body>"
+        f"<title>chainyard status: {total:,} steps committed; {_e(counts)}</title>"
+        f"<style>{_STYLE}</style></head><body>"
         f"<h1>chainyard status</h1><p>{_e(results)}: {len(runs)} runs: {_e(counts)}. "
         f'<small>As of <span id="as-of">{stamp}</span>; this page reloads every {refresh} s.'
         "</small></p>"
