@@ -119,8 +119,8 @@ class VerdictCache:
     def get(
         self, run: str, stores: Sequence[Path], steps: int, *, with_history: bool = False
     ) -> dict[str, Any] | None:
-        """The run's verdict for ``steps`` committed steps (every replica), from the cache
-        when nothing was committed since.
+        """The run's verdict on its first ``steps`` steps (committed by every replica), from
+        the cache when nothing was committed since.
 
         Parameters
         ----------
@@ -132,7 +132,7 @@ class VerdictCache:
         last = self._last.get(run)
         if last is not None and last[0] == key and last[1] == steps:
             return last[2]
-        verdict = interim_verdict(stores)
+        verdict = interim_verdict(stores, steps)  # the steps the row shows, not later ones
         self._last[run] = (key, steps, verdict)
         points = self.history.setdefault(run, {})
         if verdict is not None:
