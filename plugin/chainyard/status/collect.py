@@ -255,9 +255,10 @@ def _last_error_line(log: Path) -> str | None:
     except OSError:
         return None
     for line in reversed(tail.splitlines()):
-        for prefix in ("chainyard: error: ", "chainyard: internal error: "):
-            if line.startswith(prefix):
-                return _one_line(line[len("chainyard: ") :])
+        if line.startswith("chainyard: error: "):
+            return _one_line(line[len("chainyard: error: ") :])
+        if line.startswith("chainyard: internal error: "):
+            return _one_line(line[len("chainyard: ") :])
     return None
 
 

@@ -98,7 +98,7 @@ def run_status(
     Returns the exit status (0; 130 is left to the command line on Ctrl-C, which ends a
     watch quietly here).
     """
-    if not results.is_dir():
+    if not results.is_dir() and config is None:  # with the config: nothing started yet
         raise ConfigError(f"{results}: no such results folder (give the workflow's results/)")
     if html is not None and html.is_dir():
         raise ConfigError(f"{html}: --html is a folder; give a file name (e.g. status.html)")
