@@ -134,7 +134,7 @@ def test_states_and_reasons(results: Path) -> None:
     assert by_run["done"]["steps_done"] == by_run["done"]["steps_asked"] == 600
     assert by_run["done"]["eta_seconds"] == 0
     assert by_run["stale"]["state"] == "stale lock"
-    assert "is gone (pid" in by_run["stale"]["reason"]
+    assert "is gone (its process has ended) after committing step" in by_run["stale"]["reason"]
     assert by_run["stale"]["steps_done"] == _steps(
         results / "stale" / ".resumable" / "replica-0.zarr"
     )

@@ -138,7 +138,7 @@ def test_status_of_a_running_workflow(workflow: tuple[Path, subprocess.Popen[str
     assert now["long"]["state"] == "sampling"
     assert now["long"]["steps_per_second"] > 0 and now["long"]["eta_seconds"] > 0
     assert now["victim"]["state"] == "stale lock"
-    assert "is gone (pid" in now["victim"]["reason"]
+    assert "is gone (its process has ended) after committing step" in now["victim"]["reason"]
     assert now["quick"]["state"] == "done"
     assert now["quick"]["steps_done"] == now["quick"]["steps_asked"] == 400
     assert now["quick"]["verdict"] is not None

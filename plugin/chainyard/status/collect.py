@@ -395,7 +395,7 @@ def replica_status(
         )
         if marker.get("host") == host:
             alive = _pid_alive(marker.get("pid"))
-            gone = f"pid {marker.get('pid', '?')} is not running"
+            gone = "its process has ended"
         else:
             every = info.commit_every_seconds if info and info.commit_every_seconds else 30.0
             limit = stale_after if stale_after is not None else max(10 * every, 600.0)
