@@ -220,3 +220,24 @@ def test_missing_results_folder_is_one_line(tmp_path: Path) -> None:
         f"chainyard: error: {tmp_path / 'nowhere'}: no such results folder (give the "
         "workflow's results/)\n"
     )
+
+
+def test_done_run_shows_the_final_verdict(results: Path) -> None:
+    """A done run whose diagnostics record is newer than its stores shows that verdict."""
+    stores = [str(results / "done" / "draws" / f"replica-{r}.zarr") for r in range(2)]
+    record = results / "done" / "diagnostics.json"
+    made = cli("diagnose", *stores, "--json", str(record))
+    assert made.returncode == 0, made.stderr
+    try:
+        written = json.loads(record.read_text())
+        verdict = next(r for r in _status(results) if r["run"] == "done")["verdict"]
+        assert verdict["final"] is True
+        assert verdict["ok"] is written["verdict"]["ok"]
+        rhats = [p["rhat_nested"] for p in written["params"].values()]
+        assert verdict["max_rhat"] == round(max(rhats), 4)
+        assert verdict["to_step"] == written["steps"]
+        table = cli("status", str(results)).stdout
+        head = "ok (final)" if verdict["ok"] else "failed (final)"
+        assert any(ln.startswith("done ") and head in ln for ln in table.splitlines())
+    finally:
+        record.unlink()

@@ -24,10 +24,13 @@ def format_duration(seconds: float | None) -> str:
 
 
 def format_verdict(verdict: dict[str, Any] | None) -> str:
-    """``ok``/``not yet`` with the worst R-hat and ESS (``-`` before there is a verdict)."""
+    """``ok``/``not yet`` (``ok (final)``/``failed (final)`` from the run's diagnostics record)
+    with the worst R-hat and ESS (``-`` before there is a verdict)."""
     if verdict is None:
         return "-"
     head = "ok" if verdict["ok"] else "not yet"
+    if verdict.get("final"):
+        head = "ok (final)" if verdict["ok"] else "failed (final)"
     rhat, ess = verdict.get("max_rhat"), verdict.get("min_ess_bulk")
     parts = [head]
     if rhat is not None:

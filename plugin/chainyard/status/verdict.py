@@ -17,12 +17,14 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
-__all__ = ["MAX_ROWS", "MIN_STEPS", "VerdictCache", "interim_verdict"]
+__all__ = ["MAX_ROWS", "MIN_STEPS", "VerdictCache", "final_verdict", "interim_verdict"]
 
 #: steps read per replica at most (memory: MAX_ROWS x walkers x params x replicas float64)
 MAX_ROWS = 500
 #: fewer committed steps than this (per replica) give no verdict yet
 MIN_STEPS = 100
+#: a diagnostics record bigger than this is not read (it is a few kB per parameter)
+_MAX_RECORD_BYTES = 32 * 1024 * 1024
 
 
 def interim_verdict(stores: Sequence[Path], upto: int | None = None) -> dict[str, Any] | None:
@@ -79,14 +81,52 @@ def interim_verdict(stores: Sequence[Path], upto: int | None = None) -> dict[str
     return _summary(result, start, stop, every, len(opened))
 
 
+def final_verdict(record: Path) -> dict[str, Any] | None:
+    """The verdict of a done run from its diagnostics record (``RESULTS/RUN/diagnostics.json``).
+
+    Same keys as :func:`interim_verdict` plus ``final: true``; ``from_step`` is None (the
+    record's draws follow the run's burn-in and thinning decisions) and ``to_step`` is the
+    number of steps judged. None if the record is missing, too big or not one.
+    """
+    import json
+
+    try:
+        with record.open("rb") as f:
+            raw = f.read(_MAX_RECORD_BYTES + 1)
+        data = json.loads(raw) if len(raw) <= _MAX_RECORD_BYTES else None
+    except (OSError, ValueError):
+        return None
+    if not isinstance(data, dict) or data.get("kind") != "chainyard.diagnostics":
+        return None
+    verdict = data.get("verdict")
+    if not isinstance(verdict, dict) or not isinstance(data.get("params"), dict):
+        return None
+    steps = data.get("steps")
+    replicas = data.get("replicas")
+    try:
+        out = _summary(
+            data,
+            None,
+            int(steps) if isinstance(steps, int) else None,
+            1,
+            int(replicas) if isinstance(replicas, int) else len(replicas or []),
+        )
+    except (TypeError, ValueError, AttributeError):
+        return None
+    out["final"] = True
+    return out
+
+
 def _finite(values: list[Any]) -> list[float]:
     return [float(v) for v in values if isinstance(v, int | float) and math.isfinite(v)]
 
 
-def _summary(result: dict[str, Any], start: int, stop: int, every: int, n: int) -> dict[str, Any]:
+def _summary(
+    result: dict[str, Any], start: int | None, stop: int | None, every: int, n: int
+) -> dict[str, Any]:
     """The small JSON verdict of ``status`` from :func:`diagnose_arrays`' result."""
     verdict = result["verdict"]
-    params = result.get("params", {})
+    params = {k: p for k, p in result.get("params", {}).items() if isinstance(p, dict)}
     rhats = _finite([p.get("rhat_nested", p.get("rhat")) for p in params.values()])
     bulk = _finite([p.get("ess_bulk") for p in params.values()])
     tail = _finite([p.get("ess_tail") for p in params.values()])
@@ -103,6 +143,7 @@ def _summary(result: dict[str, Any], start: int, stop: int, every: int, n: int) 
         "every": every,
         "replicas": n,
         "targets": {k: goals.get(k) for k in ("max_nested_rhat", "min_ess_bulk")},
+        "final": False,
     }
 
 

@@ -64,6 +64,15 @@ class RateTracker:
             run.eta_seconds = eta_seconds(run.replicas)
 
 
+def _newer(record: Path, run: RunStatus) -> bool:
+    """True if ``record`` exists and was written after the run's last commit."""
+    try:
+        written = record.stat().st_mtime
+    except OSError:
+        return False
+    return all(r.updated is None or written >= r.updated - 1.0 for r in run.replicas)
+
+
 def _view(
     results: Path,
     planned: dict[str, tuple[int, int]] | None,
@@ -75,7 +84,16 @@ def _view(
     runs = collect(results, planned=planned, stale_after=stale_after)
     rates.update(runs)
     if verdicts is not None:
+        from chainyard.status.verdict import final_verdict
+
         for run in runs:
+            record = results / run.run / "diagnostics.json"
+            if run.state == "done" and _newer(record, run):
+                run.verdict = final_verdict(record)
+                if run.verdict is not None:
+                    per_replica = run.steps_done // max(len(run.replicas), 1)
+                    verdicts.history.setdefault(run.run, {})[per_replica] = run.verdict
+                    continue
             stores = [r.store for r in run.replicas if r.store is not None]
             if stores:
                 common = min(r.steps_done for r in run.replicas if r.store is not None)
