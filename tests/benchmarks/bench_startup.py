@@ -2,6 +2,7 @@
 
     .venv/bin/python tests/benchmarks/bench_startup.py            # ~1 minute, writes RESULTS.md
     .venv/bin/python tests/benchmarks/bench_startup.py --quick    # prints only
+    .venv/bin/python tests/benchmarks/bench_startup.py --compare-with 31844fe  # + that revision
 
 Each command runs in a fresh interpreter; its CPU time (user + system, ``RUSAGE_CHILDREN``)
 is measured, rounds interleave the commands (so load on the shared machine hits them alike),
@@ -9,6 +10,8 @@ and the median per command is compared with the median of ``import numpy`` from 
 rounds. Target (issue 19): ``chainyard --help`` at most 2x ``import numpy``. The rows for
 ``inspect`` and ``sample`` (a 2-parameter Gaussian, 16 walkers, 20 steps: nearly all start-up)
 are there to show what a job pays before it samples, and which heavy packages it loads.
+With ``--compare-with REV`` the same commands of that git revision's ``plugin/`` (extracted
+with ``git archive``, put first on ``PYTHONPATH``) run in the same rounds.
 """
 
 from __future__ import annotations
@@ -44,10 +47,12 @@ _PROBE = (
 )
 
 
-def _cpu(cmd: list[str], cwd: Path) -> float:
+def _cpu(cmd: list[str], cwd: Path, env: dict[str, str] | None = None) -> float:
     """CPU seconds (user + system) of one run of ``cmd``."""
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
-    subprocess.run(cmd, cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, check=True)
+    subprocess.run(
+        cmd, cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, check=True, env=env
+    )
     after = resource.getrusage(resource.RUSAGE_CHILDREN)
     return (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
 
@@ -71,6 +76,7 @@ def main() -> None:
     ap.add_argument("--quick", action="store_true", help="3 rounds; print only")
     ap.add_argument("--rounds", type=int, default=None)
     ap.add_argument("--output", default=str(HERE / "RESULTS.md"))
+    ap.add_argument("--compare-with", default=None, metavar="REV", help="also time this revision")
     args = ap.parse_args()
     rounds = args.rounds or (3 if args.quick else 15)
     py = sys.executable
@@ -82,8 +88,20 @@ def main() -> None:
         text = cfg.read_text().replace("steps: 2000", "steps: 20")
         cfg.write_text(text)
         subprocess.run(
-            [py, "-m", "chainyard.cli", "sample", "run.yaml", "--out", "s.zarr", "--progress",
-             "off"], cwd=work, check=True, capture_output=True,
+            [
+                py,
+                "-m",
+                "chainyard.cli",
+                "sample",
+                "run.yaml",
+                "--out",
+                "s.zarr",
+                "--progress",
+                "off",
+            ],
+            cwd=work,
+            check=True,
+            capture_output=True,
         )
         commands: dict[str, list[str]] = {
             "python -c 'import numpy'": [py, "-c", "import numpy"],
@@ -91,8 +109,16 @@ def main() -> None:
             "chainyard --help": [py, "-m", "chainyard.cli", "--help"],
             "chainyard inspect STORE": [py, "-m", "chainyard.cli", "inspect", "s.zarr"],
             "chainyard sample (20 steps)": [
-                py, "-m", "chainyard.cli", "sample", "run.yaml", "--out", "t.zarr",
-                "--restart", "--progress", "off",
+                py,
+                "-m",
+                "chainyard.cli",
+                "sample",
+                "run.yaml",
+                "--out",
+                "t.zarr",
+                "--restart",
+                "--progress",
+                "off",
             ],
         }
         heavy = {
@@ -102,14 +128,29 @@ def main() -> None:
                 ["sample", "run.yaml", "--out", "u.zarr", "--progress", "off"], work
             ),
         }
+        envs: dict[str, dict[str, str] | None] = dict.fromkeys(commands)
+        if args.compare_with:
+            old = work / "old"
+            old.mkdir()
+            archive = subprocess.run(
+                ["git", "archive", args.compare_with, "plugin"],
+                cwd=HERE.parents[1],
+                capture_output=True,
+                check=True,
+            ).stdout
+            subprocess.run(["tar", "-x", "-C", str(old)], input=archive, check=True)
+            env = {**os.environ, "PYTHONPATH": str(old / "plugin")}
+            for name in [n for n in commands if n.startswith("chainyard")]:
+                label = f"{name} at {args.compare_with}"
+                commands[label], envs[label] = commands[name], env
         times: dict[str, list[float]] = {k: [] for k in commands}
-        for cmd in commands.values():  # warm the file cache once
-            _cpu(cmd, work)
+        for name, cmd in commands.items():  # warm the file cache once
+            _cpu(cmd, work, envs[name])
         for r in range(rounds):
             names = list(commands)
             order = names[r % len(names) :] + names[: r % len(names)]
             for name in order:
-                times[name].append(_cpu(commands[name], work))
+                times[name].append(_cpu(commands[name], work, envs[name]))
     elapsed = time.monotonic() - started
     load1 = os.getloadavg()
     med = {k: statistics.median(v) for k, v in times.items()}
@@ -137,10 +178,11 @@ def main() -> None:
     lines += [
         "",
         f"Target: `chainyard --help` at most 2x `import numpy`: measured {ratio:.2f}x, {verdict}.",
-        "Before this work (issue 19's measurement) `--help` and `inspect` took 1.5-1.8 s of CPU:",
-        "the analysis package (scipy.stats through the diagnostics) was imported to register",
-        "its commands. `--help` now imports no numpy at all; `inspect` loads zarr and pydantic",
-        "(the store and its config); `sample` adds emcee (without its KDE move's scipy.stats).",
+        "Before this work (issue 19's measurement; the rows `at REV` when measured with",
+        "`--compare-with`) `--help` and `inspect` took 1.5-1.8 s of CPU: the analysis package",
+        "(scipy.stats through the diagnostics) was imported to register its commands.",
+        "`--help` now imports no numpy at all; `inspect` loads zarr and pydantic (the store",
+        "and its config); `sample` adds emcee (without its KDE move's scipy.stats).",
         "",
     ]
     text = "\n".join(lines)
