@@ -383,7 +383,8 @@ def test_random_kills_leave_old_or_new_store(
             ["frobnicate"],
             "argument COMMAND: invalid choice: 'frobnicate' (choose from 'sample', "
             "'decide', 'derive', 'diagnose', 'check', 'schema', 'export', 'summarise', 'plot', "
-            "'verify', 'inspect', 'pack', 'unpack', 'export-prov') (see chainyard --help)",
+            "'verify', 'inspect', 'pack', 'unpack', 'export-prov', 'status') "
+            "(see chainyard --help)",
         ),
         ([], "the following arguments are required: COMMAND (see chainyard --help)"),
         (
