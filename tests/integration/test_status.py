@@ -212,6 +212,16 @@ def test_html_page_is_self_contained(results: Path, tmp_path: Path) -> None:
         assert outside not in text
 
 
+def test_html_into_a_missing_folder_is_one_line(results: Path, tmp_path: Path) -> None:
+    """--html naming a file in a folder that does not exist: one line, exit 2."""
+    page = tmp_path / "nowhere" / "status.html"
+    res = cli("status", str(results), "--html", str(page))
+    assert res.returncode == 2
+    assert res.stderr == (
+        f"chainyard: error: {page}: --html: the folder {page.parent} does not exist\n"
+    )
+
+
 def test_missing_results_folder_is_one_line(tmp_path: Path) -> None:
     """A results folder that is not there: one line naming it, exit 2."""
     res = cli("status", str(tmp_path / "nowhere"))

@@ -120,6 +120,8 @@ def run_status(
         raise ConfigError(f"{results}: no such results folder (give the workflow's results/)")
     if html is not None and html.is_dir():
         raise ConfigError(f"{html}: --html is a folder; give a file name (e.g. status.html)")
+    if html is not None and not html.absolute().parent.is_dir():
+        raise ConfigError(f"{html}: --html: the folder {html.absolute().parent} does not exist")
     planned = planned_runs(config) if config is not None else None
     from chainyard.status.verdict import VerdictCache
 
