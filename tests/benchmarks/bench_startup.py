@@ -170,6 +170,8 @@ def main() -> None:
     ]
     for name, xs in times.items():
         loaded = ", ".join(heavy[name]) if name in heavy else ""
+        if " at " in name:
+            loaded = "(not probed)"
         lines.append(
             f"| `{name}` | {med[name]:.3f} ({min(xs):.3f} .. {max(xs):.3f}) | "
             f"{med[name] / base:.2f} | {loaded} |"
