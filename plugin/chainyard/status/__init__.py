@@ -2,8 +2,9 @@
 
 ``collect`` finds the runs and replicas and tells their state from committed data only
 (commit records, the "run in progress" markers, failure notes and logs; never a lock);
-``verdict`` computes the interim verdict from committed steps; ``render_text`` and
-``render_html`` draw the table and the self-refreshing page; ``command`` is the CLI command.
+``failures`` reads why a job failed; ``verdict`` computes the interim verdict from committed
+steps; ``render_text`` and ``render_html`` draw the table and the self-refreshing page;
+``watch`` runs one view or a refreshing one; ``command`` is the CLI command.
 """
 
 from __future__ import annotations

@@ -20,7 +20,6 @@ written (``stale_after`` seconds).
 from __future__ import annotations
 
 import contextlib
-import json
 import os
 import re
 import socket
@@ -30,6 +29,8 @@ from datetime import datetime
 from pathlib import Path
 from typing import Any
 
+from chainyard.status.failures import failure_reason, mtime
+
 __all__ = [
     "STATES",
     "ReplicaStatus",
@@ -38,16 +39,11 @@ __all__ = [
     "combine",
     "discover_runs",
     "eta_seconds",
-    "failure_reason",
 ]
 
 #: states, problems first (the order of the table)
 STATES = ("failed", "stale lock", "sampling", "waiting", "done")
 
-#: small JSON files (markers, failure notes) bigger than this are not ours and are not read
-_MAX_NOTE_BYTES = 64 * 1024
-#: bytes read from the end of a log when looking for its error line
-_LOG_TAIL_BYTES = 64 * 1024
 _REPLICA_NAME = re.compile(r"^replica-(\d{1,6})\.zarr$")
 _LOG_NAME = re.compile(r"^sample-replica-(\d{1,6})\.(log|failure\.json)$")
 
@@ -151,17 +147,6 @@ def _rounded(value: float | None) -> float | None:
     return None if value is None else round(float(value), 3)
 
 
-def _read_small_json(path: Path) -> dict[str, Any] | None:
-    """A small JSON object from ``path``; None if missing, too big, unreadable or not a dict."""
-    try:
-        with path.open("rb") as f:
-            raw = f.read(_MAX_NOTE_BYTES + 1)
-        data = json.loads(raw) if len(raw) <= _MAX_NOTE_BYTES else None
-    except (OSError, ValueError):
-        return None
-    return data if isinstance(data, dict) else None
-
-
 def _utc_seconds(text: Any) -> float | None:
     """Seconds since the epoch of an ISO 8601 UTC time (``...Z``); None if not one."""
     if not isinstance(text, str):
@@ -169,13 +154,6 @@ def _utc_seconds(text: Any) -> float | None:
     try:
         return datetime.fromisoformat(text.replace("Z", "+00:00")).timestamp()
     except ValueError:
-        return None
-
-
-def _mtime(path: Path) -> float | None:
-    try:
-        return path.stat().st_mtime
-    except OSError:
         return None
 
 
@@ -210,56 +188,6 @@ def discover_runs(results: Path) -> dict[str, set[int]]:
                 if m:
                     runs.setdefault(run_logs.name, set()).add(int(m.group(1)))
     return runs
-
-
-def failure_reason(results: Path, run: str, replica: int) -> tuple[str, float] | None:
-    """A failed sampling job's one line and when it was written, or None.
-
-    Read from ``logs/RUN/sample-replica-R.failure.json`` (``reason``, ``exit_code``), else
-    the retry note beside the resumable store (``message``), else the last
-    ``chainyard: error:`` line of the job's log.
-    """
-    logs = results / "logs" / run
-    note = logs / f"sample-replica-{replica}.failure.json"
-    data = _read_small_json(note)
-    if data is not None and isinstance(data.get("reason"), str):
-        code = data.get("exit_code")
-        suffix = f" (exit {code})" if isinstance(code, int) else ""
-        return _one_line(data["reason"]) + suffix, _mtime(note) or 0.0
-    retry = results / run / ".resumable" / f"replica-{replica}.zarr.failed.json"
-    data = _read_small_json(retry)
-    if data is not None and isinstance(data.get("message"), str):
-        code = data.get("exit_code")
-        suffix = f" (exit {code})" if isinstance(code, int) else ""
-        return _one_line(data["message"]) + suffix, _mtime(retry) or 0.0
-    log = logs / f"sample-replica-{replica}.log"
-    line = _last_error_line(log)
-    if line is not None:
-        return line, _mtime(log) or 0.0
-    return None
-
-
-def _one_line(text: str) -> str:
-    first = (text.strip().splitlines() or [""])[0]
-    return first[:500]
-
-
-def _last_error_line(log: Path) -> str | None:
-    """The last ``chainyard: error:`` (or internal error) line of a log; None if none."""
-    try:
-        with log.open("rb") as f:
-            f.seek(0, os.SEEK_END)
-            size = f.tell()
-            f.seek(max(0, size - _LOG_TAIL_BYTES))
-            tail = f.read().decode("utf-8", "replace")
-    except OSError:
-        return None
-    for line in reversed(tail.splitlines()):
-        if line.startswith("chainyard: error: "):
-            return _one_line(line[len("chainyard: error: ") :])
-        if line.startswith("chainyard: internal error: "):
-            return _one_line(line[len("chainyard: ") :])
-    return None
 
 
 def _pid_alive(pid: Any) -> bool:
@@ -308,7 +236,7 @@ def _store_info(path: Path) -> _StoreInfo | None:
             every = float(config.storage.commit_every_seconds)
             replicas = int(config.replicas)
         segments = [s for s in record.get("segments", []) if isinstance(s, dict)]
-        updated = _utc_seconds(record.get("updated_utc")) or _mtime(path / "commit.json")
+        updated = _utc_seconds(record.get("updated_utc")) or mtime(path / "commit.json")
         return _StoreInfo(int(store.steps_done), asked, every, updated, segments, replicas)
     finally:
         store.close()
@@ -429,7 +357,7 @@ def replica_status(
 def _marker_time(resumable: Path) -> float | None:
     from chainyard.engine.marker import marker_path
 
-    return _mtime(marker_path(resumable))
+    return mtime(marker_path(resumable))
 
 
 def _duration(seconds: float) -> str:
