@@ -16,7 +16,6 @@ to_datatree(stores, ...) -> DataTree (ArviZ data model; see chainyard.analysis.e
 from __future__ import annotations
 
 import importlib
-from importlib import metadata as _metadata
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -41,11 +40,6 @@ if TYPE_CHECKING:  # pragma: no cover
     from chainyard.provenance.verify import verify
     from chainyard.store import Store
 
-try:
-    __version__ = _metadata.version("chainyard")
-except _metadata.PackageNotFoundError:  # running from a source tree
-    __version__ = "0+unknown"
-
 # The public names are imported on first use (PEP 562): a process that needs only part of
 # the package (the commit helper process, `chainyard schema`) does not pay for emcee, scipy
 # and pydantic at start-up.
@@ -66,7 +60,20 @@ _LAZY = {
 }
 
 
+def _version() -> str:
+    """The installed distribution's version (importlib.metadata costs ~0.1 s: asked on use)."""
+    from importlib import metadata
+
+    try:
+        return metadata.version("chainyard")
+    except metadata.PackageNotFoundError:  # running from a source tree
+        return "0+unknown"
+
+
 def __getattr__(name: str) -> Any:
+    if name == "__version__":
+        globals()[name] = value = _version()
+        return value
     module = _LAZY.get(name)
     if module is None:
         raise AttributeError(f"module 'chainyard' has no attribute {name!r}")
@@ -76,7 +83,7 @@ def __getattr__(name: str) -> Any:
 
 
 def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(_LAZY))
+    return sorted(set(globals()) | set(_LAZY) | {"__version__"})
 
 
 def open_store(path: str | Path) -> Store:

@@ -32,9 +32,13 @@ __all__ = ["main", "os_error_exit", "report_internal"]
 
 
 def _cmd_sample(args: argparse.Namespace) -> int:
-    from chainyard.analysis.until import REPLICA_FIELD, replica_paths
+    from chainyard.workflow.imports import import_emcee_without_kde
+
+    import_emcee_without_kde()  # emcee's KDE-only scipy.stats import is ~0.6 s of start-up
     from chainyard.config import load_config
     from chainyard.engine import sample
+
+    REPLICA_FIELD = "{replica}"  # chainyard.analysis.until's, imported for --until-targets only
 
     config = load_config(args.config)
     if args.steps is not None:
@@ -67,7 +71,7 @@ def _cmd_sample(args: argparse.Namespace) -> int:
         out = args.out.replace(REPLICA_FIELD, str(replica))
         sample(config, out, replica=replica, **kwargs)
         return 0
-    from chainyard.analysis.until import sample_until_targets
+    from chainyard.analysis.until import replica_paths, sample_until_targets
 
     if templated:  # every replica of the run, extended in turn, judged together
         count = args.replicas or config.replicas
@@ -329,14 +333,26 @@ def _positive_seconds(text: str) -> float:
     return value
 
 
-def _parser() -> argparse.ArgumentParser:
-    from chainyard.facts import chainyard_version
+class _VersionAction(argparse.Action):
+    """``--version``: the package version, looked up only when asked for."""
 
+    def __init__(self, option_strings: Sequence[str], dest: str, **kwargs: Any) -> None:
+        kwargs.setdefault("help", "show the version and exit")
+        super().__init__(option_strings, dest, nargs=0, default=argparse.SUPPRESS, **kwargs)
+
+    def __call__(self, parser: argparse.ArgumentParser, *_: Any, **__: Any) -> NoReturn:
+        from chainyard import __version__
+
+        sys.stdout.write(f"chainyard {__version__}\n")
+        parser.exit()
+
+
+def _parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="chainyard",
         description="Reproducible, resumable MCMC sampling steps for data pipelines.",
     )
-    parser.add_argument("--version", action="version", version=f"chainyard {chainyard_version()}")
+    parser.add_argument("--version", action=_VersionAction)
     parser.add_argument("--traceback", action="store_true", help=_TRACEBACK_HELP)
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
@@ -495,6 +511,9 @@ def _parser() -> argparse.ArgumentParser:
 
     add_result_commands(sub)  # export, results-table, plot
     add_commands(sub)  # verify, inspect, pack, unpack, export-prov
+    from chainyard.status.command import add_command as add_status_command
+
+    add_status_command(sub)  # status
     for command in sub.choices.values():  # also accepted after the command
         command.add_argument(
             "--traceback", action="store_true", default=argparse.SUPPRESS, help=_TRACEBACK_HELP

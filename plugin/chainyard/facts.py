@@ -9,11 +9,8 @@ from __future__ import annotations
 import datetime as _dt
 import functools
 import os
-import platform
 import socket
-import subprocess
 import sys
-from importlib import metadata
 from pathlib import Path
 from typing import Any
 
@@ -42,6 +39,8 @@ def utc_now() -> str:
 @functools.cache
 def chainyard_version() -> str:
     """This package's installed version ("0+unknown" when it is not installed)."""
+    from importlib import metadata
+
     try:
         return metadata.version("chainyard")
     except metadata.PackageNotFoundError:
@@ -55,7 +54,11 @@ def software_versions() -> dict[str, str | None]:
 
 @functools.cache
 def _software_versions() -> dict[str, str | None]:
-    # read once per process: package metadata parsing costs ~15 ms a call
+    # read once per process: package metadata parsing costs ~15 ms a call (and importing
+    # importlib.metadata, platform and subprocess is left to the processes that record)
+    import platform
+    from importlib import metadata
+
     out: dict[str, str | None] = {"python": platform.python_version()}
     for name in _PACKAGES:
         try:
@@ -67,6 +70,8 @@ def _software_versions() -> dict[str, str | None]:
 
 def host_record() -> dict[str, Any]:
     """Host name, platform and process id."""
+    import platform
+
     return {
         "host": socket.gethostname(),
         "platform": platform.platform(),
@@ -78,6 +83,8 @@ def host_record() -> dict[str, Any]:
 
 def git_state(directory: Path) -> dict[str, Any] | None:
     """Commit and dirty flag of the git work tree holding ``directory`` (None if not in one)."""
+    import subprocess
+
     try:
         commit = subprocess.run(
             ["git", "-C", str(directory), "rev-parse", "HEAD"],

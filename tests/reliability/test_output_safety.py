@@ -388,7 +388,7 @@ def test_random_kills_leave_old_or_new_store(
             ["frobnicate"],
             "argument COMMAND: invalid choice: 'frobnicate' (choose from 'sample', "
             "'decide', 'derive', 'diagnose', 'check', 'schema', 'export', 'results-table', "
-            "'plot', 'verify', 'inspect', 'pack', 'unpack', 'export-prov', 'publish') "
+            "'plot', 'verify', 'inspect', 'pack', 'unpack', 'export-prov', 'publish', 'status') "
             "(see chainyard --help)",
         ),
         ([], "the following arguments are required: COMMAND (see chainyard --help)"),

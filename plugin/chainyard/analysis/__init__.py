@@ -7,11 +7,47 @@ JSON records that carry a provenance stamp. The workflow rules and the command l
 wrappers over them.
 """
 
-from chainyard.analysis.decide import decide_burn_in, decide_thinning
-from chainyard.analysis.derive import derive_store
-from chainyard.analysis.diagnose import diagnose, diagnose_arrays, format_table
-from chainyard.analysis.records import read_record, store_digest, write_record
-from chainyard.analysis.summary_table import summary_table, write_summary_csv
+from __future__ import annotations
+
+import importlib
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:  # pragma: no cover
+    from chainyard.analysis.decide import decide_burn_in, decide_thinning
+    from chainyard.analysis.derive import derive_store
+    from chainyard.analysis.diagnose import diagnose, diagnose_arrays, format_table
+    from chainyard.analysis.records import read_record, store_digest, write_record
+    from chainyard.analysis.summary_table import summary_table, write_summary_csv
+
+# Imported on first use (PEP 562): the command line registers `export`, `results-table` and `plot`
+# from chainyard.analysis.commands without paying for scipy and the diagnostics.
+_LAZY = {
+    "decide_burn_in": "chainyard.analysis.decide",
+    "decide_thinning": "chainyard.analysis.decide",
+    "derive_store": "chainyard.analysis.derive",
+    "diagnose": "chainyard.analysis.diagnose",
+    "diagnose_arrays": "chainyard.analysis.diagnose",
+    "format_table": "chainyard.analysis.diagnose",
+    "read_record": "chainyard.analysis.records",
+    "store_digest": "chainyard.analysis.records",
+    "write_record": "chainyard.analysis.records",
+    "summary_table": "chainyard.analysis.summary_table",
+    "write_summary_csv": "chainyard.analysis.summary_table",
+}
+
+
+def __getattr__(name: str) -> Any:
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module 'chainyard.analysis' has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_LAZY))
+
 
 __all__ = [
     "decide_burn_in",
