@@ -341,9 +341,9 @@ class _VersionAction(argparse.Action):
         super().__init__(option_strings, dest, nargs=0, default=argparse.SUPPRESS, **kwargs)
 
     def __call__(self, parser: argparse.ArgumentParser, *_: Any, **__: Any) -> NoReturn:
-        from chainyard import __version__
+        from chainyard.facts import chainyard_version
 
-        sys.stdout.write(f"chainyard {__version__}\n")
+        sys.stdout.write(f"chainyard {chainyard_version()}\n")
         parser.exit()
 
 

@@ -17,13 +17,20 @@ PACKAGE = Path(__file__).resolve().parents[2] / "plugin" / "chainyard"
 
 # lowest first; a module may import its own layer (no circles) and any layer below it
 LAYERS: tuple[tuple[str, ...], ...] = (
-    ("chainyard.errors", "chainyard.limits", "chainyard.testhooks", "chainyard.facts"),
+    (
+        "chainyard.errors",
+        "chainyard.limits",
+        "chainyard.testhooks",
+        "chainyard.facts",
+        "chainyard.display",  # number formatting shared by tables and reports
+        "chainyard.workflow.imports",  # emcee without its KDE-only import (nothing of ours)
+    ),
     ("chainyard.streams", "chainyard.progress"),
     ("chainyard.diagnostics",),
     ("chainyard.decisions",),
     ("chainyard.config",),
     ("chainyard.datafiles", "chainyard.evaluator"),
-    ("chainyard.model",),
+    ("chainyard.model", "chainyard.workflow.config"),  # the workflow config reads model paths
     ("chainyard.store",),
     ("chainyard.engine",),
     ("chainyard.provenance",),
@@ -41,6 +48,7 @@ PENDING_UPWARD: frozenset[tuple[str, str]] = frozenset(
         ("chainyard.analysis.commands", "chainyard.report.plot_outputs"),
         ("chainyard.analysis.commands", "chainyard.report.plots"),
         ("chainyard.analysis.commands", "chainyard.report.references"),
+        ("chainyard.analysis.commands", "chainyard.report.pairs"),
         ("chainyard.provenance.inspect", "chainyard.analysis.diagnose"),
     }
 )
