@@ -236,7 +236,7 @@ def test_done_run_shows_the_final_verdict(results: Path) -> None:
     """A done run whose diagnostics record is newer than its stores shows that verdict."""
     stores = [str(results / "done" / "draws" / f"replica-{r}.zarr") for r in range(2)]
     record = results / "done" / "diagnostics.json"
-    made = cli("diagnose", *stores, "--json", str(record))
+    made = cli("diagnose", *stores, "--raw", "--json", str(record))
     assert made.returncode == 0, made.stderr
     try:
         written = json.loads(record.read_text())

@@ -126,6 +126,9 @@ def sampler_kind(name: str) -> SamplerKind:
         If no module has registered ``name``.
     """
     if name not in _KINDS and name in _BUILT_IN:
+        from chainyard.workflow.imports import import_emcee_without_kde
+
+        import_emcee_without_kde()  # a reader asking about a kind need not pay for scipy.stats
         importlib.import_module(_BUILT_IN[name])
     try:
         return _KINDS[name]
