@@ -5,6 +5,7 @@ import sys
 import chainyard
 import chainyard.workflow as cy_workflow
 from chainyard.errors import ConfigError
+from chainyard.workflow.batches import plan_batches
 from snakemake.exceptions import WorkflowError
 from snakemake.utils import validate
 
@@ -26,10 +27,17 @@ CY_VERSION = chainyard.__version__
 CY_SAMPLE_RUNTIME = int(CY.get("sample_runtime_minutes", 60))
 CY_SAMPLE_MEM = int(CY.get("sample_mem_mb", 2000))
 CY_SAMPLE_RETRIES = int(CY.get("sample_retries", 2))
+# batched sampling of family members (chainyard.workflow.batches): batch name -> members
+CY_BATCH = int(CY.get("sample_batch", 1))
+CY_BATCHES = plan_batches(CY_RUNS, CY_BATCH) if CY_BATCH > 1 else {}
+CY_BATCH_OF = {run: batch for batch, runs in CY_BATCHES.items() for run in runs}
+# a run name is one folder name (a regular expression, not the list of names: matching
+# thousands of alternatives cost most of the planning time of large workflows)
+CY_RUN_PATTERN = r"[A-Za-z0-9_-]+(?:\.[A-Za-z0-9][A-Za-z0-9_.-]*)?"
 
 
 wildcard_constraints:
-    run="|".join(sorted(CY_RUNS)),
+    run=CY_RUN_PATTERN,
     replica=r"\d+",
 
 
@@ -100,6 +108,44 @@ def reference_values(wildcards):
     params = CY_RUNS[wildcards.run].config.parameters
     refs = {p.name: p.reference_value for p in params if p.reference_value is not None}
     return json.dumps(refs, sort_keys=True)
+
+
+def batch_file(batch):
+    """The outcome file of a batched sampling job."""
+    return run_path(".batches", f"{batch}.json")
+
+
+def batch_inputs(wildcards):
+    """Files the draws of a batch's members depend on."""
+    files = set()
+    for run in CY_BATCHES[wildcards.batch]:
+        files.update(CY_RUNS[run].input_files())
+    return sorted(files)
+
+
+def batch_members(wildcards):
+    """The sampling settings of a batch's members, one JSON list (the batch's rerun trigger)."""
+    members = []
+    for run in CY_BATCHES[wildcards.batch]:
+        entry = CY_RUNS[run]
+        members.append(
+            {
+                "run": run,
+                "settings": entry.param("sampling"),
+                "base_dir": entry.base_dir,
+                "replicas": [
+                    [r, run_path(run, ".resumable", f"replica-{r}.zarr")]
+                    for r in range(entry.config.replicas)
+                ],
+            }
+        )
+    return json.dumps(members, sort_keys=True)
+
+
+def member_batch_file(wildcards):
+    """The outcome file of the batch that samples this member (ancient: a rerun of the batch
+    for another member's sake does not republish this one)."""
+    return ancient(batch_file(CY_BATCH_OF[wildcards.run]))
 
 
 def raw_stores(wildcards):

@@ -7,6 +7,9 @@
 
 
 rule sample:
+    wildcard_constraints:
+        # with batching on, family members (FAMILY.KEY) are sampled by sample_batch
+        run=r"[A-Za-z0-9_-]+" if CY_BATCH > 1 else CY_RUN_PATTERN,
     input:
         sample_inputs,
     output:
@@ -36,3 +39,65 @@ rule sample:
     cache: "omit-software"
     script:
         "scripts/step.py"
+
+
+# Batched sampling (chainyard.sample_batch = K > 1; see chainyard.workflow.batches): one job
+# samples up to K members of a family, each replica in the member's own resumable store,
+# and writes an outcome per member (a member's deterministic failure is recorded there and
+# does not stop the others). A cheap local job per member and replica then publishes the
+# store, or ends with the member's recorded message and exit status.
+if CY_BATCH > 1:
+
+    rule sample_batch:
+        input:
+            batch_inputs,
+        output:
+            run_path(".batches", "{batch}.json"),
+        wildcard_constraints:
+            batch=r"[A-Za-z0-9_-]+~\d+",
+        params:
+            step="sample_batch",
+            members=batch_members,
+            chainyard_version=CY_VERSION,
+        log:
+            run_path("logs", "batches", "{batch}.log"),
+        threads: int(CY.get("sample_threads", 1))
+        conda:
+            "envs/chainyard.yaml"
+        resources:
+            runtime=lambda wildcards, attempt: CY_SAMPLE_RUNTIME * attempt * CY_BATCH,
+            mem_mb=CY_SAMPLE_MEM,
+            attempt=job_attempt,
+        retries: CY_SAMPLE_RETRIES
+        script:
+            "scripts/step.py"
+
+    rule publish:
+        localrule: True
+        wildcard_constraints:
+            run=r"[A-Za-z0-9_-]+\.[A-Za-z0-9][A-Za-z0-9_.-]*",
+        input:
+            member_batch_file,
+        output:
+            directory(run_path("{run}", "draws", "replica-{replica}.zarr")),
+        params:
+            # the member's own sampling settings: editing its row republishes it alone
+            model=sampling_section("model"),
+            parameters=sampling_section("parameters"),
+            sampler=sampling_section("sampler"),
+            storage=sampling_section("storage"),
+            seed=sampling_section("seed"),
+            resumable=resumable_store,
+        run:
+            from chainyard.workflow.batches import member_outcome
+            from chainyard.workflow.steps import link_tree
+
+            code, message = member_outcome(input[0], wildcards.run, int(wildcards.replica))
+            if code:
+                raise WorkflowError(
+                    f"chainyard: error: {message} (exit status {code}; "
+                    f"see {run_path('logs', 'batches', CY_BATCH_OF[wildcards.run] + '.log')})"
+                )
+            from pathlib import Path
+
+            link_tree(Path(params.resumable), Path(output[0]))

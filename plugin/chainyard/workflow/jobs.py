@@ -27,6 +27,10 @@ def _dispatch(sm: Any) -> None:
         steps.sample_step(
             settings, p.base_dir, int(p.replica), p.resumable, sm.output[0], cpus=sm.threads
         )
+    elif step == "sample_batch":
+        from chainyard.workflow.batches import batch_step
+
+        batch_step(p.members, sm.output[0], cpus=sm.threads)
     elif step == "analyse":
         stores, outputs = list(sm.input), dict(sm.output.items())
         steps.decide_step(p.burn_in, p.thinning, int(p.steps), stores, outputs)
