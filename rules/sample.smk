@@ -94,10 +94,12 @@ if CY_BATCH > 1:
 
             code, message = member_outcome(input[0], wildcards.run, int(wildcards.replica))
             if code:
-                raise WorkflowError(
-                    f"chainyard: error: {message} (exit status {code}; "
+                line = (
+                    f"chainyard: error: {wildcards.run}: {message} (exit status {code}; "
                     f"see {run_path('logs', 'batches', CY_BATCH_OF[wildcards.run] + '.log')})"
                 )
+                print(line, file=sys.stderr, flush=True)
+                raise WorkflowError(line)
             from pathlib import Path
 
             link_tree(Path(params.resumable), Path(output[0]))

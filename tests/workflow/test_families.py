@@ -108,20 +108,21 @@ def test_family_expands_and_bad_rows_are_named(tmp_path: Path, monkeypatch) -> N
 @pytest.mark.slow
 def test_batched_family_end_to_end(tmp_path: Path) -> None:
     """Six members in batches of four: two sampling jobs; a member whose data breaks the model
-    is reported by name (exit 3) while the others finish; adding a row samples only the new
+    is reported by name (exit 2) while the others finish; adding a row samples only the new
     member; editing a row reruns only that member's publish and analysis; the members' draws
     equal those of a plain run with the derived seed."""
     rows = [(f"s{i}", float(i)) for i in range(6)]
     folder = family_workflow(tmp_path, rows, sample_batch=4)
-    (folder / "data" / "s2.txt").write_text("nan-ish")  # the loader fails: a model error
+    (folder / "data" / "s2.txt").write_text("nan-ish")  # the loader fails: exit status 2
     jobs = planned_jobs(folder)
     assert jobs["chainyard_sample_batch"] == 2 and "chainyard_sample" not in jobs
     res = snakemake(folder, "--cores", "2", "--keep-going")
     assert res.returncode != 0
     text = res.stdout + res.stderr
-    assert "stars.s2" in text and "exit status 3" in text
+    assert "chainyard: error: stars.s2: run settings: model.data_loader: failed on " in text
+    assert "exit status 2" in text
     outcome = json.loads((folder / "results" / ".batches" / "stars~0.json").read_text())
-    assert outcome["members"]["stars.s2"]["0"]["exit_code"] == 3
+    assert outcome["members"]["stars.s2"]["0"]["exit_code"] == 2
     for i in (0, 1, 3, 4, 5):
         assert (folder / "results" / f"stars.s{i}" / "summary.csv").is_file()
     # the member's draws are a plain run's with the derived seed
