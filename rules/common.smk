@@ -1,4 +1,5 @@
 # Helpers and config validation shared by the chainyard rules.
+import inspect
 import json
 import sys
 
@@ -41,6 +42,18 @@ wildcard_constraints:
     replica=r"\d+",
 
 
+def cy_fn(func):
+    """Record an input/param/resource function's parameter names once: Snakemake otherwise
+    inspects the signature at every call (measured: about a third of the planning time of a
+    large workflow)."""
+    try:
+        from snakemake.common import overwrite_function_params
+    except ImportError:  # pragma: no cover - an older snakemake: it inspects every call
+        return func
+    overwrite_function_params(func, inspect.signature(func).parameters)
+    return func
+
+
 def run_path(run, *parts):
     """Path under the run's results folder."""
     return "/".join([CY_RESULTS, run, *parts])
@@ -52,6 +65,7 @@ def replica_stores(run):
     return [run_path(run, "draws", f"replica-{r}.zarr") for r in range(n)]
 
 
+@cy_fn
 def sample_inputs(wildcards):
     return CY_RUNS[wildcards.run].input_files()
 
@@ -62,47 +76,57 @@ def sampling_section(name):
     def section(wildcards):
         return CY_RUNS[wildcards.run].sampling_section(name)
 
-    return section
+    return cy_fn(section)
 
 
+@cy_fn
 def run_base_dir(wildcards):
     return CY_RUNS[wildcards.run].base_dir
 
 
+@cy_fn
 def replica_index(wildcards):
     return int(wildcards.replica)
 
 
+@cy_fn
 def resumable_store(wildcards):
     return run_path(wildcards.run, ".resumable", f"replica-{wildcards.replica}.zarr")
 
 
+@cy_fn
 def sample_runtime(wildcards, attempt):
     return CY_SAMPLE_RUNTIME * attempt
 
 
+@cy_fn
 def job_attempt(wildcards, attempt):
     """Snakemake's attempt number, as a resource: a retry of a job whose earlier attempt ended
     in a failure no retry can mend fails at once (see chainyard.workflow.retry)."""
     return attempt
 
 
+@cy_fn
 def burn_in_policy(wildcards):
     return CY_RUNS[wildcards.run].param("burn_in")
 
 
+@cy_fn
 def thinning_policy(wildcards):
     return CY_RUNS[wildcards.run].param("thinning")
 
 
+@cy_fn
 def run_targets(wildcards):
     return CY_RUNS[wildcards.run].param("targets")
 
 
+@cy_fn
 def run_name(wildcards):
     return wildcards.run
 
 
+@cy_fn
 def reference_values(wildcards):
     """The run's reference values from the current config (drawn on the plots), plain JSON."""
     params = CY_RUNS[wildcards.run].config.parameters
@@ -115,6 +139,7 @@ def batch_file(batch):
     return run_path(".batches", f"{batch}.json")
 
 
+@cy_fn
 def batch_inputs(wildcards):
     """Files the draws of a batch's members depend on."""
     files = set()
@@ -123,6 +148,7 @@ def batch_inputs(wildcards):
     return sorted(files)
 
 
+@cy_fn
 def batch_members(wildcards):
     """The sampling settings of a batch's members, one JSON list (the batch's rerun trigger)."""
     members = []
@@ -142,16 +168,19 @@ def batch_members(wildcards):
     return json.dumps(members, sort_keys=True)
 
 
+@cy_fn
 def member_batch_file(wildcards):
     """The outcome file of the batch that samples this member (ancient: a rerun of the batch
     for another member's sake does not republish this one)."""
     return ancient(batch_file(CY_BATCH_OF[wildcards.run]))
 
 
+@cy_fn
 def raw_stores(wildcards):
     return replica_stores(wildcards.run)
 
 
+@cy_fn
 def requested_steps(wildcards):
     return CY_RUNS[wildcards.run].config.sampler.steps
 
@@ -164,6 +193,7 @@ def results_file(name):
     return "/".join([CY_RESULTS, name])
 
 
+@cy_fn
 def results_folder(wildcards, output):
     """The results folder, from a rule's first output directly under it."""
     return output[0].rpartition("/")[0]

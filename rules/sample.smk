@@ -65,7 +65,7 @@ if CY_BATCH > 1:
         conda:
             "envs/chainyard.yaml"
         resources:
-            runtime=lambda wildcards, attempt: CY_SAMPLE_RUNTIME * attempt * CY_BATCH,
+            runtime=cy_fn(lambda wildcards, attempt: CY_SAMPLE_RUNTIME * attempt * CY_BATCH),
             mem_mb=CY_SAMPLE_MEM,
             attempt=job_attempt,
         retries: CY_SAMPLE_RETRIES
