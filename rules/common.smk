@@ -160,8 +160,8 @@ def batch_members(wildcards):
                 "settings": entry.param("sampling"),
                 "base_dir": entry.base_dir,
                 "replicas": [
-                    [r, run_path(run, ".resumable", f"replica-{r}.zarr")]
-                    for r in range(entry.config.replicas)
+                    [r, run_path(run, ".resumable", f"replica-{r}.zarr"), store]
+                    for r, store in enumerate(replica_stores(run))
                 ],
             }
         )
@@ -169,15 +169,28 @@ def batch_members(wildcards):
 
 
 @cy_fn
-def member_batch_file(wildcards):
-    """The outcome file of the batch that samples this member (ancient: a rerun of the batch
-    for another member's sake does not republish this one)."""
-    return ancient(batch_file(CY_BATCH_OF[wildcards.run]))
+def raw_stores(wildcards):
+    """The run's sampled stores; for a batched member, its batch's outcome file (ancient: a
+    rerun of the batch for another member's sake does not rerun this member's analysis)."""
+    batch = CY_BATCH_OF.get(wildcards.run)
+    if batch is not None:
+        return [ancient(batch_file(batch))]
+    return replica_stores(wildcards.run)
 
 
 @cy_fn
-def raw_stores(wildcards):
-    return replica_stores(wildcards.run)
+def store_paths(wildcards):
+    """The run's sampled stores (JSON list)."""
+    return json.dumps(replica_stores(wildcards.run))
+
+
+@cy_fn
+def batched_sampling(wildcards):
+    """A batched member's sampling settings (its analysis reruns when they change, as the
+    sampling job of an unbatched run would); empty for other runs."""
+    if wildcards.run in CY_BATCH_OF:
+        return CY_RUNS[wildcards.run].param("sampling")
+    return ""
 
 
 @cy_fn
@@ -205,6 +218,11 @@ def overview_page():
 
     page = os.path.abspath(results_file("overview.rst"))
     return page if os.path.exists(page) else "report/no_overview.rst"
+
+
+def unbatched_stores():
+    """The stores of every run sampled by its own jobs (inputs of the overview)."""
+    return [s for run in sorted(CY_RUNS) if run not in CY_BATCH_OF for s in replica_stores(run)]
 
 
 def all_outputs():

@@ -43,9 +43,10 @@ rule sample:
 
 # Batched sampling (chainyard.sample_batch = K > 1; see chainyard.workflow.batches): one job
 # samples up to K members of a family, each replica in the member's own resumable store,
-# and writes an outcome per member (a member's deterministic failure is recorded there and
-# does not stop the others). A cheap local job per member and replica then publishes the
-# store, or ends with the member's recorded message and exit status.
+# publishes (hard links) each sampled member's stores at RESULTS/MEMBER/draws/, and writes
+# an outcome per member (a member's deterministic failure is recorded there and does not
+# stop the others). A member's analysis reads its published stores, or ends with the
+# member's recorded message and exit status.
 if CY_BATCH > 1:
 
     rule sample_batch:
@@ -71,35 +72,3 @@ if CY_BATCH > 1:
         retries: CY_SAMPLE_RETRIES
         script:
             "scripts/step.py"
-
-    rule publish:
-        localrule: True
-        wildcard_constraints:
-            run=r"[A-Za-z0-9_-]+\.[A-Za-z0-9][A-Za-z0-9_.-]*",
-        input:
-            member_batch_file,
-        output:
-            directory(run_path("{run}", "draws", "replica-{replica}.zarr")),
-        params:
-            # the member's own sampling settings: editing its row republishes it alone
-            model=sampling_section("model"),
-            parameters=sampling_section("parameters"),
-            sampler=sampling_section("sampler"),
-            storage=sampling_section("storage"),
-            seed=sampling_section("seed"),
-            resumable=resumable_store,
-        run:
-            from chainyard.workflow.batches import member_outcome
-            from chainyard.workflow.steps import link_tree
-
-            code, message = member_outcome(input[0], wildcards.run, int(wildcards.replica))
-            if code:
-                line = (
-                    f"chainyard: error: {wildcards.run}: {message} (exit status {code}; "
-                    f"see {run_path('logs', 'batches', CY_BATCH_OF[wildcards.run] + '.log')})"
-                )
-                print(line, file=sys.stderr, flush=True)
-                raise WorkflowError(line)
-            from pathlib import Path
-
-            link_tree(Path(params.resumable), Path(output[0]))

@@ -154,7 +154,7 @@ def run(n: int, batch: int, replicas: int, steps: int) -> dict[str, Any]:
     folder = WORK / f"run-{n}"
     make(folder, n, "family", replicas, steps, batch)
     _u, _t, _w, dry = timed(folder, "-n", "--cores", "2")
-    user, total, wall, _out = timed(folder, "--cores", "2", "--keep-going")
+    _user, total, wall, _out = timed(folder, "--cores", "2", "--keep-going")
     done = sum((folder / "results" / f"objects.o{i:05d}" / "summary.csv").is_file()
                for i in range(n))
     row = {"n": n, "batch": batch, "replicas": replicas, "steps": steps,

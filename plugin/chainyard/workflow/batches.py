@@ -10,12 +10,13 @@ store, conflict) is recorded there and the batch goes on with the next member; a
 failure (a kill, a storage fault, a bug) fails the whole job, and its retry resumes each
 member from its own last commit.
 
-Each member's declared stores are then published by a cheap local job per member and
-replica (rule ``publish``, hard links, no sampling), which ends with the member's recorded
-message and exit status if it failed. Its input is the batch outcome marked ancient and its
-params are the member's own sampling settings, so editing one row reruns the batch job
-(which resumes the others' complete stores without sampling) and only that member's
-publish and analysis.
+A sampled member's stores are published (hard links, as an unbatched sampling job does) at
+``RESULTS/MEMBER/draws/replica-R.zarr``; they are not Snakemake outputs, so Snakemake never
+deletes them and plans N/K sampling jobs, not one per member and replica. The member's
+analysis job takes the batch's outcome file (marked ancient) as input and the member's own
+sampling settings as params: it ends with the member's recorded message and exit status if
+the member failed, and editing one row reruns the batch job (which resumes the others'
+complete stores without sampling) and only that member's analysis.
 """
 
 from __future__ import annotations
@@ -25,7 +26,7 @@ import sys
 from pathlib import Path
 from typing import Any
 
-__all__ = ["DETERMINISTIC", "batch_step", "member_outcome", "plan_batches"]
+__all__ = ["DETERMINISTIC", "batch_step", "check_member", "member_outcome", "plan_batches"]
 
 #: exit statuses a retry cannot mend: recorded per member, the batch goes on
 DETERMINISTIC = frozenset({2, 3, 4, 5})
@@ -63,20 +64,21 @@ def batch_step(members: str, output: str, cpus: int = 1) -> None:
     Parameters
     ----------
     members : str
-        JSON list of ``{"run", "settings", "base_dir", "replicas": [[index, resumable], ...]}``.
+        JSON list of ``{"run", "settings", "base_dir", "replicas": [[index, resumable,
+        published], ...]}``.
     output : str
         The batch's outcome file (JSON: ``{"members": {run: {replica: outcome}}}``).
     cpus : int
         The job's CPUs (the model's worker processes where timing shows it pays).
     """
     from chainyard.errors import ChainyardError
-    from chainyard.workflow.steps import sample_to
+    from chainyard.workflow.steps import link_tree, sample_to
 
     outcomes: dict[str, dict[str, Any]] = {}
     for member in json.loads(members):
         run = member["run"]
         done: dict[str, Any] = {}
-        for replica, resumable in member["replicas"]:
+        for replica, resumable, _published in member["replicas"]:
             print(f"chainyard: batch: {run} replica {replica}", flush=True)
             try:
                 sample_to(member["settings"], member["base_dir"], int(replica), resumable, cpus)
@@ -88,6 +90,9 @@ def batch_step(members: str, output: str, cpus: int = 1) -> None:
                 done[str(replica)] = {"exit_code": exc.exit_code, "message": line}
                 break  # the member's other replicas would fail the same way
             done[str(replica)] = {"exit_code": 0}
+        if not any(o["exit_code"] for o in done.values()):
+            for _replica, resumable, published in member["replicas"]:
+                link_tree(Path(resumable), Path(published))
         outcomes[run] = done
     failed = sorted(r for r, d in outcomes.items() if any(o["exit_code"] for o in d.values()))
     if failed:
@@ -113,3 +118,26 @@ def member_outcome(outcome_file: str, run: str, replica: int) -> tuple[int, str]
         if got is None:
             return 2, f"{run}: replica {replica} not in its batch's outcome file {outcome_file}"
     return int(got["exit_code"]), str(got.get("message", ""))
+
+
+def check_member(outcome_file: str, run: str, replicas: int) -> None:
+    """Raise the member's recorded failure (its one line and exit status), if any."""
+    from chainyard.errors import (
+        ChainyardError,
+        ConfigError,
+        ModelError,
+        StoreConflictError,
+        StoreError,
+    )
+
+    kinds: dict[int, type[ChainyardError]] = {
+        2: ConfigError,
+        3: ModelError,
+        4: StoreError,
+        5: StoreConflictError,
+    }
+    for replica in range(replicas):
+        code, message = member_outcome(outcome_file, run, replica)
+        if code:
+            kind = kinds.get(code, StoreError)
+            raise kind(f"{run}: sampling failed in its batch ({outcome_file}): {message}")
