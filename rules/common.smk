@@ -170,11 +170,12 @@ def batch_members(wildcards):
 
 @cy_fn
 def raw_stores(wildcards):
-    """The run's sampled stores; for a batched member, its batch's outcome file (ancient: a
-    rerun of the batch for another member's sake does not rerun this member's analysis)."""
+    """The run's sampled stores; for a batched member, its batch's outcome file (a rerun of
+    the batch reruns the analysis of its members: Snakemake skips a job downstream of a
+    rerun whose inputs are all marked ancient even when its own outputs are missing)."""
     batch = CY_BATCH_OF.get(wildcards.run)
     if batch is not None:
-        return [ancient(batch_file(batch))]
+        return [batch_file(batch)]
     return replica_stores(wildcards.run)
 
 

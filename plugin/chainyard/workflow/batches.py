@@ -13,10 +13,11 @@ member from its own last commit.
 A sampled member's stores are published (hard links, as an unbatched sampling job does) at
 ``RESULTS/MEMBER/draws/replica-R.zarr``; they are not Snakemake outputs, so Snakemake never
 deletes them and plans N/K sampling jobs, not one per member and replica. The member's
-analysis job takes the batch's outcome file (marked ancient) as input and the member's own
-sampling settings as params: it ends with the member's recorded message and exit status if
-the member failed, and editing one row reruns the batch job (which resumes the others'
-complete stores without sampling) and only that member's analysis.
+analysis job takes the batch's outcome file as input and the member's own sampling settings
+as params: it ends with the member's recorded message and exit status if the member failed.
+Editing one row reruns that row's batch job, which samples only that member (the others'
+complete stores are resumed, found complete, and not sampled); the analyses of the batch's
+members rerun (at most K). Rows appended to the table touch only the last batch.
 """
 
 from __future__ import annotations
