@@ -146,3 +146,21 @@ def test_batched_family_end_to_end(tmp_path: Path) -> None:
     assert res.returncode == 0, res.stdout + res.stderr
     assert (s0.read_bytes(), s0.stat().st_mtime_ns, s4.stat().st_mtime_ns) == before
     assert (folder / "results" / "stars.s6" / "summary.csv").is_file()
+
+
+@pytest.mark.slow
+def test_unbatched_family_plans_per_member_and_bad_row_stops_snakemake(tmp_path: Path) -> None:
+    """Without batching a family plans one sampling job per member and replica and one
+    analysis per member; a bad row stops snakemake before any job with one line, exit 2."""
+    folder = family_workflow(tmp_path, [("vega", 1.0), ("deneb", -2.0), ("rigel", 0.5)])
+    jobs = planned_jobs(folder)
+    assert jobs["chainyard_sample"] == 6 and jobs["chainyard_analyse"] == 3, jobs
+    table = folder / "config" / "stars.csv"
+    table.write_text(table.read_text() + "altair,../../data/vega.txt,warm\n")
+    res = snakemake(folder, "--cores", "1")
+    assert res.returncode == 2, res.stdout + res.stderr
+    assert (
+        "chainyard: error: config/stars.csv: row 5 (name=altair): column t0_guess = 'warm': "
+        "Input should be a valid number, unable to parse string as a number"
+    ) in res.stderr.splitlines()
+    assert not (folder / "results").exists()
