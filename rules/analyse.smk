@@ -56,6 +56,8 @@ rule analyse:
     params:
         step="analyse",
         run=run_name,
+        stores=store_paths,
+        sampling=batched_sampling,
         burn_in=burn_in_policy,
         thinning=thinning_policy,
         steps=requested_steps,

@@ -7,7 +7,7 @@
 rule overview:
     input:
         diagnostics=[run_path(run, "diagnostics.json") for run in sorted(CY_RUNS)],
-        stores=[s for run in sorted(CY_RUNS) for s in replica_stores(run)],
+        stores=unbatched_stores(),
     output:
         table=report(
             results_file("runs.csv"),

@@ -52,7 +52,7 @@ def test_run_file_and_setting_mistakes_each_one_line(tmp_path: Path) -> None:
         "chainyard: error: config: sample_retry: unknown key (check the spelling; "
         "see `chainyard schema`); did you mean 'sample_retries'? allowed: runs, results, "
         "sample_runtime_minutes, sample_mem_mb, sample_retries, "
-        "sample_threads"
+        "sample_threads, sample_batch"
     ]
     write = {"first": "runs/first.yaml", "second": inline}
     folder = make_workflow(tmp_path / "again", write)

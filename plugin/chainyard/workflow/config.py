@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
@@ -18,6 +19,7 @@ from chainyard.config import (
 from chainyard.config._base import _Strict
 from chainyard.config.yamlfile import read_yaml_file
 from chainyard.errors import ConfigError
+from chainyard.workflow.families import FamilySpec, is_family, read_family
 
 __all__ = ["RunEntry", "WorkflowConfig", "load_workflow_config", "workflow_json_schema"]
 
@@ -25,11 +27,12 @@ __all__ = ["RunEntry", "WorkflowConfig", "load_workflow_config", "workflow_json_
 class WorkflowConfig(_Strict):
     """The ``chainyard`` section of a workflow's config file (strict like a run config)."""
 
-    runs: dict[str, RunConfig | str] = Field(
+    runs: dict[str, RunConfig | FamilySpec | str] = Field(
         description=(
             "Run name -> run configuration: either inline (paths relative to the workflow's "
-            "working directory) or the path of a run config YAML file (paths inside it "
-            "relative to that file)."
+            "working directory), the path of a run config YAML file (paths inside it "
+            "relative to that file), or a run family (template, table, key, fill: one run "
+            "FAMILY.KEY per table row)."
         )
     )
     results: str = Field(default="results", min_length=1, description="Folder for all outputs.")
@@ -46,6 +49,15 @@ class WorkflowConfig(_Strict):
         description=(
             "CPUs of a sampling job (the rule's threads): its model calls run in up to this "
             "many worker processes where timing shows it pays (sample --workers auto)."
+        ),
+    )
+    sample_batch: int = Field(
+        default=1,
+        ge=1,
+        description=(
+            "Family members sampled per sampling job (1: one job per member and replica). "
+            "Each member keeps its own stores; a member's failure is recorded by name and "
+            "does not stop the others."
         ),
     )
 
@@ -76,17 +88,17 @@ class RunEntry:
     name: str
     config: RunConfig
     base_dir: str
+    family: str | None = None
 
     def _rel(self, path: str) -> str:
         p = Path(path)
         return str(p) if p.is_absolute() else str(Path(self.base_dir) / p)
 
-    def input_files(self) -> list[str]:
-        """Files the draws depend on: model source(s), data, loader, initial positions."""
+    def _input_files(self) -> list[str]:
         from chainyard.model import resolve_source
 
         m = self.config.model
-        files = []
+        files: list[str] = []
         for ref in (m.log_prob, m.data_loader):
             if ref is None:
                 continue
@@ -104,17 +116,39 @@ class RunEntry:
             files.append(self._rel(self.config.sampler.initial_positions))
         return sorted(set(files))
 
+    @cached_property
+    def _inputs(self) -> list[str]:
+        return self._input_files()
+
+    def input_files(self) -> list[str]:
+        """Files the draws depend on: model source(s), data, loader, initial positions
+        (computed once per entry: Snakemake asks once per job)."""
+        return list(self._inputs)
+
+    @cached_property
+    def _sections(self) -> dict[str, str]:
+        settings = self.config.sampling_settings()
+        return {
+            name: json.dumps({name: value}, sort_keys=True, separators=(",", ":"))
+            for name, value in settings.items()
+        }
+
+    @cached_property
+    def _normalised(self) -> dict[str, Any]:
+        return self.config.normalised()
+
     def sampling_section(self, name: str) -> str:
         """One top-level section of the sampling settings as canonical JSON ``{name: value}``
         (one rule param per section, so Snakemake's rerun reason shows only the changed
-        section, named)."""
-        value = {name: self.config.sampling_settings()[name]}
-        return json.dumps(value, sort_keys=True, separators=(",", ":"))
+        section, named). Computed once per entry."""
+        return self._sections[name]
 
     def param(self, section: str) -> str:
         """A config section as a canonical JSON string (a plain, sorted rule param)."""
-        norm = self.config.normalised()
-        value = self.config.sampling_settings() if section == "sampling" else norm[section]
+        if section == "sampling":
+            value = self.config.sampling_settings()
+        else:
+            value = self._normalised[section]
         return json.dumps(value, sort_keys=True, separators=(",", ":"))
 
 
@@ -140,6 +174,7 @@ def load_workflow_config(config: dict[str, Any], source: str = "config") -> dict
             f"{source}: chainyard: must be a mapping (with 'runs'), got {type(section).__name__}"
         )
     runs = section.get("runs")
+    # a family's entry is checked by read_family (with its own one-line messages)
     for name in runs if isinstance(runs, dict) else ():
         if not isinstance(name, str) or not name.replace("_", "").replace("-", "").isalnum():
             raise ConfigError(
@@ -157,7 +192,12 @@ def load_workflow_config(config: dict[str, Any], source: str = "config") -> dict
     for name, run in runs.items():
         where = f"{source}: runs.{name}"
         try:
-            if isinstance(run, str):
+            if is_family(run):
+                for member, cfg, base in read_family(name, run, source):
+                    if member in runs:  # pragma: no cover - '.' is not allowed in run names
+                        raise ConfigError(f"{where}: member {member} is also a run")
+                    entries[member] = RunEntry(member, cfg, base, family=name)
+            elif isinstance(run, str):
                 path = Path(run)
                 data = read_yaml_file(path, "run config file")
                 cfg = parse_config(data, base_dir=path.parent, source=str(path))

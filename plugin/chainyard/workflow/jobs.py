@@ -27,8 +27,16 @@ def _dispatch(sm: Any) -> None:
         steps.sample_step(
             settings, p.base_dir, int(p.replica), p.resumable, sm.output[0], cpus=sm.threads
         )
+    elif step == "sample_batch":
+        from chainyard.workflow.batches import batch_step
+
+        batch_step(p.members, sm.output[0], cpus=sm.threads)
     elif step == "analyse":
-        stores, outputs = list(sm.input), dict(sm.output.items())
+        stores, outputs = json.loads(p.stores), dict(sm.output.items())
+        if getattr(p, "sampling", ""):  # a batched member: stop on its recorded failure
+            from chainyard.workflow.batches import check_member
+
+            check_member(sm.input[0], p.run, len(stores))
         steps.decide_step(p.burn_in, p.thinning, int(p.steps), stores, outputs)
         record = steps.diagnose_step(stores, outputs["selection"], p.targets, p.run, outputs)
         steps.plot_step(

@@ -27,6 +27,7 @@ __all__ = [
     "overview_step",
     "plot_step",
     "sample_step",
+    "sample_to",
     "standalone_step",
 ]
 
@@ -70,6 +71,20 @@ def sample_step(
     A store that holds more steps than ``sampler.steps`` (the config lowered them)
     is published whole; the run's selection then uses the first ``sampler.steps`` steps.
     """
+    sample_to(settings, base_dir, replica, resumable, cpus, progress_interval)
+    link_tree(Path(resumable), Path(output))
+
+
+def sample_to(
+    settings: str,
+    base_dir: str,
+    replica: int,
+    resumable: str,
+    cpus: int = 1,
+    progress_interval: float = 10.0,
+) -> None:
+    """Sample (or resume, or extend) one replica in its resumable store (see
+    :func:`sample_step`; also used by a batched sampling job for each member)."""
     from chainyard.workflow.imports import import_emcee_without_kde
 
     import_emcee_without_kde()
@@ -104,7 +119,6 @@ def sample_step(
             "decisions/selection.json); no stored draws are deleted",
             flush=True,
         )
-    link_tree(Path(resumable), Path(output))
 
 
 def decide_step(
