@@ -30,7 +30,8 @@ LAYERS: tuple[tuple[str, ...], ...] = (
     ("chainyard.decisions",),
     ("chainyard.config",),
     ("chainyard.datafiles", "chainyard.evaluator"),
-    ("chainyard.model", "chainyard.workflow.config"),  # the workflow config reads model paths
+    # the workflow config (and its run families) reads model paths
+    ("chainyard.model", "chainyard.workflow.config", "chainyard.workflow.families"),
     ("chainyard.store",),
     ("chainyard.engine",),
     ("chainyard.provenance",),
