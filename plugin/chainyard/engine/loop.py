@@ -19,6 +19,7 @@ from chainyard.engine.buffer import StepBuffer
 from chainyard.engine.commit import CommitJob
 from chainyard.engine.drivers import make_driver
 from chainyard.engine.guards import check_deterministic
+from chainyard.engine.protocol import StepBlock, fill_block
 from chainyard.engine.stopping import Interrupted, StopFlag
 from chainyard.engine.writer import Committer, process_writer_available
 from chainyard.errors import StoreError
@@ -202,16 +203,14 @@ def advance(
         counted = i
 
     try:
-        for rows in driver.steps(target - done):
-            # per step only the copies (emcee's in-memory backend makes the same ones)
-            position[i] = rows.position
-            log_prob[i] = rows.log_prob
-            accepted[i] = rows.accepted
-            if n_blobs:
-                blobs[:, i] = rows.blobs.T
-            i += 1
+        block = StepBlock(position, log_prob, accepted, blobs)
+        while i < target - buf.origin:
+            # the steps up to the next check go straight into the buffer, a block at a time
+            end = min(check_row, target - buf.origin)
+            fill_block(driver, block, i, end)
+            i = end
             if i < check_row:
-                continue
+                break  # the target is reached before the next check
             settle()
             now = time.monotonic()
             if (

@@ -29,7 +29,7 @@ from numpy.typing import NDArray
 
 from chainyard.config import MetropolisSpec
 from chainyard.engine.chains import fresh_chain_states, generator_to_json, generators_from_json
-from chainyard.engine.protocol import StepRows
+from chainyard.engine.protocol import StepBlock, StepRows
 from chainyard.errors import ModelError
 from chainyard.model import LoadedModel
 
@@ -205,6 +205,44 @@ class MetropolisDriver:
             if self._step <= self._adapt_steps:
                 self._adapt(accepted)
             yield StepRows(x, lp, accepted, self._blobs)
+
+    def fill(self, block: StepBlock, a: int, b: int) -> None:
+        """Take steps ``a .. b - 1`` into rows ``a .. b - 1`` of the run loop's buffer: the
+        draws of :meth:`steps`, with each chain's state kept in the buffer's rows (the
+        accept step writes the new row, no further copy)."""
+        model, size, n_blobs = self._model, self._block, self._model.n_blobs
+        call = model.checked
+        position, log_prob, accepted, blobs = block
+        prev, prev_lp = self._x, self._lp
+        for k in range(a, b):
+            i = self._step % size
+            if i == 0:
+                self._draw_block()
+            prop = prev + self._sd_rows * self._z[:, i]
+            total = float(np.add.reduce(prop, axis=None))  # exact check only if not finite
+            if not -np.inf < total < np.inf and not np.isfinite(prop).all():
+                raise ModelError(
+                    "the sampler proposed a non-finite position (a chain has diverged: check "
+                    "the model for log-probabilities that grow without bound)"
+                )
+            out = call(prop)
+            lp_new = out if out.ndim == 1 else out[:, 0]
+            acc = accepted[k]
+            np.less(self._log_u[:, i], np.subtract(lp_new, prev_lp), out=acc)
+            row, lp_row = position[k], log_prob[k]
+            np.copyto(row, prev)
+            np.copyto(row, prop, where=acc[:, None])
+            np.copyto(lp_row, prev_lp)
+            np.copyto(lp_row, lp_new, where=acc)
+            if n_blobs:
+                np.copyto(self._blobs, out[:, 1:], where=acc[:, None])
+                blobs[:, k] = self._blobs.T
+            self._step += 1
+            if self._step <= self._adapt_steps:
+                self._adapt(acc)
+            prev, prev_lp = row, lp_row
+        self._x[...] = prev
+        self._lp[...] = prev_lp
 
     def random_state(self) -> dict[str, Any]:
         """Every chain's stream, the proposal scales and the frozen proposal, as JSON."""
