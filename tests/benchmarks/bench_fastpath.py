@@ -105,6 +105,7 @@ def _ours(folder: Path, config: Any) -> tuple[float, np.ndarray, float]:
     last = store.read_rows("position", n - 1, n)[0]
     walkers = last.shape[0]
     size = sum(f.stat().st_size for f in (out / "draws").rglob("*") if f.is_file())
+    store.close()
     return took, last, size / (n * walkers)
 
 
@@ -264,40 +265,41 @@ KINDS: dict[str, dict[str, Any]] = {
 
 
 def _measure(folder: Path, rounds: int, scale: float) -> dict[str, dict[str, Any]]:
-    """Per kind: marginal seconds per step of chainyard and the plain loop, per round."""
-    jobs: dict[str, Callable[[], float]] = {}
+    """Per kind: marginal wall and sampler-thread CPU seconds per step, per round."""
+    jobs: dict[str, Callable[[], object]] = {}
     same: dict[str, bool] = {}
     bpd: dict[str, float] = {}
     for name, spec in KINDS.items():
         key = spec.get("steps_key", "steps")
-        for n in spec["runs"]:
-            n = max(2, int(n * scale))
+        runs = [max(2, int(n * scale)) for n in spec["runs"]]
+        for n in runs:
             config = _config(folder, {**spec["sampler"], key: n}, spec.get("func", "log_prob"))
-
-            def ours(config: Any = config, n: int = n, name: str = name, spec: Any = spec) -> float:
-                took, last, per = _ours(folder, config)
-                if name not in same:  # once: the loop makes the same draws
-                    same[name] = bool(np.array_equal(last, spec["plain"](config, n)[1]))
-                    bpd[name] = per
-                return took
-
-            jobs[f"{name}|ours|{n}"] = ours
-            jobs[f"{name}|plain|{n}"] = lambda c=config, n=n, p=spec["plain"]: p(c, n)[0]
+            if n == runs[0]:  # untimed: the loop makes the same draws; bytes per draw
+                _, last, bpd[name] = _ours(folder, config)
+                same[name] = bool(np.array_equal(last, spec["plain"](config, n)[1]))
+            jobs[f"{name}|ours|{n}"] = lambda c=config: _ours(folder, c)
+            jobs[f"{name}|plain|{n}"] = lambda c=config, n=n, p=spec["plain"]: p(c, n)
             if name.startswith("ensemble"):
-                jobs[f"{name}|emcee|{n}"] = lambda c=config, n=n: _emcee(c, n)[0]
-    times: dict[str, list[float]] = {k: [] for k in jobs}
+                jobs[f"{name}|emcee|{n}"] = lambda c=config, n=n: _emcee(c, n)
+    wall: dict[str, list[float]] = {k: [] for k in jobs}
+    cpu: dict[str, list[float]] = {k: [] for k in jobs}
     names = list(jobs)
     for r in range(rounds):
         shift = (r * 7) % len(names)
         for k in names[shift:] + names[:shift]:
-            times[k].append(jobs[k]())
+            t, c = time.perf_counter(), time.thread_time()
+            jobs[k]()
+            cpu[k].append(time.thread_time() - c)
+            wall[k].append(time.perf_counter() - t)
     out: dict[str, dict[str, Any]] = {}
     for name, spec in KINDS.items():
         a, b = (max(2, int(n * scale)) for n in spec["runs"])
         per: dict[str, list[float]] = {}
         for who in ("ours", "plain", "emcee"):
-            if f"{name}|{who}|{a}" in times:
-                per[who] = [
+            if f"{name}|{who}|{a}" not in wall:
+                continue
+            for label, times in (("", wall), ("cpu_", cpu)):
+                per[label + who] = [
                     (y - x) / (b - a)
                     for x, y in zip(
                         times[f"{name}|{who}|{a}"], times[f"{name}|{who}|{b}"], strict=True
@@ -316,6 +318,9 @@ def _row(name: str, res: dict[str, Any]) -> dict[str, Any]:
         "ratio": statistics.median(ratio),
         "ratio_min": min(ratio),
         "ratio_max": max(ratio),
+        "cpu_ratio": statistics.median(
+            [o / p for o, p in zip(per["cpu_ours"], per["cpu_plain"], strict=True)]
+        ),
         "same": res["same"],
         "bytes_per_draw": res["bytes_per_draw"],
     }
