@@ -105,7 +105,10 @@ def advance(
     model_blobs = tuple(config.sampler.blobs)  # the engine's own blobs are not the model's
     bytes_per_step = walkers * (n_params + 2 + n_blobs) * 8
     pending_cap = max(1, min(st.commit_every_steps, MAX_PENDING_BYTES // bytes_per_step))
-    buf = StepBuffer(walkers, n_params, n_blobs, store.chunk_steps, pending_cap)
+    # a commit due while the previous one is still being written waits (sampling goes on)
+    # until that one is done, or until this many steps are pending
+    lag_cap = max(pending_cap, min(2 * pending_cap, MAX_PENDING_BYTES // bytes_per_step))
+    buf = StepBuffer(walkers, n_params, n_blobs, store.chunk_steps, lag_cap)
     buf.load_tail(store, done)
     segment = {
         "kind": kind,
@@ -142,7 +145,7 @@ def advance(
         return Committer(
             store,
             use_process=_use_process(config, target - done),
-            capacity=bytes_per_step * (store.chunk_steps + pending_cap) + 64 * (3 + n_blobs),
+            capacity=bytes_per_step * (store.chunk_steps + lag_cap) + 64 * (3 + n_blobs),
             keep_open=lock_fds,
         )
 
@@ -217,6 +220,14 @@ def advance(
                 step - committed >= pending_cap
                 or now - last_commit_time >= every_seconds
                 or step == last_boundary
+            ) and not (
+                # the helper process is still writing the previous commit: sample on instead
+                # of waiting for it (cheap steps); a later check commits, at the latest at
+                # ``lag_cap`` (a thread writer shares the interpreter: its commits stay put)
+                writer is not None
+                and step - committed < lag_cap
+                and writer.kind == "process"
+                and writer.busy()
             ):
                 commit(step)
                 last_commit_time = now
@@ -241,7 +252,7 @@ def advance(
             if elapsed > 0:
                 stride = int(CHECK_SECONDS * (step - last_check_step) / elapsed)
             last_check_time, last_check_step = now, step
-            due = committed + pending_cap
+            due = committed + (pending_cap if step - committed < pending_cap else lag_cap)
             if step < last_boundary:
                 due = min(due, last_boundary)
             check_row = min(step + max(1, min(stride, MAX_CHECK_STRIDE)), due) - buf.origin

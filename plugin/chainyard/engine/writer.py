@@ -74,6 +74,10 @@ class ThreadWriter:
         )
         self._thread.start()
 
+    def busy(self) -> bool:
+        """True while a commit is in flight (never blocks)."""
+        return self._thread is not None and self._thread.is_alive()
+
     def wait(self, *, raise_error: bool = True) -> None:
         """Block until the commit in flight is done; re-raise its error if ``raise_error``."""
         if self._thread is not None:
@@ -174,6 +178,14 @@ class ProcessWriter:
             raise self._failed("ended unexpectedly") from None
         self._pending = True
 
+    def busy(self) -> bool:
+        """True while a commit is in flight: no reply (or end of the helper) yet; never
+        blocks. One job is in flight at a time, so its reply is the only line to come."""
+        if not self._pending:
+            return False
+        readable, _, _ = select.select([self._stdout], [], [], 0)
+        return not readable
+
     def wait(self, *, raise_error: bool = True) -> None:
         """Block until the commit in flight is done; raise its error if ``raise_error``."""
         if not self._pending:
@@ -248,6 +260,10 @@ class Committer:
         if self._process is not None and self._current is self._thread and self._process.ready():
             self._current = self._process
         self._current.submit(job, rows)
+
+    def busy(self) -> bool:
+        """True while a commit is in flight (never blocks)."""
+        return self._current.busy()
 
     def wait(self, *, raise_error: bool = True) -> None:
         """Block until the commit in flight is done (re-raising its error if asked)."""
