@@ -19,6 +19,7 @@ import chainyard
 from chainyard.engine.drivers import initial_random_state, make_driver
 from chainyard.engine.initial import initial_state
 from chainyard.engine.protocol import StepBlock, fill_block
+from chainyard.errors import ModelError
 from chainyard.model import load_model
 
 DIM = 3
@@ -145,3 +146,40 @@ def test_fill_equals_steps(tmp_path: Path, name: str) -> None:
             assert np.array_equal(block.blobs[:, k], r.blobs.T), f"blobs differ at step {k}"
     assert 0 < block.accepted.sum() <= block.accepted.size
     assert filled.random_state() == stepped.random_state()
+
+
+@pytest.mark.parametrize("start,sd", [(np.inf, 0.8), (1.7e308, 1e307)], ids=["inf", "overflow"])
+def test_mh_fill_stops_on_a_non_finite_proposal(tmp_path: Path, start: float, sd: float) -> None:
+    """A chain at +inf, or one whose proposal overflows, stops the filled block with the
+    driver's one-line error, as stepping does."""
+    (tmp_path / "model.py").write_text(VECTOR)
+    cfg = chainyard.parse_config(
+        {
+            "model": {"log_prob": "model.py:log_prob", "vectorized": True},
+            "parameters": [
+                {"name": f"p{i}", "init": {"normal": {"loc": 0.0, "scale": 1.0}}}
+                for i in range(DIM)
+            ],
+            "sampler": {"kind": "metropolis_hastings", "chains": 2, "proposal_sd": sd, "steps": 9},
+            "seed": 5,
+        },
+        base_dir=tmp_path,
+    )
+    model = load_model(cfg)
+    x = np.zeros((2, DIM))
+    x[1, 0] = start
+    for take in ("steps", "fill"):
+        driver = make_driver(
+            cfg, model, x, np.zeros(2), np.empty((2, 0)), initial_random_state(cfg, 0), step=0
+        )
+        block = StepBlock(
+            np.empty((9, 2, DIM)),
+            np.empty((9, 2)),
+            np.empty((9, 2), dtype=bool),
+            np.empty((0, 9, 2)),
+        )
+        with pytest.raises(ModelError, match="the sampler proposed a non-finite position"):
+            if take == "steps":
+                list(driver.steps(9))
+            else:
+                fill_block(driver, block, 0, 9)

@@ -221,12 +221,13 @@ def advance(
                 or now - last_commit_time >= every_seconds
                 or step == last_boundary
             ) and not (
-                # the helper process is still writing the previous commit: sample on instead
-                # of waiting for it (cheap steps); a later check commits, at the latest at
-                # ``lag_cap`` (a thread writer shares the interpreter: its commits stay put)
+                # the previous commit is still being written: sample on instead of waiting
+                # for it (cheap steps); a later check commits, at the latest at ``lag_cap``.
+                # Only with the helper process (or the thread standing in for it while it
+                # starts): commit_writer "thread" keeps its commits at their points
                 writer is not None
                 and step - committed < lag_cap
-                and writer.kind == "process"
+                and (writer.kind == "process" or st.commit_writer != "thread")
                 and writer.busy()
             ):
                 commit(step)
