@@ -1,7 +1,8 @@
 """The sampler protocol every engine implements (ensemble now; MH, user kernels later).
 
-A driver owns its random stream and its current state. The run loop asks it for steps one
-at a time, stores each step's rows, and asks for the RNG state only at commit points, so a
+A driver owns its random stream and its current state. The run loop asks it for steps (a
+block at a time through an optional ``fill``, else one at a time through ``steps``), stores
+each step's rows, and asks for the RNG state only at commit points, so a
 driver is resumable exactly when (a) every step is a pure function of (state, RNG state)
 and (b) it can be rebuilt from the last stored rows plus that RNG state.
 """
