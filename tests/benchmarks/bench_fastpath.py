@@ -404,6 +404,7 @@ def main() -> None:
     ap.add_argument("--quick", action="store_true")
     ap.add_argument("--rounds", type=int, default=None)
     ap.add_argument("--label", default="after")
+    ap.add_argument("--scale", type=float, default=None, help="run lengths times this")
     ap.add_argument("--no-busy", action="store_true", help="skip the pass beside a busy process")
     ap.add_argument("--json", type=Path, default=None, help="write the figures here")
     ap.add_argument(
@@ -420,7 +421,7 @@ def main() -> None:
         write_section(text)
         return
     rounds = args.rounds or (1 if args.quick else 5)
-    scale = 0.1 if args.quick else 1.0
+    scale = args.scale or (0.1 if args.quick else 1.0)
     folder = Path(tempfile.mkdtemp(prefix="chainyard-bench-fastpath-"))
     results: dict[str, Any] = {
         "label": args.label,
@@ -430,6 +431,7 @@ def main() -> None:
         "load_before": os.getloadavg()[0],
         "code": chainyard.__file__,
         "rounds": rounds,
+        "scale": scale,
     }
     try:
         for mode in ("quiet",) if args.no_busy else ("quiet", "busy"):

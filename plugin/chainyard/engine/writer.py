@@ -134,6 +134,7 @@ class ProcessWriter:
         self._stdin, self._stdout = self._proc.stdin, self._proc.stdout
         self._is_ready = False
         self._pending = False
+        self._used = False  # whether any job was sent
 
     def ready(self) -> bool:
         """True once the helper has opened the store (never blocks)."""
@@ -177,6 +178,7 @@ class ProcessWriter:
         except (BrokenPipeError, OSError):
             raise self._failed("ended unexpectedly") from None
         self._pending = True
+        self._used = True
 
     def busy(self) -> bool:
         """True while a commit is in flight: no reply (or end of the helper) yet; never
@@ -203,8 +205,14 @@ class ProcessWriter:
             raise StoreError(f"{self.path}: commit failed: {reply['error']}")
 
     def close(self) -> None:
-        """Finish the commit in flight, stop the helper and free the shared memory."""
+        """Finish the commit in flight, stop the helper and free the shared memory.
+
+        A helper that never got a job has written nothing: it is killed rather than waited
+        for (at its low priority on a busy machine, its start-up alone can take seconds).
+        """
         self.wait(raise_error=False)
+        if not self._used:
+            self._proc.kill()
         try:
             self._stdin.write(b'{"op": "exit"}\n')
             self._stdin.close()
