@@ -201,15 +201,17 @@ class KernelDriver:
         prev, prev_lp = self._x, self._lp
         chains = prev.shape[0]
         missing = np.zeros(chains, dtype=bool)
+        shape = (n_params,)
         for k in range(a, b):
             new, lp = position[k], log_prob[k]
             lp[...] = prev_lp
+            some_given = False  # the mask below is needed only if a kernel gave a log-prob
             for c, g in enumerate(gens):
                 try:
                     out = kernel(prev[c].copy(), g, data)
                 except BaseException as exc:
                     raise self._failed(exc, prev[c], c, self._step) from None
-                if type(out) is np.ndarray and out.shape == (n_params,) and out.dtype == np.float64:
+                if type(out) is np.ndarray and out.shape == shape and out.dtype == np.float64:
                     new[c] = out
                     missing[c] = True
                     continue
@@ -217,11 +219,12 @@ class KernelDriver:
                 missing[c] = given is None
                 if given is not None:
                     lp[c] = given
+                    some_given = True
             total = float(np.add.reduce(new, axis=None))  # exact check only if not finite
             if not -np.inf < total < np.inf and not np.isfinite(new).all():
                 c = int(np.flatnonzero(~np.isfinite(new).all(axis=1))[0])
                 self._bad_state(new[c], c, self._step)
-            if missing.all():
+            if not some_given:
                 res = call(new)
                 lp[...] = res if res.ndim == 1 else res[:, 0]
             elif missing.any():
