@@ -404,6 +404,7 @@ def main() -> None:
     ap.add_argument("--rounds", type=int, default=None)
     ap.add_argument("--label", default="after")
     ap.add_argument("--scale", type=float, default=None, help="run lengths times this")
+    ap.add_argument("--only", default=None, help="only the kinds whose name contains this")
     ap.add_argument("--no-busy", action="store_true", help="skip the pass beside a busy process")
     ap.add_argument("--json", type=Path, default=None, help="write the figures here")
     ap.add_argument(
@@ -421,6 +422,9 @@ def main() -> None:
         return
     rounds = args.rounds or (1 if args.quick else 5)
     scale = args.scale or (0.1 if args.quick else 1.0)
+    if args.only:
+        for name in [k for k in KINDS if args.only not in k]:
+            del KINDS[name]
     folder = Path(tempfile.mkdtemp(prefix="chainyard-bench-fastpath-"))
     results: dict[str, Any] = {
         "label": args.label,
