@@ -223,8 +223,7 @@ def advance(
             ) and not (
                 # the previous commit is still being written: sample on instead of waiting
                 # for it (cheap steps); a later check commits, at the latest at ``lag_cap``.
-                # Only with the helper process (or the thread standing in for it while it
-                # starts): commit_writer "thread" keeps its commits at their points
+                # Not with commit_writer "thread", whose commits stay at their points
                 writer is not None
                 and step - committed < lag_cap
                 and (writer.kind == "process" or st.commit_writer != "thread")
