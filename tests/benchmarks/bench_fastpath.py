@@ -21,9 +21,10 @@ Rates are marginal, (long run - short run) / extra steps, so fixed start-up (sto
 model import, helper start) is left out. Every configuration runs once per round, rounds
 rotate the order (interleaved), and medians are given with their min-max. The whole set runs
 twice: on the machine as it is ("quiet"), then with a second CPU-bound process beside it
-("busy"). ``--write`` replaces the section "Fast path" of tests/benchmarks/RESULTS.md
-(ratios from one run only; the "before" column is passed in with ``--before FILE``, a JSON
-written by a ``--label before`` run).
+("busy"). ``--json FILE`` keeps the figures; ``--table BEFORE AFTER`` renders two such
+files (a ``--label before`` run on the old code, see above, and an ``--label after`` run) as
+the section "Fast path" of tests/benchmarks/RESULTS.md and writes it. ``--scale``,
+``--rounds`` and ``--only`` shorten a run.
 """
 
 from __future__ import annotations
