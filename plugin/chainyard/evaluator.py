@@ -242,6 +242,9 @@ class LoadedModel:
     def __post_init__(self) -> None:
         self.bounded = bool(np.isfinite(self.lower).any() or np.isfinite(self.upper).any())
         """Whether any parameter has a finite bound (outside them: -inf, model not called)."""
+        self._plain_vectorized = (
+            self.vectorized and not self.bounded and self.n_blobs == 0 and not self.call_time_limit
+        )
         self.step: int | None = None
         self.in_user_call = False
         self.parallel: Any = None
@@ -321,6 +324,32 @@ class LoadedModel:
         if self.parallel is not None:
             return self.parallel.evaluate(self, thetas)  # type: ignore[no-any-return]
         return self.evaluate_serial(thetas)
+
+    def checked(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
+        """:meth:`__call__` with the fewest steps for the common case (the sampler's hot path).
+
+        A vectorized model without bounds, blobs, time limit or worker pool is called
+        directly and its answer accepted when it is already a float64 array of shape
+        (walkers,) whose sum is below +inf (no NaN, no +inf); anything else takes the full
+        path of :meth:`__call__`, so values and messages are the same.
+        """
+        if not self._plain_vectorized or self.parallel is not None:
+            return self(thetas)
+        self.in_user_call = True
+        try:
+            result = self.func(thetas, self.data)
+        except BaseException as exc:
+            raise self._fail_batch(thetas, *self._raised(exc)) from None
+        finally:
+            self.in_user_call = False
+        if (
+            type(result) is np.ndarray
+            and result.dtype == np.float64
+            and result.shape == (thetas.shape[0],)
+            and np.add.reduce(result) < np.inf
+        ):
+            return result
+        return self.check_rows(thetas, self._batch_array(result, thetas, thetas.shape[0]))
 
     def evaluate_serial(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
         """:meth:`__call__` in this process (the worker pool's fallback and reference)."""

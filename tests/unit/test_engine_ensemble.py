@@ -9,6 +9,7 @@ mix of moves, vectorised and per-walker models, and blobs.
 
 from __future__ import annotations
 
+import itertools
 from pathlib import Path
 from typing import Any
 
@@ -18,6 +19,7 @@ import pytest
 
 import chainyard
 from chainyard.engine.ensemble import EnsembleDriver, build_moves
+from chainyard.engine.protocol import StepBlock, fill_block
 from chainyard.errors import ConfigError, ModelError
 from chainyard.model import load_model
 from chainyard.streams import random_state_from_json, random_state_to_json, states_equal
@@ -90,7 +92,9 @@ def _setup(
     return cfg, load_model(cfg), namespace["log_prob"]
 
 
-def _compare(cfg: Any, model: Any, bare: Any, vectorized: bool, n_blobs: int) -> None:
+def _compare(
+    cfg: Any, model: Any, bare: Any, vectorized: bool, n_blobs: int, fill: bool = False
+) -> None:
     rng = np.random.default_rng(11)
     pos = rng.normal(size=(WALKERS, NDIM))
     out = model(pos)
@@ -108,10 +112,24 @@ def _compare(cfg: Any, model: Any, bare: Any, vectorized: bool, n_blobs: int) ->
         random_state_to_json(state0),
         check_start=True,
     )
-    got = [
-        (r.position.copy(), r.log_prob.copy(), r.accepted.copy(), r.blobs.copy())
-        for r in driver.steps(STEPS)
-    ]
+    if fill:  # the run loop's way: blocks of steps straight into its buffer
+        block = StepBlock(
+            np.empty((STEPS, WALKERS, NDIM)),
+            np.empty((STEPS, WALKERS)),
+            np.zeros((STEPS, WALKERS), dtype=bool),
+            np.empty((n_blobs, STEPS, WALKERS)),
+        )
+        for a, b in itertools.pairwise((0, 1, 5, 64, STEPS)):
+            fill_block(driver, block, a, b)
+        got = [
+            (block.position[k], block.log_prob[k], block.accepted[k], block.blobs[:, k].T)
+            for k in range(STEPS)
+        ]
+    else:
+        got = [
+            (r.position.copy(), r.log_prob.copy(), r.accepted.copy(), r.blobs.copy())
+            for r in driver.steps(STEPS)
+        ]
 
     sampler = emcee.EnsembleSampler(
         WALKERS,
@@ -151,6 +169,23 @@ def test_driver_equals_emcee_sample(tmp_path: Path, moves: str, vectorized: bool
     text = VECTOR if vectorized else SCALAR
     cfg, model, bare = _setup(tmp_path, text, MOVES[moves], vectorized, [])
     _compare(cfg, model, bare, vectorized, 0)
+
+
+@pytest.mark.parametrize("moves", ["stretch", "mix"])
+@pytest.mark.parametrize("vectorized", [False, True], ids=["per-walker", "vectorised"])
+def test_block_fill_equals_emcee_sample(tmp_path: Path, moves: str, vectorized: bool) -> None:
+    """Source: emcee 3.1.6's EnsembleSampler.sample; the driver fills blocks of steps (a lone
+    stretch move is stepped in numpy, see EnsembleDriver.fill)."""
+    text = VECTOR if vectorized else SCALAR
+    cfg, model, bare = _setup(tmp_path, text, MOVES[moves], vectorized, [])
+    _compare(cfg, model, bare, vectorized, 0, fill=True)
+
+
+@pytest.mark.parametrize("moves", ["stretch", "mix"])
+def test_block_fill_equals_emcee_sample_with_blobs(tmp_path: Path, moves: str) -> None:
+    """Source: emcee 3.1.6's EnsembleSampler.sample, blobs included, filled in blocks."""
+    cfg, model, bare = _setup(tmp_path, TWO_BLOBS, MOVES[moves], False, ["a", "b"])
+    _compare(cfg, model, bare, False, 2, fill=True)
 
 
 @pytest.mark.parametrize(

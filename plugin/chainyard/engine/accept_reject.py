@@ -79,12 +79,25 @@ class Envelope:
         self.b = np.array(
             [e.normal.scale if isinstance(e, NormalEnvelope) else e.uniform.high for e in entries]
         )
+        self._all_normal = bool(self.normal.all())
+        if self._all_normal:  # the constant terms of log g, as log_density computes them
+            self._log_b = float(np.sum(np.log(self.b)))
+            self._log_2pi_terms = self.a.size * (_HALF_LOG_2PI)
+        # one location and one scale for every parameter: the arithmetic takes them as
+        # scalars (each element's operation, and so its value, is the same)
+        same = self._all_normal and bool(
+            np.all(self.a == self.a[0]) and np.all(self.b == self.b[0])
+        )
+        self._loc: Any = float(self.a[0]) if same else self.a
+        self._scale: Any = float(self.b[0]) if same else self.b
 
     def draw(self, gen: np.random.Generator, n: int) -> NDArray[np.float64]:
         """``n`` proposals, shape (n, params). From the stream: an (n, params) block of
         standard normals if any entry is normal, then an (n, params) block of uniforms if any
         entry is uniform (each column uses its own kind's block)."""
         p = self.a.size
+        if self._all_normal:  # the same values without the per-kind selection
+            return self._loc + self._scale * gen.standard_normal((n, p))
         out = np.empty((n, p))
         if self.normal.any():
             z = gen.standard_normal((n, p))
@@ -96,6 +109,9 @@ class Envelope:
 
     def log_density(self, x: NDArray[np.float64]) -> NDArray[np.float64]:
         """log g(x) for rows x, shape (n, params) -> (n,)."""
+        if self._all_normal:  # the same terms in the same order as below
+            z = (x - self._loc) / self._scale
+            return np.sum(-0.5 * z * z, axis=1) - self._log_b - self._log_2pi_terms
         total = np.zeros(x.shape[0])
         if self.normal.any():
             a, b = self.a[self.normal], self.b[self.normal]
@@ -200,7 +216,7 @@ class AcceptRejectDriver:
         start = generator_to_json(gen)
         x = self._env.draw(gen, self._size)
         log_u = np.log1p(-gen.random(self._size))
-        out = self._model(x)
+        out = self._model.checked(x)
         lf = out if out.ndim == 1 else out[:, 0]
         lg = self._env.log_density(x)
         excess = lf - (self._log_m + lg)

@@ -27,7 +27,7 @@ from chainyard.config import (
     StretchMove,
     WalkMove,
 )
-from chainyard.engine.protocol import StepRows
+from chainyard.engine.protocol import StepBlock, StepRows, copy_steps
 from chainyard.engine.registry import SamplerKind, register
 from chainyard.errors import ConfigError, ModelError
 from chainyard.model import LoadedModel
@@ -154,6 +154,17 @@ class EnsembleDriver:
             blobs=self._to_emcee_blobs(blobs),
         )
         self._check_start = check_start
+        move = self._moves[0]
+        # the stretch move is stepped in numpy (fill) when it is the only move, as emcee
+        # configures it (two halves, shuffled split) and with enough walkers for emcee
+        self._stretch = (
+            len(self._moves) == 1
+            and type(move) is emcee.moves.StretchMove
+            and self._n_blobs == 0
+            and move.nsplits == 2
+            and move.randomize_split
+            and walkers >= 2 * n_params
+        )
 
     def _to_emcee_blobs(self, blobs: NDArray[np.float64]) -> NDArray[np.float64] | None:
         if self._n_blobs == 0:
@@ -212,6 +223,71 @@ class EnsembleDriver:
             yield StepRows(
                 state.coords, state.log_prob, accepted, self._from_emcee_blobs(state.blobs)
             )
+
+    def fill(self, block: StepBlock, a: int, b: int) -> None:
+        """Take steps ``a .. b - 1`` into rows ``a .. b - 1`` of the run loop's buffer.
+
+        A lone stretch move without blobs (the default) is stepped here in numpy, with the
+        draws of emcee's ``RedBlueMove.propose`` in the same order from the same generator:
+        the move-choice uniform, the shuffle of the red/blue split, then per half ``rand(Ns)``
+        for the stretch factors, ``randint(Nc, size=Ns)`` for the partners, and ``Ns``
+        uniforms for the accept test (emcee draws them one at a time; MT19937 gives the same
+        doubles either way). Each walker's accept test is emcee's ``f + lp' - lp > log u``
+        on the same float64 values, so the chain is emcee's bit for bit (checked against
+        emcee in tests/unit/test_engine_ensemble.py). Other moves take :meth:`steps`.
+        """
+        if not self._stretch:
+            copy_steps(self, block, a, b)
+            return
+        state = self._state
+        if self._check_start:
+            if not walkers_independent(state.coords):
+                raise ConfigError(
+                    "parameters[*].init: the initial walkers are not linearly independent "
+                    "(emcee's check); widen the init scales or use more spread-out positions"
+                )
+            self._check_start = False
+        rng, scale, compute = self._rng, self._moves[0].a, self._compute_checked
+        walkers, ndim = state.coords.shape
+        all_inds = np.arange(walkers)
+        position, log_prob, accepted, _ = block
+        prev, prev_lp = state.coords, state.log_prob
+        for k in range(a, b):
+            rng.random_sample()  # the move choice (one move: drawn, as emcee does, and unused)
+            coords, lp, acc = position[k], log_prob[k], accepted[k]
+            np.copyto(coords, prev)
+            np.copyto(lp, prev_lp)
+            acc[...] = False
+            inds = all_inds % 2
+            rng.shuffle(inds)
+            for split in (0, 1):
+                s1 = inds == split
+                s = coords[s1]
+                c = coords[inds != split]
+                ns, nc = len(s), len(c)
+                zz = ((scale - 1.0) * rng.rand(ns) + 1) ** 2.0 / scale
+                factors = (ndim - 1.0) * np.log(zz)
+                rint = rng.randint(nc, size=(ns,))
+                q = c[rint] - (c[rint] - s) * zz[:, None]
+                new_lp = compute(q)
+                ok = factors + new_lp - lp[s1] > np.log(rng.rand(ns))
+                acc[s1] = ok
+                m1 = s1 & acc
+                coords[m1] = q[ok]
+                lp[m1] = new_lp[ok]
+            prev, prev_lp = coords, lp
+        state.coords[...] = prev
+        state.log_prob[...] = prev_lp
+
+    def _compute_checked(self, coords: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Log-probabilities of proposed positions (no blobs), errors raised at once."""
+        total = float(np.add.reduce(coords, axis=None))  # one pass; exact check if not finite
+        if not -np.inf < total < np.inf and not np.isfinite(coords).all():
+            raise ModelError(
+                "the sampler proposed a non-finite position (the walkers have diverged: "
+                "check the model for log-probabilities that grow without bound)"
+            )
+        return self._model.model.checked(coords)
 
     def random_state(self) -> dict[str, Any]:
         """The sampler's current RNG state as JSON values."""

@@ -29,7 +29,7 @@ from chainyard.engine.chains import (
     generator_to_json,
     generators_from_json,
 )
-from chainyard.engine.protocol import StepRows
+from chainyard.engine.protocol import StepBlock, StepRows
 from chainyard.engine.registry import SamplerKind, register
 from chainyard.errors import ConfigError, ModelError
 from chainyard.evaluator import _is_real_ctrl_c, _is_stop_signal, describe_exception
@@ -110,13 +110,20 @@ class KernelDriver:
         try:
             return self._kernel(x.copy(), gen, self._model.data)
         except BaseException as exc:
-            if _is_stop_signal(exc) or _is_real_ctrl_c(exc):
-                raise
-            what, hint = describe_exception(exc)
-            raise ModelError(
-                f"sampler.kernel {self._name} raised {what} at step {step}, chain {chain} "
-                f"({self._values(x)})" + (f": {hint}" if hint else "")
-            ) from None
+            raise self._failed(exc, x, chain, step) from None
+
+    def _failed(
+        self, exc: BaseException, x: NDArray[np.float64], chain: int, step: int
+    ) -> ModelError:
+        """The one-line error for an exception from the kernel (a stop signal or a real
+        Ctrl-C is re-raised as it is)."""
+        if _is_stop_signal(exc) or _is_real_ctrl_c(exc):
+            raise exc
+        what, hint = describe_exception(exc)
+        return ModelError(
+            f"sampler.kernel {self._name} raised {what} at step {step}, chain {chain} "
+            f"({self._values(x)})" + (f": {hint}" if hint else "")
+        )
 
     def _values(self, x: NDArray[np.float64]) -> str:
         return ", ".join(f"{n}={v:.6g}" for n, v in zip(self._model.param_names, x, strict=True))
@@ -186,6 +193,52 @@ class KernelDriver:
             if self._check and len(self._check_rows) < CHECK_STEPS:
                 self._check_rows.append(x[0].copy())
             yield StepRows(x, lp, accepted, self._no_blobs)
+
+    def fill(self, block: StepBlock, a: int, b: int) -> None:
+        """Take steps ``a .. b - 1`` into rows ``a .. b - 1`` of the run loop's buffer: the
+        draws of :meth:`steps`, with the new states written straight into the buffer."""
+        gens, kernel, data, n_params = self._gens, self._kernel, self._model.data, self._n_params
+        call = self._model.checked
+        position, log_prob, accepted, _ = block
+        prev, prev_lp = self._x, self._lp
+        chains = prev.shape[0]
+        missing = np.zeros(chains, dtype=bool)
+        shape = (n_params,)
+        for k in range(a, b):
+            new, lp = position[k], log_prob[k]
+            lp[...] = prev_lp
+            some_given = False  # the mask below is needed only if a kernel gave a log-prob
+            for c, g in enumerate(gens):
+                try:
+                    out = kernel(prev[c].copy(), g, data)
+                except BaseException as exc:
+                    raise self._failed(exc, prev[c], c, self._step) from None
+                if type(out) is np.ndarray and out.shape == shape and out.dtype == np.float64:
+                    new[c] = out
+                    missing[c] = True
+                    continue
+                new[c], given = self._parse(out, c, self._step)
+                missing[c] = given is None
+                if given is not None:
+                    lp[c] = given
+                    some_given = True
+            total = float(np.add.reduce(new, axis=None))  # exact check only if not finite
+            if not -np.inf < total < np.inf and not np.isfinite(new).all():
+                c = int(np.flatnonzero(~np.isfinite(new).all(axis=1))[0])
+                self._bad_state(new[c], c, self._step)
+            if not some_given:
+                res = call(new)
+                lp[...] = res if res.ndim == 1 else res[:, 0]
+            elif missing.any():
+                res = self._model(new[missing])
+                lp[missing] = res if res.ndim == 1 else res[:, 0]
+            np.not_equal(new, prev).any(axis=1, out=accepted[k])
+            self._step += 1
+            if self._check and len(self._check_rows) < CHECK_STEPS:
+                self._check_rows.append(new[0].copy())
+            prev, prev_lp = new, lp
+        self._x[...] = prev
+        self._lp[...] = prev_lp
 
     def check_reproducible(self) -> None:
         """Take the first steps of chain 0 again from the recorded start and compare bitwise.

@@ -19,6 +19,7 @@ from chainyard.engine.buffer import StepBuffer
 from chainyard.engine.commit import CommitJob
 from chainyard.engine.drivers import make_driver
 from chainyard.engine.guards import check_deterministic
+from chainyard.engine.protocol import StepBlock, fill_block
 from chainyard.engine.recheck import LaterStepCheck
 from chainyard.engine.stopping import Interrupted, StopFlag
 from chainyard.engine.writer import Committer, process_writer_available
@@ -105,7 +106,10 @@ def advance(
     model_blobs = tuple(config.sampler.blobs)  # the engine's own blobs are not the model's
     bytes_per_step = walkers * (n_params + 2 + n_blobs) * 8
     pending_cap = max(1, min(st.commit_every_steps, MAX_PENDING_BYTES // bytes_per_step))
-    buf = StepBuffer(walkers, n_params, n_blobs, store.chunk_steps, pending_cap)
+    # a commit due while the previous one is still being written waits (sampling goes on)
+    # until that one is done, or until this many steps are pending
+    lag_cap = max(pending_cap, min(2 * pending_cap, MAX_PENDING_BYTES // bytes_per_step))
+    buf = StepBuffer(walkers, n_params, n_blobs, store.chunk_steps, lag_cap)
     buf.load_tail(store, done)
     segment = {
         "kind": kind,
@@ -143,7 +147,7 @@ def advance(
         return Committer(
             store,
             use_process=_use_process(config, target - done),
-            capacity=bytes_per_step * (store.chunk_steps + pending_cap) + 64 * (3 + n_blobs),
+            capacity=bytes_per_step * (store.chunk_steps + lag_cap) + 64 * (3 + n_blobs),
             keep_open=lock_fds,
         )
 
@@ -212,22 +216,28 @@ def advance(
         counted = i
 
     try:
-        for rows in driver.steps(target - done):
-            # per step only the copies (emcee's in-memory backend makes the same ones)
-            position[i] = rows.position
-            log_prob[i] = rows.log_prob
-            accepted[i] = rows.accepted
-            if n_blobs:
-                blobs[:, i] = rows.blobs.T
-            i += 1
+        block = StepBlock(position, log_prob, accepted, blobs)
+        while i < target - buf.origin:
+            # the steps up to the next check go straight into the buffer, a block at a time
+            end = min(check_row, target - buf.origin)
+            fill_block(driver, block, i, end)
+            i = end
             if i < check_row:
-                continue
+                break  # the target is reached before the next check
             settle()
             now = time.monotonic()
             if (
                 step - committed >= pending_cap
                 or now - last_commit_time >= every_seconds
                 or step == last_boundary
+            ) and not (
+                # the previous commit is still being written: sample on instead of waiting
+                # for it (cheap steps); a later check commits, at the latest at ``lag_cap``.
+                # Not with commit_writer "thread", whose commits stay at their points
+                writer is not None
+                and step - committed < lag_cap
+                and (writer.kind == "process" or st.commit_writer != "thread")
+                and writer.busy()
             ):
                 commit(step)
                 last_commit_time = now
@@ -252,7 +262,7 @@ def advance(
             if elapsed > 0:
                 stride = int(CHECK_SECONDS * (step - last_check_step) / elapsed)
             last_check_time, last_check_step = now, step
-            due = committed + pending_cap
+            due = committed + (pending_cap if step - committed < pending_cap else lag_cap)
             if step < last_boundary:
                 due = min(due, last_boundary)
             check_row = min(step + max(1, min(stride, MAX_CHECK_STRIDE)), due) - buf.origin

@@ -34,7 +34,7 @@ from chainyard.engine.chains import (
     generator_to_json,
     generators_from_json,
 )
-from chainyard.engine.protocol import StepRows
+from chainyard.engine.protocol import StepBlock, StepRows
 from chainyard.engine.registry import SamplerKind, register
 from chainyard.errors import ModelError
 from chainyard.model import LoadedModel
@@ -51,6 +51,8 @@ __all__ = [
 
 #: steps per adaptation window
 ADAPT_WINDOW = 50
+#: proposals below this size (in every coordinate) are finite with room to spare
+_FINITE_BOUND = 1e300
 
 
 def accepts(
@@ -145,6 +147,7 @@ class MetropolisDriver:
         self._starts = [generator_to_json(g) for g in self._gens]
         self._z = np.empty((chains, self._block, n_params))
         self._log_u = np.empty((chains, self._block))
+        self._z_max = np.inf  # max |z| of the current block (set when it is drawn)
         if self._step % self._block:  # inside a block: draw it again from its recorded start
             self._draw_block()
 
@@ -154,6 +157,16 @@ class MetropolisDriver:
         for c, g in enumerate(self._gens):
             g.standard_normal(out=self._z[c])
             self._log_u[c] = np.log1p(-g.random(self._block))
+        self._z_max = float(np.abs(self._z).max())
+
+    def _finite_for(self, x: NDArray[np.float64], n: int) -> bool:
+        """Whether the proposals of the next ``n`` steps from ``x`` are certainly finite
+        (steps of the current block, proposal scales fixed): each step moves a coordinate by
+        at most ``max |z| * max sd``, so no proposal passes ``max |x| + n`` such moves. One
+        check for ``n`` steps instead of a finiteness check of every proposal (NaN or inf in
+        ``x`` makes it False)."""
+        bound = float(np.abs(x).max()) + n * self._z_max * float(self._sd_rows.max())
+        return bound < _FINITE_BOUND
 
     def _adapt(self, accepted: NDArray[np.bool_]) -> None:
         """Window bookkeeping and the Robbins-Monro update (adaptation phase only)."""
@@ -212,6 +225,50 @@ class MetropolisDriver:
             if self._step <= self._adapt_steps:
                 self._adapt(accepted)
             yield StepRows(x, lp, accepted, self._blobs)
+
+    def fill(self, block: StepBlock, a: int, b: int) -> None:
+        """Take steps ``a .. b - 1`` into rows ``a .. b - 1`` of the run loop's buffer: the
+        draws of :meth:`steps`, with each chain's state kept in the buffer's rows (the
+        accept step writes the new row, no further copy)."""
+        model, size, n_blobs = self._model, self._block, self._model.n_blobs
+        call = model.checked
+        position, log_prob, accepted, blobs = block
+        prev, prev_lp = self._x, self._lp
+        safe_until = a  # proposals of rows before this are known to be finite
+        for k in range(a, b):
+            i = self._step % size
+            if i == 0:
+                self._draw_block()
+            prop = prev + self._sd_rows * self._z[:, i]
+            if k >= safe_until:
+                span = min(b - k, size - i)
+                if self._step >= self._adapt_steps and self._finite_for(prev, span):
+                    safe_until = k + span
+                else:
+                    total = float(np.add.reduce(prop, axis=None))  # exact check if not finite
+                    if not -np.inf < total < np.inf and not np.isfinite(prop).all():
+                        raise ModelError(
+                            "the sampler proposed a non-finite position (a chain has diverged: "
+                            "check the model for log-probabilities that grow without bound)"
+                        )
+            out = call(prop)
+            lp_new = out if out.ndim == 1 else out[:, 0]
+            acc = accepted[k]
+            np.less(self._log_u[:, i], np.subtract(lp_new, prev_lp), out=acc)
+            row, lp_row = position[k], log_prob[k]
+            row[...] = prev
+            np.copyto(row, prop, where=acc[:, None])
+            lp_row[...] = prev_lp
+            np.copyto(lp_row, lp_new, where=acc)
+            if n_blobs:
+                np.copyto(self._blobs, out[:, 1:], where=acc[:, None])
+                blobs[:, k] = self._blobs.T
+            self._step += 1
+            if self._step <= self._adapt_steps:
+                self._adapt(acc)
+            prev, prev_lp = row, lp_row
+        self._x[...] = prev
+        self._lp[...] = prev_lp
 
     def random_state(self) -> dict[str, Any]:
         """Every chain's stream, the proposal scales and the frozen proposal, as JSON."""

@@ -1,7 +1,8 @@
 """The sampler protocol every engine implements (ensemble now; MH, user kernels later).
 
-A driver owns its random stream and its current state. The run loop asks it for steps one
-at a time, stores each step's rows, and asks for the RNG state only at commit points, so a
+A driver owns its random stream and its current state. The run loop asks it for steps (a
+block at a time through an optional ``fill``, else one at a time through ``steps``), stores
+each step's rows, and asks for the RNG state only at commit points, so a
 driver is resumable exactly when (a) every step is a pure function of (state, RNG state)
 and (b) it can be rebuilt from the last stored rows plus that RNG state.
 """
@@ -14,7 +15,7 @@ from typing import Any, NamedTuple, Protocol
 import numpy as np
 from numpy.typing import NDArray
 
-__all__ = ["SamplerDriver", "StepRows"]
+__all__ = ["SamplerDriver", "StepBlock", "StepRows", "copy_steps", "fill_block"]
 
 
 class StepRows(NamedTuple):
@@ -35,6 +36,52 @@ class StepRows(NamedTuple):
     log_prob: NDArray[np.float64]
     accepted: NDArray[np.bool_]
     blobs: NDArray[np.float64]
+
+
+class StepBlock(NamedTuple):
+    """The run loop's buffer, which a driver may fill a block of steps at a time.
+
+    Row ``k`` of every array is one step. A driver with a ``fill(block, a, b)`` method takes
+    steps ``a .. b - 1`` writing their rows straight into rows ``a .. b - 1`` (no per-step
+    hand-over); its draws are the same as those of ``steps`` and its RNG state is
+    consistent when ``fill`` returns. Rows before ``a`` are not read.
+
+    Attributes
+    ----------
+    position : ndarray, shape (rows, walkers, params)
+    log_prob : ndarray, shape (rows, walkers)
+    accepted : ndarray of bool, shape (rows, walkers)
+    blobs : ndarray, shape (n_blobs, rows, walkers)
+    """
+
+    position: NDArray[np.float64]
+    log_prob: NDArray[np.float64]
+    accepted: NDArray[np.bool_]
+    blobs: NDArray[np.float64]
+
+
+def fill_block(driver: Any, block: StepBlock, a: int, b: int) -> None:
+    """Take steps ``a .. b - 1`` into rows ``a .. b - 1`` of ``block``: with the driver's own
+    ``fill`` if it has one, else one step at a time from ``driver.steps`` (copies only)."""
+    fill = getattr(driver, "fill", None)
+    if fill is not None:
+        fill(block, a, b)
+    else:
+        copy_steps(driver, block, a, b)
+
+
+def copy_steps(driver: Any, block: StepBlock, a: int, b: int) -> None:
+    """Take steps ``a .. b - 1`` from ``driver.steps``, copying each into ``block``."""
+    position, log_prob, accepted, blobs = block
+    n_blobs = blobs.shape[0]
+    k = a
+    for rows in driver.steps(b - a):
+        position[k] = rows.position
+        log_prob[k] = rows.log_prob
+        accepted[k] = rows.accepted
+        if n_blobs:
+            blobs[:, k] = rows.blobs.T
+        k += 1
 
 
 class SamplerDriver(Protocol):

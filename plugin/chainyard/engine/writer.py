@@ -74,6 +74,10 @@ class ThreadWriter:
         )
         self._thread.start()
 
+    def busy(self) -> bool:
+        """True while a commit is in flight (never blocks)."""
+        return self._thread is not None and self._thread.is_alive()
+
     def wait(self, *, raise_error: bool = True) -> None:
         """Block until the commit in flight is done; re-raise its error if ``raise_error``."""
         if self._thread is not None:
@@ -130,6 +134,7 @@ class ProcessWriter:
         self._stdin, self._stdout = self._proc.stdin, self._proc.stdout
         self._is_ready = False
         self._pending = False
+        self._used = False  # whether any job was sent
 
     def ready(self) -> bool:
         """True once the helper has opened the store (never blocks)."""
@@ -173,6 +178,15 @@ class ProcessWriter:
         except (BrokenPipeError, OSError):
             raise self._failed("ended unexpectedly") from None
         self._pending = True
+        self._used = True
+
+    def busy(self) -> bool:
+        """True while a commit is in flight: no reply (or end of the helper) yet; never
+        blocks. One job is in flight at a time, so its reply is the only line to come."""
+        if not self._pending:
+            return False
+        readable, _, _ = select.select([self._stdout], [], [], 0)
+        return not readable
 
     def wait(self, *, raise_error: bool = True) -> None:
         """Block until the commit in flight is done; raise its error if ``raise_error``."""
@@ -191,8 +205,14 @@ class ProcessWriter:
             raise StoreError(f"{self.path}: commit failed: {reply['error']}")
 
     def close(self) -> None:
-        """Finish the commit in flight, stop the helper and free the shared memory."""
+        """Finish the commit in flight, stop the helper and free the shared memory.
+
+        A helper that never got a job has written nothing: it is killed rather than waited
+        for (at its low priority on a busy machine, its start-up alone can take seconds).
+        """
         self.wait(raise_error=False)
+        if not self._used:
+            self._proc.kill()
         try:
             self._stdin.write(b'{"op": "exit"}\n')
             self._stdin.close()
@@ -248,6 +268,10 @@ class Committer:
         if self._process is not None and self._current is self._thread and self._process.ready():
             self._current = self._process
         self._current.submit(job, rows)
+
+    def busy(self) -> bool:
+        """True while a commit is in flight (never blocks)."""
+        return self._current.busy()
 
     def wait(self, *, raise_error: bool = True) -> None:
         """Block until the commit in flight is done (re-raising its error if asked)."""
