@@ -1,7 +1,7 @@
 #!/usr/bin/env bash
 # A fresh install works: `pip install .` WITHOUT extras into a new virtual environment, then
-# the README's main commands on a tiny run (sample, diagnose, summarise, plot, export to
-# .nc/.zarr/.csv). Catches a feature whose dependency is only in the `test` extra.
+# the README's main commands on a tiny run (sample, decide burn-in, diagnose, results-table,
+# plot, export to .nc/.zarr/.csv, inspect). Catches a feature whose dependency is only in the `test` extra.
 # Usage: .ci/fresh_install_check.sh [PYTHON]   (about a minute; pip's cache makes it faster)
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -40,16 +40,18 @@ cd "$WORK"
 for r in 0 1; do
   "$CY" sample run.yaml --out "r$r.zarr" --replica "$r" --progress off
 done
+"$CY" --help > /dev/null
+"$CY" decide burn-in r0.zarr r1.zarr --out burn_in.json
 # diagnose exits 1 when the targets are not met (a tiny run may miss them): not a failure here
 set +e
-"$CY" diagnose r0.zarr r1.zarr
+"$CY" diagnose r0.zarr r1.zarr --burn-in-record burn_in.json
 status=$?
 set -e
 if [ "$status" -ne 0 ] && [ "$status" -ne 1 ]; then
   echo "fresh install: diagnose exited $status" >&2
   exit 1
 fi
-"$CY" summarise r0.zarr r1.zarr --raw > summary.csv
+"$CY" results-table r0.zarr r1.zarr --burn-in-record burn_in.json > summary.csv
 "$CY" plot r0.zarr r1.zarr --raw -o plots
 for ext in nc zarr csv; do
   "$CY" export r0.zarr r1.zarr --raw -o "run.$ext"
@@ -63,4 +65,5 @@ import h5py  # netCDF export needs it: declared in the main dependencies
 with h5py.File("run.nc", "r") as f:
     assert "posterior" in f, list(f)
 PY
-echo "fresh install: sample, diagnose, summarise, plot, export (.nc .zarr .csv) ok"
+"$CY" inspect r0.zarr > /dev/null
+echo "fresh install: sample, decide, diagnose, results-table, plot, export (.nc .zarr .csv), inspect ok"
