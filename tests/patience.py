@@ -55,4 +55,4 @@ def patient(seconds: float) -> float:
     be reaped, a helper to follow its parent out) that should stay shorter than a whole
     ``PATIENCE`` yet must not fail only because the machine is slow.
     """
-    return max(seconds, min(PATIENCE, seconds * PATIENCE / IDLE_PATIENCE))
+    return float(max(seconds, min(PATIENCE, seconds * PATIENCE / IDLE_PATIENCE)))
