@@ -14,6 +14,7 @@ import pytest
 import yaml
 
 import chainyard
+from tests.patience import PATIENCE
 
 GAUSS_MODEL = """
 import numpy as np
@@ -80,9 +81,13 @@ def base_config(**changes: Any) -> dict[str, Any]:
 
 
 def cli(
-    *args: str, cwd: Path | None = None, timeout: float = 300, env: dict[str, str] | None = None
+    *args: str,
+    cwd: Path | None = None,
+    timeout: float = PATIENCE,
+    env: dict[str, str] | None = None,
 ) -> subprocess.CompletedProcess[str]:
-    """Run ``chainyard ARGS`` in a fresh Python process."""
+    """Run ``chainyard ARGS`` in a fresh Python process (``timeout`` only turns a hang into a
+    failure: see tests/patience.py)."""
     return subprocess.run(
         [sys.executable, "-m", "chainyard.cli", *args],
         cwd=cwd,

@@ -46,6 +46,8 @@ from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from tests.patience import PATIENCE, patient
+
 PACKAGES = ("slurm-wlm", "munge")
 #: the programs the cluster needs (absolute paths: root's PATH may lack /usr/sbin)
 PROGRAMS = {
@@ -63,8 +65,9 @@ NODE = "localhost"
 PREFIX = "cy-slurm"
 OWNER_FILE = "owner.pid"
 PARTITION = "debug"
-#: seconds a finished job stays visible to squeue (Snakemake's plugin polls with squeue)
-MIN_JOB_AGE = 600
+#: seconds a finished job stays visible to squeue (Snakemake's plugin polls with squeue);
+#: at least as long as a test may wait for a run, so no record is gone before it is read
+MIN_JOB_AGE = max(600, int(PATIENCE))
 #: the node offers at least this much, whatever the machine has: rules ask for up to 4 GB
 #: and tests may ask for more threads than the machine has cores (nothing is enforced:
 #: no cgroups, the node is declared as configured)
@@ -92,7 +95,7 @@ def unavailable_reason() -> str | None:
     return None
 
 
-def ensure_packages(log: Path, timeout: float = 300) -> float:
+def ensure_packages(log: Path, timeout: float = PATIENCE) -> float:
     """Install the Debian packages of SLURM and munge if missing; return seconds spent.
 
     Tries ``apt-get install`` first and runs ``apt-get update`` only if that fails (a fresh
@@ -165,7 +168,9 @@ class SlurmCluster:
         path = f"{self.root / 'bin'}:{os.environ.get('PATH', '/usr/bin:/bin')}"
         return {**os.environ, "SLURM_CONF": str(self.conf), "PATH": path}
 
-    def command(self, *args: str, timeout: float = 30) -> subprocess.CompletedProcess[str]:
+    def command(
+        self, *args: str, timeout: float = patient(30)
+    ) -> subprocess.CompletedProcess[str]:
         """Run a SLURM command (``squeue``, ``scancel``...) against this cluster."""
         return subprocess.run([str(self.root / "bin" / args[0]), *args[1:]], env=self.env(),
                               capture_output=True, text=True, timeout=timeout, check=False)
@@ -237,7 +242,7 @@ class SlurmCluster:
                 proc.wait(timeout=15)
             except subprocess.TimeoutExpired:
                 proc.kill()
-                proc.wait(timeout=15)
+                proc.wait(timeout=patient(15))
         leftovers = self.job_processes()  # job steps and processes that outlived their jobs
         for pid in leftovers:
             with contextlib.suppress(OSError):
@@ -292,14 +297,14 @@ class SlurmCluster:
                     f"--pid-file={r / 'munge/run/munged.pid'}",
                     f"--log-file={r / 'munge/log/munged.log'}",
                     f"--seed-file={r / 'munge/lib/munged.seed'}")
-        self._wait("munged", sock.exists, 15)
+        self._wait("munged", sock.exists, PATIENCE)
         self._write_conf(sock)
         self._write_wrappers()
         self._spawn("slurmctld", "-D", "-f", str(self.conf))
         self._wait("slurmctld", lambda: self.command("scontrol", "ping").returncode == 0
-                   and "UP" in self.command("scontrol", "ping").stdout, 30)
+                   and "UP" in self.command("scontrol", "ping").stdout, PATIENCE)
         self._spawn("slurmd", "-D", "-f", str(self.conf), "-N", NODE)
-        self._wait("the node to take jobs", self._node_ready, 30)
+        self._wait("the node to take jobs", self._node_ready, PATIENCE)
         exposed = {a for a in self.listening_addresses() if not a.startswith("127.")}
         if exposed:
             raise RuntimeError(f"SLURM daemons listen beyond loopback: {sorted(exposed)}")

@@ -19,6 +19,7 @@ from pathlib import Path
 import pytest
 
 from tests.conftest import assert_same_store, base_config, cli, write_run
+from tests.patience import PATIENCE
 
 pytest.importorskip("distributed")
 
@@ -91,10 +92,10 @@ def _run(folder: Path, steps: int = 100) -> Path:
 
 
 def _wait_for_commit(store: Path, proc: subprocess.Popen[str]) -> None:
-    deadline = time.monotonic() + 300  # generous: a condition, not a speed limit
+    deadline = time.monotonic() + PATIENCE  # a condition, not a speed limit
     while not (store / "commit.json").exists():
         assert proc.poll() is None, proc.communicate()
-        assert time.monotonic() < deadline, "no commit within 300 s"
+        assert time.monotonic() < deadline, f"no commit within {PATIENCE:g} s"
         time.sleep(0.05)
 
 
@@ -138,7 +139,7 @@ def test_a_worker_killed_mid_run_changes_no_draw(tmp_path: Path, cluster: Cluste
     proc = _popen("sample", str(config), "--out", str(out), "--workers", cluster.url)
     _wait_for_commit(out, proc)
     os.kill(cluster.workers[0], signal.SIGKILL)  # its tasks are run again on the other worker
-    _, err = proc.communicate(timeout=600)
+    _, err = proc.communicate(timeout=PATIENCE)
     assert proc.returncode == 0, err
     assert cli("sample", str(config), "--out", str(tmp_path / "serial.zarr")).returncode == 0
     assert_same_store(tmp_path / "serial.zarr", out)
@@ -152,7 +153,7 @@ def test_a_lost_cluster_ends_in_one_line_and_resumes_exactly(
     proc = _popen("sample", str(config), "--out", str(out), "--workers", cluster.url)
     _wait_for_commit(out, proc)
     cluster.kill()  # scheduler and workers at once
-    _, err = proc.communicate(timeout=600)
+    _, err = proc.communicate(timeout=PATIENCE)
     assert proc.returncode == 3, err
     last = [line for line in err.splitlines() if line.startswith("chainyard: error:")]
     assert len(last) == 1 and "Dask" in last[0] and "Traceback" not in err, err
@@ -199,7 +200,7 @@ def test_dask_without_an_address_is_one_line(tmp_path: Path) -> None:
         capture_output=True,
         text=True,
         env=env,
-        timeout=300,
+        timeout=PATIENCE,
     )
     assert proc.returncode == 2, proc.stderr
     assert proc.stderr.strip().count("\n") == 0 and "DASK_SCHEDULER_ADDRESS" in proc.stderr

@@ -24,6 +24,7 @@ from chainyard.diagnostics import (
 )
 from chainyard.diagnostics.nested import nested_rhat
 from chainyard.store import Store
+from tests.patience import PATIENCE
 
 PHI = 0.9
 TAU = (1.0 + PHI) / (1.0 - PHI)  # AR(1) integrated autocorrelation time, analytic: 19
@@ -128,7 +129,7 @@ def test_diagnose_completes_under_a_limit_smaller_than_the_store(tmp_path: Path)
         capture_output=True,
         text=True,
         env=env,
-        timeout=1800,  # generous: the CI machine may be shared
+        timeout=PATIENCE,  # a hang, not a slow machine, must fail
         check=False,
     )
     lines = [ln for ln in proc.stdout.splitlines() if ln.startswith("RESULT ")]

@@ -15,6 +15,7 @@ import pytest
 
 import chainyard
 from tests.conftest import SLOW_MODEL, assert_same_store, base_config, cli, popen_cli, write_run
+from tests.patience import PATIENCE
 
 # 2,400 steps with chunks of 64 steps and commits every 50 steps: commits cut chunks in the
 # middle, so kills land before, inside and after chunk writes and commit-record renames.
@@ -47,7 +48,9 @@ def test_two_processes_identical(run_dir: Path, tmp_path: Path) -> None:
     assert 0.0 < store.accepted().mean() < 1.0
 
 
-def _wait_for_commits(proc_start: float, store: Path, min_steps: int, timeout: float) -> None:
+def _wait_for_commits(
+    proc_start: float, store: Path, min_steps: int, timeout: float = PATIENCE
+) -> None:
     """Wait until ``store`` has at least ``min_steps`` committed (or the time runs out)."""
     while time.monotonic() - proc_start < timeout:
         try:
@@ -79,12 +82,12 @@ def test_sigkill_then_resume_is_exact(
         start = time.monotonic()
         # wait until the run is under way (past imports and the first commits), then a
         # random extra delay so the kill lands at an arbitrary point of the commit cycle
-        _wait_for_commits(start, out, 100 + 800 * attempt, timeout=60)
+        _wait_for_commits(start, out, 100 + 800 * attempt)
         time.sleep(float(rng.uniform(0.0, 0.5)))
         if proc.poll() is None:
             proc.send_signal(signal.SIGKILL)
             kills += 1
-        proc.wait(timeout=60)
+        proc.wait(timeout=PATIENCE)
     assert kills >= 1
     mid = chainyard.open_store(out).steps_done
     assert mid < 2400
@@ -100,9 +103,9 @@ def test_sigterm_commits_and_resumes(writer: str, tmp_path: Path, reference: Pat
     cfg = write_run(tmp_path, _with_writer(writer), SLOW_MODEL)
     out = tmp_path / "term.zarr"
     proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off")
-    _wait_for_commits(time.monotonic(), out, 300, timeout=60)
+    _wait_for_commits(time.monotonic(), out, 300)
     proc.send_signal(signal.SIGTERM)
-    _, err = proc.communicate(timeout=60)
+    _, err = proc.communicate(timeout=PATIENCE)
     assert proc.returncode == 143, err
     assert "stopped by SIGTERM at step" in err
     assert 300 <= chainyard.open_store(out).steps_done < 2400

@@ -21,6 +21,7 @@ from pathlib import Path
 import pytest
 
 from tests.conftest import cli, run_dir  # noqa: F401 - run_dir is a fixture
+from tests.patience import PATIENCE
 
 pytest.importorskip("s3fs")
 pytest.importorskip("moto")
@@ -50,7 +51,7 @@ def s3_env() -> Iterator[dict[str, str]]:
         "AWS_SECRET_ACCESS_KEY": SECRET,
         "AWS_DEFAULT_REGION": "us-east-1",
     }
-    deadline = time.monotonic() + 120  # a condition with a generous limit
+    deadline = time.monotonic() + PATIENCE  # a condition, not a speed limit
     while True:
         try:
             socket.create_connection(("127.0.0.1", port), timeout=1).close()
@@ -138,7 +139,7 @@ def test_missing_bucket_and_credentials_are_one_line(published: Path, tmp_path: 
     }
     proc = subprocess.run(
         [sys.executable, "-m", "chainyard.cli", "inspect", "s3://results/kiln/replica-0.zarr"],
-        capture_output=True, text=True, env=env, timeout=300,
+        capture_output=True, text=True, env=env, timeout=PATIENCE,
     )  # fmt: skip
     assert proc.returncode == 4 and proc.stderr.count("\n") == 1, proc.stderr
     assert "credentials" in proc.stderr

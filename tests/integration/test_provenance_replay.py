@@ -17,6 +17,7 @@ from chainyard.provenance.record import provenance_record
 from chainyard.provenance.replay import replay
 from chainyard.store import Store, chunk_checksum
 from tests.conftest import base_config, cli, popen_cli, write_run
+from tests.patience import PATIENCE
 
 BLOB_MODEL = """
 import numpy as np
@@ -130,13 +131,13 @@ def test_resume_after_sigterm_replays_exactly(tmp_path: Path) -> None:
     """A run stopped by SIGTERM and resumed records the resume; replaying it matches bitwise."""
     cfg = _run(tmp_path, 300, slow=True)
     first = popen_cli("sample", str(cfg), "--out", "s.zarr", "--progress", "off", cwd=tmp_path)
-    deadline = time.monotonic() + 60
+    deadline = time.monotonic() + PATIENCE
     commit = tmp_path / "s.zarr" / "commit.json"
     while not commit.exists() or json.loads(commit.read_text())["steps_done"] < 50:
         assert time.monotonic() < deadline and first.poll() is None
         time.sleep(0.02)
     first.terminate()
-    assert first.wait(timeout=60) == 143
+    assert first.wait(timeout=PATIENCE) == 143
     chainyard.sample(chainyard.load_config(cfg), tmp_path / "s.zarr", progress="off")
     record = provenance_record(tmp_path / "s.zarr")
     kinds = [s["kind"] for s in record["runs"][0]["segments"]]

@@ -20,6 +20,7 @@ import pytest
 
 import chainyard
 from tests.conftest import SLOW_MODEL, assert_same_store, cli, popen_cli, write_run
+from tests.patience import PATIENCE
 
 STEPS = 1200
 STORAGE = {"chunk_steps": 64, "commit_every_steps": 50, "commit_every_seconds": 0.05}
@@ -111,7 +112,7 @@ def test_sigkill_then_resume_is_exact(
     out = tmp_path / "killed.zarr"
     proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off")
     start = time.monotonic()
-    while time.monotonic() - start < 60 and proc.poll() is None:
+    while time.monotonic() - start < PATIENCE and proc.poll() is None:
         try:
             if chainyard.open_store(out).steps_done >= 100:
                 break
@@ -121,7 +122,7 @@ def test_sigkill_then_resume_is_exact(
     time.sleep(0.05)
     assert proc.poll() is None, "the run ended before it could be killed; slow it down"
     proc.send_signal(signal.SIGKILL)
-    proc.wait(timeout=60)
+    proc.wait(timeout=PATIENCE)
     mid = chainyard.open_store(out).steps_done
     assert 100 <= mid < STEPS
     err = _sample(cfg, out)

@@ -14,6 +14,7 @@ from pathlib import Path
 import pytest
 
 from tests.conftest import write_run
+from tests.patience import PATIENCE
 
 _PROBE = (
     "import atexit, json, sys\n"
@@ -44,7 +45,7 @@ def _modules(tmp_path: Path, *args: str) -> set[str]:
         cwd=tmp_path,
         capture_output=True,
         text=True,
-        timeout=600,
+        timeout=PATIENCE,
     )
     assert res.returncode == 0, res.stderr
     return set(json.loads(out.read_text()))
@@ -70,7 +71,7 @@ def store(tmp_path_factory: pytest.TempPathFactory) -> Path:
         cwd=folder,
         capture_output=True,
         text=True,
-        timeout=600,
+        timeout=PATIENCE,
     )
     assert res.returncode == 0, res.stderr
     return folder / "s.zarr"
@@ -88,7 +89,7 @@ def test_help_still_lists_every_command(tmp_path: Path) -> None:
         [sys.executable, "-m", "chainyard.cli", "--help"],
         capture_output=True,
         text=True,
-        timeout=600,
+        timeout=PATIENCE,
     )
     assert res.returncode == 0
     commands = ("sample", "diagnose", "export", "results-table", "status", "plot", "inspect")

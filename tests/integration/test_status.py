@@ -20,6 +20,7 @@ from pathlib import Path
 import pytest
 
 from tests.conftest import SLOW_MODEL, base_config, cli, write_run
+from tests.patience import PATIENCE
 
 pytestmark = pytest.mark.slow  # real samplers (one kept running while the tests look)
 
@@ -50,8 +51,8 @@ def _steps(store: Path) -> int:
         return 0
 
 
-def _wait(condition, what: str, limit: float = 300.0) -> None:  # type: ignore[no-untyped-def]
-    """Wait for ``condition()`` (generous limit: the machine is shared)."""
+def _wait(condition, what: str, limit: float = PATIENCE) -> None:  # type: ignore[no-untyped-def]
+    """Wait for ``condition()`` (the limit only turns a hang into a failure)."""
     end = time.monotonic() + limit
     while not condition():
         if time.monotonic() > end:

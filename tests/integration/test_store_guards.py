@@ -9,6 +9,7 @@ import numpy as np
 
 import chainyard
 from tests.conftest import GAUSS_MODEL, base_config, cli, popen_cli, tree_snapshot, write_run
+from tests.patience import PATIENCE, patient
 
 
 def _finished(tmp_path: Path, **changes: object) -> Path:
@@ -82,11 +83,14 @@ def test_second_writer_gets_lock_error(tmp_path: Path) -> None:
     path = write_run(tmp_path, cfg)
     first = popen_cli("sample", str(path), "--out", "s.zarr", "--progress", "off", cwd=tmp_path)
     try:
-        deadline = time.monotonic() + 60
+        deadline = time.monotonic() + PATIENCE
         while not (tmp_path / "s.zarr" / "commit.json").exists():
             assert time.monotonic() < deadline
             time.sleep(0.05)
-        res = cli("sample", str(path), "--out", "s.zarr", cwd=tmp_path, timeout=60)
+        # part of what is tested: the second writer fails fast instead of waiting for the
+        # lock, which the first run (10 million steps) would hold for hours; the bound is
+        # generous for a loaded machine (see tests/patience.py)
+        res = cli("sample", str(path), "--out", "s.zarr", cwd=tmp_path, timeout=patient(60))
         assert res.returncode == 6
         assert res.stderr.strip() == (
             "chainyard: error: s.zarr: another process is writing this store (lock "
@@ -94,7 +98,7 @@ def test_second_writer_gets_lock_error(tmp_path: Path) -> None:
         )
     finally:
         first.terminate()
-        first.wait(timeout=60)
+        first.wait(timeout=PATIENCE)
     assert first.returncode == 143
 
 

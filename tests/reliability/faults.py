@@ -33,6 +33,7 @@ import numpy as np
 import pytest
 
 import chainyard
+from tests.patience import PATIENCE, patient
 
 __all__ = [
     "KillPlan",
@@ -63,7 +64,7 @@ def run(
     cwd: Path | None = None,
     env: dict[str, str] | None = None,
     preexec_fn: Callable[[], None] | None = None,
-    timeout: float = 300,
+    timeout: float = PATIENCE,
 ) -> subprocess.CompletedProcess[str]:
     """Run ``chainyard ARGS`` to the end in a fresh process; stdout/stderr captured."""
     return subprocess.run(
@@ -102,7 +103,9 @@ def _group_alive(pgid: int) -> bool:
     return True
 
 
-def kill(proc: subprocess.Popen[str], *, group: bool = False, timeout: float = 20) -> bool:
+def kill(
+    proc: subprocess.Popen[str], *, group: bool = False, timeout: float = patient(20)
+) -> bool:
     """SIGKILL ``proc`` (or its whole process group) unless it has ended.
 
     Waits until no process of its group is left (a commit helper must not outlive its
@@ -133,7 +136,7 @@ def kill(proc: subprocess.Popen[str], *, group: bool = False, timeout: float = 2
 
 
 def wait_for(
-    predicate: Callable[[], bool], proc: subprocess.Popen[str], timeout: float = 180
+    predicate: Callable[[], bool], proc: subprocess.Popen[str], timeout: float = PATIENCE
 ) -> bool:
     """Poll ``predicate`` every ~2 ms until it holds (True) or ``proc`` ends (False)."""
     deadline = time.monotonic() + timeout

@@ -794,7 +794,7 @@ def test_bad_input_in_a_real_process(case_id: str, tmp_path: Path, tally: Tally)
     case = next(c for c in CASES if c.id == case_id)
     folder = tmp_path / "run"
     argv = _setup(case, folder)
-    res = cli(*argv, cwd=tmp_path, timeout=120)
+    res = cli(*argv, cwd=tmp_path)
     _assert_one_line(res.stderr, case.code, case, res.returncode)
     assert not (folder / "new.zarr").exists()
     tally.input()

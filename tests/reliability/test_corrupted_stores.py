@@ -29,6 +29,7 @@ import pytest
 from chainyard.errors import ChainyardError, StoreError
 from chainyard.store import Store
 from tests.conftest import base_config, cli, write_run
+from tests.patience import PATIENCE
 from tests.reliability.conftest import Tally, snapshot
 
 BLOB_MODEL = """
@@ -425,7 +426,7 @@ def run_commands(
     }
     results = {}
     for name, proc in procs.items():
-        out, err = proc.communicate(timeout=120)
+        out, err = proc.communicate(timeout=PATIENCE)
         results[name] = (proc.returncode, out, err)
     return results
 

@@ -164,7 +164,7 @@ def test_model_fault_while_extending(
     before = _committed_chunks(store)
     res = cli(
         "sample", str(config), "--out", str(store), "--steps", MORE, "--progress", "off",
-        env={"CY_FAULT": fault}, timeout=120,
+        env={"CY_FAULT": fault},
     )  # fmt: skip
     tally.fault()
     line = _one_line(res.stderr)

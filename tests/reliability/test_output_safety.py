@@ -24,6 +24,7 @@ import pytest
 
 import chainyard
 from tests.conftest import assert_same_store, base_config, cli, popen_cli, write_run
+from tests.patience import PATIENCE
 from tests.reliability.conftest import Tally, snapshot
 
 pytestmark = pytest.mark.slow
@@ -221,7 +222,7 @@ def test_replaces_a_derived_store(
 # ------------------------------------------------------------------ one writer (exit 6)
 
 
-def _wait_for(cond, seconds: float = 60) -> None:  # type: ignore[no-untyped-def]
+def _wait_for(cond, seconds: float = PATIENCE) -> None:  # type: ignore[no-untyped-def]
     end = time.monotonic() + seconds
     while not cond():
         assert time.monotonic() < end, "timed out"
@@ -243,7 +244,7 @@ def test_second_derive_of_the_same_output_exits_6(
         assert "another process is writing" in line and str(out) in line
     finally:
         os.kill(first.pid, signal.SIGCONT)
-    _, err = first.communicate(timeout=120)
+    _, err = first.communicate(timeout=PATIENCE)
     assert first.returncode == 0, err
     same_derived(out, references["full"])
     verify_ok(out)
@@ -259,7 +260,7 @@ def test_concurrent_derives_leave_one_complete_output(
         procs = [popen_cli(*DERIVE0, str(source), "--out", str(out)) for _ in range(2)]
         codes = []
         for p in procs:
-            _, err = p.communicate(timeout=120)
+            _, err = p.communicate(timeout=PATIENCE)
             codes.append(p.returncode)
             assert p.returncode in (0, 6), err
             assert "Traceback" not in err
@@ -338,7 +339,7 @@ def test_random_kills_leave_old_or_new_store(
         if proc.poll() is None:
             proc.kill()
             kills += 1
-        proc.communicate(timeout=60)
+        proc.communicate(timeout=PATIENCE)
         after = "trimmed" if chainyard.open_store(out).attrs["derived"]["discard"] else "full"
         same_derived(out, references[after])  # the old or the new store, complete
     assert kills >= 3, f"only {kills} of 6 derives were still running when killed"
@@ -419,7 +420,7 @@ def _inject(
         [sys.executable, "-c", code, *args],
         capture_output=True,
         text=True,
-        timeout=120,
+        timeout=PATIENCE,
         env={**os.environ, **(env or {})},
     )
 
@@ -474,7 +475,7 @@ def test_closed_stdout_ends_quietly(source: Path) -> None:
         assert proc.stdout is not None and proc.stderr is not None
         proc.stdout.close()  # like `| head -0`: the reader exits before chainyard writes
         err = proc.stderr.read().decode()
-        assert proc.wait(timeout=120) == 0, err
+        assert proc.wait(timeout=PATIENCE) == 0, err
         assert err == ""
 
 

@@ -21,6 +21,7 @@ import chainyard
 from chainyard.errors import StoreConflictError
 from chainyard.store import writer_lock
 from tests.conftest import base_config, cli, write_run
+from tests.patience import PATIENCE, patient
 from tests.reliability.conftest import Tally, snapshot
 
 pytestmark = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="flock on Linux")
@@ -31,7 +32,7 @@ HOLDER = textwrap.dedent(
     from chainyard.store import writer_lock
     with writer_lock(sys.argv[1]):
         print("held", flush=True)
-        time.sleep(120)
+        time.sleep(float(sys.argv[2]))  # held until killed: as long as any test may wait
     """
 )
 
@@ -57,7 +58,10 @@ def holder() -> Iterator[Callable[[str, Path], subprocess.Popen[str]]]:
 
     def start(path: str, cwd: Path) -> subprocess.Popen[str]:
         proc = subprocess.Popen(
-            [sys.executable, "-c", HOLDER, path], cwd=cwd, stdout=subprocess.PIPE, text=True
+            [sys.executable, "-c", HOLDER, path, str(PATIENCE)],
+            cwd=cwd,
+            stdout=subprocess.PIPE,
+            text=True,
         )
         procs.append(proc)
         assert proc.stdout is not None and proc.stdout.readline().strip() == "held"
@@ -66,7 +70,7 @@ def holder() -> Iterator[Callable[[str, Path], subprocess.Popen[str]]]:
     yield start
     for proc in procs:
         proc.kill()
-        proc.wait(timeout=30)
+        proc.wait(timeout=patient(30))
 
 
 # (holder's path, holder's cwd, writer's --out, writer's cwd), folders relative to the root
@@ -99,7 +103,6 @@ def test_alias_is_locked(case: str, made: Path, holder: Callable, tally: Tally) 
         "--progress",
         "off",
         cwd=made / cwd,
-        timeout=120,
     )
     tally.input()
     assert res.returncode == 6, res.stderr
@@ -136,7 +139,7 @@ def test_inherited_descriptor_keeps_the_store_locked(tmp_path: Path) -> None:
     with writer_lock(store) as lock:
         assert lock.fd is not None
         child = subprocess.Popen(
-            [sys.executable, "-c", "import sys, time; print('ok', flush=True); time.sleep(60)"],
+            [sys.executable, "-c", f"print('ok', flush=True); import time; time.sleep({PATIENCE})"],
             pass_fds=[lock.fd],
             stdout=subprocess.PIPE,
             text=True,
@@ -147,7 +150,7 @@ def test_inherited_descriptor_keeps_the_store_locked(tmp_path: Path) -> None:
             pass
     finally:
         child.kill()
-        child.wait(timeout=30)
+        child.wait(timeout=patient(30))
     with writer_lock(store) as lock:  # the kernel dropped it with the child
         assert lock.held
 

@@ -26,6 +26,7 @@ from pathlib import Path
 import pytest
 
 from tests.conftest import base_config, cli, write_run
+from tests.patience import PATIENCE
 from tests.reliability.conftest import snapshot
 
 pytestmark = pytest.mark.slow
@@ -126,7 +127,7 @@ def run_batch(jobs: list[Job], scratch: Path) -> list[Run]:
         input=json.dumps(spec),
         capture_output=True,
         text=True,
-        timeout=900,
+        timeout=PATIENCE,
     )
     assert proc.returncode == 0, proc.stderr
     out = []

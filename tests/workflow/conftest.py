@@ -11,6 +11,8 @@ from typing import Any
 
 import yaml
 
+from tests.patience import PATIENCE
+
 SNAKEFILE = """\
 import chainyard.workflow
 
@@ -72,7 +74,7 @@ def write_config(folder: Path, runs: dict[str, Any], **settings: Any) -> None:
     (folder / "config" / "config.yaml").write_text(yaml.safe_dump(cfg, sort_keys=False))
 
 
-def snakemake(folder: Path, *args: str, timeout: float = 600,
+def snakemake(folder: Path, *args: str, timeout: float = PATIENCE,
               env: dict[str, str] | None = None) -> subprocess.CompletedProcess[str]:
     """Run real snakemake in ``folder``."""
     return subprocess.run(

@@ -14,6 +14,7 @@ import pytest
 
 import chainyard
 from tests.conftest import assert_same_store
+from tests.patience import PATIENCE
 from tests.workflow.conftest import (
     gauss_run,
     make_workflow,
@@ -329,14 +330,14 @@ def log_prob(theta, data):
 """
 
 
-def _wait_for_file(path: Path, timeout: float = 120) -> None:
+def _wait_for_file(path: Path, timeout: float = PATIENCE) -> None:
     deadline = time.monotonic() + timeout
     while not path.exists():
         assert time.monotonic() < deadline, f"{path} did not appear"
         time.sleep(0.05)
 
 
-def _wait_for_steps(store: Path, steps: int, timeout: float = 120) -> None:
+def _wait_for_steps(store: Path, steps: int, timeout: float = PATIENCE) -> None:
     deadline = time.monotonic() + timeout
     while True:
         try:
@@ -345,6 +346,20 @@ def _wait_for_steps(store: Path, steps: int, timeout: float = 120) -> None:
         except chainyard.StoreError:
             pass
         assert time.monotonic() < deadline
+        time.sleep(0.05)
+
+
+def _wait_until_gone(pid: int, timeout: float = PATIENCE) -> None:
+    """Wait until process ``pid`` has ended (gone, or a zombie: its files are closed)."""
+    deadline = time.monotonic() + timeout
+    while True:
+        try:
+            stat = Path(f"/proc/{pid}/stat").read_text()
+        except OSError:
+            return
+        if stat.rsplit(")", 1)[1].split()[0] == "Z":
+            return
+        assert time.monotonic() < deadline, f"process {pid} did not end"
         time.sleep(0.05)
 
 
@@ -363,7 +378,7 @@ def test_sigkill_job_then_rerun_resumes(tmp_path: Path, flags: tuple[str, ...]) 
     resumable = folder / "results" / "gauss" / ".resumable" / "replica-0.zarr"
     _wait_for_steps(resumable, 300)
     os.kill(int((folder / "models" / "pid").read_text()), signal.SIGKILL)
-    proc.wait(timeout=120)
+    proc.wait(timeout=PATIENCE)
     assert proc.returncode != 0
     done = chainyard.open_store(resumable).steps_done
     assert 300 <= done < 1500
@@ -402,7 +417,7 @@ def test_killed_snakemake_orphan_holds_lock(tmp_path: Path) -> None:
     resumable = folder / "results" / "gauss" / ".resumable" / "replica-0.zarr"
     _wait_for_steps(resumable, 200)
     proc.send_signal(signal.SIGKILL)  # the main process only; the job runs on as an orphan
-    proc.wait(timeout=60)
+    proc.wait(timeout=PATIENCE)
     orphan = int((folder / "models" / "pid").read_text())
     assert snakemake(folder, "--unlock").returncode == 0
     res = snakemake(folder, "--cores", "1")
@@ -410,7 +425,7 @@ def test_killed_snakemake_orphan_holds_lock(tmp_path: Path) -> None:
     log = (folder / "results" / "logs" / "gauss" / "sample-replica-0.log").read_text()
     assert "another process is writing this store" in log
     os.kill(orphan, signal.SIGKILL)
-    time.sleep(0.5)
+    _wait_until_gone(orphan)  # its lock goes with it (a fixed sleep was too short under load)
     res = snakemake(folder, "--cores", "1")
     assert res.returncode == 0, res.stdout + res.stderr
     assert chainyard.open_store(folder / "results/gauss/draws/replica-0.zarr").steps_done == 1500

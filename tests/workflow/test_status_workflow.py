@@ -21,6 +21,7 @@ from typing import Any
 import pytest
 
 from tests.conftest import cli
+from tests.patience import PATIENCE, patient
 from tests.workflow.conftest import gauss_run, make_workflow, popen_snakemake
 
 pytestmark = pytest.mark.slow
@@ -46,8 +47,8 @@ CHROMIUM_FLAGS = (
 )  # fmt: skip
 
 
-def _wait(condition: Callable[[], Any], what: str, limit: float = 600.0) -> Any:
-    """Wait for ``condition()`` to be truthy (a generous limit: the machine is shared)."""
+def _wait(condition: Callable[[], Any], what: str, limit: float = PATIENCE) -> Any:
+    """Wait for ``condition()`` to be truthy (the limit only turns a hang into a failure)."""
     end = time.monotonic() + limit
     while True:
         value = condition()
@@ -153,7 +154,7 @@ def test_status_of_a_running_workflow(workflow: tuple[Path, subprocess.Popen[str
 
 
 def _title(port: int) -> str:
-    with urllib.request.urlopen(f"http://127.0.0.1:{port}/json/list", timeout=30) as r:
+    with urllib.request.urlopen(f"http://127.0.0.1:{port}/json/list", timeout=patient(30)) as r:
         pages = [p for p in json.load(r) if p.get("type") == "page"]
     return str(pages[0]["title"]) if pages else ""
 
@@ -183,7 +184,7 @@ def test_html_page_in_headless_chromium(workflow: tuple[Path, subprocess.Popen[s
         dump = subprocess.run(
             [browser, *CHROMIUM_FLAGS, f"--user-data-dir={profile / 'dump'}", "--dump-dom",
              page.as_uri()],
-            capture_output=True, text=True, timeout=600,
+            capture_output=True, text=True, timeout=PATIENCE,
         )  # fmt: skip
         assert dump.returncode == 0, dump.stderr[-2000:]
         shown = set(re.findall(r'<tr class="run" data-run="([^"]+)"', dump.stdout))
@@ -210,6 +211,6 @@ def test_html_page_in_headless_chromium(workflow: tuple[Path, subprocess.Popen[s
             os.killpg(live.pid, signal.SIGKILL)
             live.wait()
         watcher.send_signal(signal.SIGINT)
-        watcher.wait(timeout=120)
+        watcher.wait(timeout=PATIENCE)
         shutil.rmtree(profile, ignore_errors=True)
     assert watcher.returncode == 0, watcher.stderr.read() if watcher.stderr else ""
