@@ -100,17 +100,33 @@ def test_command_parses(page: Path, number: int, command: str) -> None:
 LINK = re.compile(r"\]\(([^)\s]+)\)")
 
 
+def anchors(path: Path) -> set[str]:
+    """The heading anchors of a Markdown file, made as GitHub makes them: lower case,
+    punctuation other than ``-`` and ``_`` dropped, spaces as ``-`` (common practice, no
+    source; repeated headings' ``-1`` suffixes are not made)."""
+    found = set()
+    for line in path.read_text().splitlines():
+        match = re.match(r"#{1,6} (.+)", line)
+        if match:
+            found.add(re.sub(r"[^\w\- ]", "", match.group(1).strip().lower()).replace(" ", "-"))
+    return found
+
+
 @pytest.mark.parametrize("page", PAGES, ids=lambda p: p.name)
 def test_relative_links_exist(page: Path) -> None:
-    """Every relative link of the page names an existing file (anchors are not checked)."""
+    """Every relative link of the page names an existing file, and its ``#anchor`` (if any)
+    a heading of that file (or of the page itself)."""
     broken = []
     for number, line in enumerate(page.read_text().splitlines(), 1):
         for target in LINK.findall(line):
-            if re.match(r"[a-z][a-z0-9+.-]*:", target) or target.startswith("#"):
-                continue  # http:, mailto:, an anchor on the same page
-            path = target.split("#", 1)[0]
-            if not (page.parent / path).exists():
+            if re.match(r"[a-z][a-z0-9+.-]*:", target):
+                continue  # http:, mailto:
+            path, _, anchor = target.partition("#")
+            file = page.parent / path if path else page
+            if not file.exists():
                 broken.append(f"{page.relative_to(ROOT)}:{number}: {target}")
+            elif anchor and file.suffix == ".md" and anchor not in anchors(file):
+                broken.append(f"{page.relative_to(ROOT)}:{number}: {target} (no such heading)")
     assert not broken, "broken links: " + "; ".join(broken)
 
 
