@@ -153,8 +153,8 @@ def reader_jobs(store: Path, work: Path, bi: Path) -> dict[str, Job]:
     """Every command that reads a store's rows, each writing (if at all) below ``work``."""
     s = str(store)
     return {
-        "diagnose": Job(("diagnose", s), work),
-        "summarise": Job(("summarise", s, "--raw"), work),
+        "diagnose": Job(("diagnose", s, "--raw"), work),
+        "summarise": Job(("results-table", s, "--raw"), work),
         "export": Job(("export", s, "--raw", "-o", str(work / "out.csv")), work),
         "plot": Job(("plot", s, "--raw", "-o", str(work / "plots")), work),
         "decide": Job(("decide", "burn-in", s, "--out", str(work / "bi.json")), work),
