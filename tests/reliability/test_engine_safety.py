@@ -302,8 +302,9 @@ def test_nondeterministic_model_refused(model: str, tmp_path: Path, tally: Tally
 
 
 def test_determinism_check_costs_one_ensemble_call(tmp_path: Path) -> None:
-    """With the check on, a deterministic model is called exactly once more per walker than
-    with it off (one evaluation of the stored start), and both runs store the same draws."""
+    """With the check on, a deterministic model is called once more per walker than with it
+    off (one evaluation of the stored start) plus at most one call per commit (the later-step
+    check of engine/recheck.py: one state per commit), and both runs store the same draws."""
     counts = {}
     for check in (True, False):
         folder = tmp_path / str(check)
@@ -312,7 +313,9 @@ def test_determinism_check_costs_one_ensemble_call(tmp_path: Path) -> None:
         res = _sample(folder)
         assert res.returncode == 0, res.stderr
         counts[check] = int((folder / "calls.txt").read_text())
-    assert counts[True] - counts[False] == SMALL["sampler"]["walkers"]
+    extra = counts[True] - counts[False] - SMALL["sampler"]["walkers"]
+    # commits come at most every step (commit_every_seconds 0.05); never more than one per step
+    assert 0 <= extra <= SMALL["sampler"]["steps"], counts
     assert_same_store(tmp_path / "True" / "s.zarr", tmp_path / "False" / "s.zarr")
 
 
