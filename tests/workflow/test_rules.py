@@ -416,9 +416,12 @@ def test_killed_snakemake_orphan_holds_lock(tmp_path: Path) -> None:
     proc = popen_snakemake(folder, "--cores", "1")
     resumable = folder / "results" / "gauss" / ".resumable" / "replica-0.zarr"
     _wait_for_steps(resumable, 200)
-    proc.send_signal(signal.SIGKILL)  # the main process only; the job runs on as an orphan
-    proc.wait(timeout=PATIENCE)
     orphan = int((folder / "models" / "pid").read_text())
+    # paused, the orphan keeps its lock however slowly the commands below run on a loaded
+    # machine (running on, it could finish its steps before the rerun tries the lock)
+    os.kill(orphan, signal.SIGSTOP)
+    proc.send_signal(signal.SIGKILL)  # the main process only; the job stays as an orphan
+    proc.wait(timeout=PATIENCE)
     assert snakemake(folder, "--unlock").returncode == 0
     res = snakemake(folder, "--cores", "1")
     assert res.returncode != 0
