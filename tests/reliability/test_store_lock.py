@@ -167,3 +167,59 @@ def test_starting_over_in_the_same_process(tmp_path: Path) -> None:
         chainyard.sample(changed, tmp_path / "s.zarr", progress="off")
     store = chainyard.sample(changed, tmp_path / "s.zarr", progress="off", restart=True)
     assert store.steps_done == 100 and store.attrs["seed"] == 8
+
+
+@pytest.fixture(scope="module")
+def bound(made: Path) -> Iterator[Path]:
+    """``made/bound.zarr``: a bind mount of the store folder ``real/s.zarr`` (needs root)."""
+    target = made / "bound.zarr"
+    target.mkdir()
+    res = subprocess.run(
+        ["mount", "--bind", str(made / "real" / "s.zarr"), str(target)],
+        capture_output=True,
+        text=True,
+    )
+    if res.returncode != 0:
+        pytest.skip(f"cannot bind-mount here ({res.stderr.strip() or res.returncode})")
+    try:
+        yield target
+    finally:
+        subprocess.run(["umount", str(target)], check=False)
+
+
+# (holder's path, writer's --out), relative to the root: one folder reached by two mounts,
+# which realpath cannot see (issue 18, item 12)
+MOUNTS = {
+    "writer through the bind mount": ("real/s.zarr", "bound.zarr"),
+    "holder through the bind mount": ("bound.zarr", "real/s.zarr"),
+}
+
+
+@pytest.mark.parametrize("case", list(MOUNTS))
+def test_bind_mount_alias_is_locked(
+    case: str, made: Path, bound: Path, holder: Callable, tally: Tally
+) -> None:
+    """A second writer reaching a held store through a bind mount of its folder exits 6
+    with one line naming the folder's lock, and the store is untouched."""
+    hold, out = MOUNTS[case]
+    assert os.stat(bound).st_ino == os.stat(made / "real" / "s.zarr").st_ino  # one folder
+    before = snapshot(made / "real" / "s.zarr")
+    holder(hold, made)
+    res = cli(
+        "sample",
+        str(made / "real" / "run.yaml"),
+        "--out",
+        out,
+        "--steps",
+        "400",
+        "--progress",
+        "off",
+        cwd=made,
+    )
+    tally.input()
+    assert res.returncode == 6, res.stderr
+    lines = res.stderr.strip().splitlines()
+    assert len(lines) == 1, res.stderr
+    assert lines[0].startswith(f"chainyard: error: {out}: another process is writing this store")
+    assert "locked, perhaps through another mount" in lines[0], lines[0]
+    tally.assert_intact(before, made / "real" / "s.zarr", case)

@@ -192,7 +192,7 @@ def sample(
                         progress_interval,
                         stream,
                         label,
-                        _lock_fds(lock),
+                        lock,
                     )
                 except OSError as exc:
                     raise storage_fault(exc, path, committed_steps(path)) from None
@@ -286,7 +286,7 @@ def _work(
     progress_interval: float,
     stream: TextIO | None,
     label: str,
-    lock_fds: list[int],
+    lock: StoreLock,
 ) -> None:
     """Everything ``sample`` does under the store lock."""
     real = real_store_path(path)  # removals and creation go through symlinks to the store
@@ -345,6 +345,7 @@ def _work(
         except (OSError, StorageFaultError):
             _discard_quietly(real)  # a creation cut short: nothing of value
             raise
+        lock.cover_folder()  # the new folder is locked too (another mount reaching it)
         instant("store-created")
         kind = "start"
     try:
@@ -358,7 +359,7 @@ def _work(
             progress_interval,
             stream,
             label,
-            lock_fds,
+            lock.fds,  # the commit helper inherits them
         )
     except (ChainyardError, OSError):
         if kind == "start" and committed_steps(real) == 0:
@@ -372,11 +373,6 @@ def _discard_quietly(real: Path) -> None:
     with contextlib.suppress(OSError):
         if real.exists():
             discard_folder(real)
-
-
-def _lock_fds(lock: StoreLock) -> list[int]:
-    """The OS file descriptor holding the store lock (the commit helper inherits it)."""
-    return [lock.fd] if lock.fd is not None else []
 
 
 def _stored_steps(store: Store) -> int:

@@ -5,8 +5,11 @@ the store path is resolved first (every symlink, ``..`` and relative part), so e
 one store folder (a symlink to the store, a symlink to a parent folder, a relative or ``..``
 path) takes the same lock. When the store path itself is a symlink, the lock guards the store
 it points to and sits beside that target (a dangling symlink is followed to where the store
-would be created). Two different mounts of one folder (bind mounts, network paths) are not
-recognised as aliases.
+would be created). The store folder itself is locked too, once it exists
+(:meth:`StoreLock.cover_folder`): a folder reached through another mount (a bind mount of the
+store or of a folder above it) is the same folder to the kernel, so a second writer there is
+refused as well. Where a file system cannot lock a folder (some network file systems), only
+the sibling file guards the store.
 
 The kernel releases the lock when its holder dies, so a killed writer never leaves a stale
 lock behind. The lock belongs to the open file, so a helper process that inherits the lock's
@@ -58,6 +61,9 @@ class StoreLock:
     fd : int or None
         While held: the OS file descriptor that holds the lock (a child process that
         inherits it keeps the store locked); None when not held.
+    folder_fd : int or None
+        While held and the store folder exists: a descriptor of the store folder itself,
+        locked the same way (see :meth:`cover_folder`); None otherwise.
     read_only : bool
         True after entering when the lock file is missing and its folder is on a read-only
         file system: no process can write the store there, so none is taken (``fd`` stays
@@ -68,6 +74,7 @@ class StoreLock:
         self.store_path = Path(store_path)
         self.path = lock_path(store_path)
         self.fd: int | None = None
+        self.folder_fd: int | None = None
         self.read_only = False
         self._fallback: Any = None
 
@@ -115,6 +122,48 @@ class StoreLock:
                 f"{self.path}: cannot lock the store ({exc.strerror or exc}); nothing was written"
             ) from None
         self.fd = fd
+        try:
+            self.cover_folder()
+        except StoreLockedError:
+            self.release()
+            raise
+
+    @property
+    def fds(self) -> list[int]:
+        """The descriptors holding the lock (a helper process inherits them all)."""
+        return [fd for fd in (self.fd, self.folder_fd) if fd is not None]
+
+    def cover_folder(self) -> None:
+        """Lock the store folder itself too (call again after creating or replacing it).
+
+        The kernel knows one folder by its device and inode whatever path or mount reaches
+        it, so a writer that came through another mount finds it locked. A folder that does
+        not exist yet, or that its file system cannot lock, is left to the sibling lock file.
+
+        Raises
+        ------
+        StoreLockedError
+            If another process holds the folder's lock.
+        """
+        if self.fd is None or sys.platform == "win32":
+            return
+        import fcntl
+
+        old, self.folder_fd = self.folder_fd, None
+        if old is not None:
+            os.close(old)
+        try:
+            fd = os.open(real_store_path(self.store_path), os.O_RDONLY | os.O_DIRECTORY)
+        except OSError:
+            return  # missing, or not a folder: nothing to cover (yet)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError as exc:
+            os.close(fd)
+            if exc.errno in (errno.EWOULDBLOCK, errno.EAGAIN, errno.EACCES):
+                raise self._locked(folder=True) from None
+            return  # this file system does not lock folders
+        self.folder_fd = fd
 
     def _open(self) -> int | None:
         """A descriptor of the lock file to flock; None on a read-only file system without one.
@@ -144,15 +193,24 @@ class StoreLock:
             raise self._locked() from None
         self._fallback = lock
 
-    def _locked(self) -> StoreLockedError:
+    def _locked(self, *, folder: bool = False) -> StoreLockedError:
+        what = (
+            f"its folder {real_store_path(self.store_path)} is locked, perhaps through "
+            "another mount"
+            if folder
+            else f"lock {self.path} is held"
+        )
         return StoreLockedError(
-            f"{self.store_path}: another process is writing this store (lock {self.path} is "
-            "held); wait for it to finish or stop it"
+            f"{self.store_path}: another process is writing this store ({what}); wait for "
+            "it to finish or stop it"
         )
 
     def release(self) -> None:
         """Give the lock up (nothing happens if it is not held)."""
         self.read_only = False
+        folder_fd, self.folder_fd = self.folder_fd, None
+        if folder_fd is not None:
+            os.close(folder_fd)
         fd, self.fd = self.fd, None
         if fd is not None:
             os.close(fd)  # closing the last descriptor of the open file drops the flock
