@@ -149,17 +149,20 @@ def plan(n: int, layout: str, batch: int) -> dict[str, Any]:
     return row
 
 
-def run(n: int, batch: int, replicas: int, steps: int) -> dict[str, Any]:
-    """The whole workflow of an ``n``-member family with batching, from nothing."""
-    folder = WORK / f"run-{n}"
-    make(folder, n, "family", replicas, steps, batch)
-    _u, _t, _w, dry = timed(folder, "-n", "--cores", "2")
+def run(n: int, batch: int, replicas: int, steps: int, layout: str = "family") -> dict[str, Any]:
+    """The whole workflow of ``n`` objects from nothing: a family (batched when ``batch`` >
+    1) or one entry per run."""
+    folder = WORK / f"run-{layout}-{n}"
+    make(folder, n, layout, replicas, steps, batch)
+    plan_user, _t, _w, dry = timed(folder, "-n", "--cores", "2")
     _user, total, wall, _out = timed(folder, "--cores", "2", "--keep-going")
-    done = sum((folder / "results" / f"objects.o{i:05d}" / "summary.csv").is_file()
-               for i in range(n))
-    row = {"n": n, "batch": batch, "replicas": replicas, "steps": steps,
-           "jobs": jobs_of(dry).get("total", 0),
-           "sampling_jobs": jobs_of(dry).get("chainyard_sample_batch", 0),
+    name = "objects.o{:05d}" if layout == "family" else "o{:05d}"
+    done = sum((folder / "results" / name.format(i) / "summary.csv").is_file() for i in range(n))
+    jobs = jobs_of(dry)
+    row = {"n": n, "layout": layout, "batch": batch, "replicas": replicas, "steps": steps,
+           "jobs": jobs.get("total", 0),
+           "sampling_jobs": jobs.get("chainyard_sample_batch", 0) + jobs.get("chainyard_sample", 0),
+           "planning_user_cpu_s": plan_user,
            "members_done": done, "cpu_s": total, "cpu_per_member_s": total / n, "wall_s": wall}
     print(row, flush=True)
     return row
@@ -186,14 +189,16 @@ def record(plans: list[dict[str, Any]], runs: list[dict[str, Any]]) -> None:
             f"{1000 * r['user_cpu_s'] / r['n']:.1f} | {r['wall_s']:.1f} |"
         )
     if runs:
-        lines += ["", "End to end (family, batched, `--cores 2`, from nothing):", "",
-                  "| members | sample_batch | replicas x steps | jobs | sampling jobs | "
-                  "members done | CPU total (s) | CPU per member (s) | wall (s) |",
-                  "|---|---|---|---|---|---|---|---|---|"]
+        lines += ["", "End to end (`--cores 2`, from nothing):", "",
+                  "| objects | layout | sample_batch | replicas x steps | jobs | sampling jobs | "
+                  "planning user CPU (s) | "
+                  "done | CPU total (s) | CPU per object (s) | wall (s) |",
+                  "|---|---|---|---|---|---|---|---|---|---|---|"]
         for r in runs:
             lines.append(
-                f"| {r['n']} | {r['batch']} | {r['replicas']} x {r['steps']} | {r['jobs']} | "
-                f"{r['sampling_jobs']} | {r['members_done']} | {r['cpu_s']:.0f} | "
+                f"| {r['n']} | {r['layout']} | {r['batch']} | {r['replicas']} x {r['steps']} | "
+                f"{r['jobs']} | {r['sampling_jobs']} | {r['planning_user_cpu_s']:.1f} | "
+                f"{r['members_done']} | {r['cpu_s']:.0f} | "
                 f"{r['cpu_per_member_s']:.2f} | {r['wall_s']:.0f} |"
             )
     section = "\n".join(lines) + "\n"
@@ -214,6 +219,8 @@ def main() -> None:
     ap.add_argument("--per-run-sizes", type=int, nargs="*", default=[100, 1000])
     ap.add_argument("--plan-batch", type=int, default=1, help="sample_batch when planning")
     ap.add_argument("--run", type=int, nargs="*", default=[], help="end-to-end family sizes")
+    ap.add_argument("--per-run-run", type=int, nargs="*", default=[],
+                    help="end-to-end sizes of the one-entry-per-run layout")
     ap.add_argument("--batch", type=int, default=50)
     ap.add_argument("--replicas", type=int, default=2)
     ap.add_argument("--steps", type=int, default=200)
@@ -222,6 +229,7 @@ def main() -> None:
     plans = [plan(n, "family", args.plan_batch) for n in args.sizes]
     plans += [plan(n, "per-run", 1) for n in args.per_run_sizes]
     runs = [run(n, args.batch, args.replicas, args.steps) for n in args.run]
+    runs += [run(n, 1, args.replicas, args.steps, "per-run") for n in args.per_run_run]
     if args.record:
         record(plans, runs)
 

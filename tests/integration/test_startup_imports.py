@@ -116,6 +116,16 @@ def test_sample_imports_no_scipy_or_analysis(store: Path) -> None:
     assert _unwanted(modules) == []
 
 
+def test_diagnose_imports_no_scipy_stats(store: Path) -> None:
+    """`chainyard diagnose` (and the workflow's analysis job, which runs the same code) loads
+    scipy's special functions, not scipy.stats: about 1 s of import per job for two
+    quantile functions (computed bit for bit as scipy.stats does, checked in the diagnostics
+    unit tests against scipy.stats itself)."""
+    modules = _modules(store.parent, "diagnose", store.name, "--raw")
+    assert "chainyard.diagnostics.mcse" in modules and "scipy.special" in modules
+    assert not [m for m in modules if m.startswith("scipy.stats")], "scipy.stats was imported"
+
+
 def test_replica_field_matches_until_targets() -> None:
     """The command line's `{replica}` field is the one `--until-targets` expands."""
     import inspect

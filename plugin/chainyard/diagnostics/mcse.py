@@ -11,13 +11,13 @@ import math
 
 import numpy as np
 import numpy.typing as npt
-from scipy import stats
+from scipy import special  # not scipy.stats: 1 s of import for two functions
 
 from ._validation import as_chains_draws, is_constant
 from .ess import ess_mean, ess_quantile, ess_sd
 
 #: Probabilities of a +/- 1 sd normal interval, used for the quantile MCSE.
-_ONE_SIGMA = (float(stats.norm.cdf(-1.0)), float(stats.norm.cdf(1.0)))
+_ONE_SIGMA = (float(special.ndtr(-1.0)), float(special.ndtr(1.0)))  # = scipy.stats.norm.cdf
 
 
 def mcse_mean(x: npt.ArrayLike) -> float:
@@ -115,7 +115,8 @@ def quantile_interval_ranks(ess: float, q: float, size: int) -> tuple[int, int]:
     -------
     (int, int)
     """
-    lo_p, hi_p = stats.beta.ppf(_ONE_SIGMA, ess * q + 1.0, ess * (1.0 - q) + 1.0)
+    # the Beta quantile function, as scipy.stats.beta.ppf computes it (equal bit for bit)
+    lo_p, hi_p = special.betaincinv(ess * q + 1.0, ess * (1.0 - q) + 1.0, np.array(_ONE_SIGMA))
     lo = math.floor(max(lo_p * size - 1.0, 0.0))
     hi = math.ceil(min(hi_p * size - 1.0, size - 1.0))
     return int(lo), int(hi)

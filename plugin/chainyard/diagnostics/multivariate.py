@@ -10,7 +10,7 @@ import math
 
 import numpy as np
 import numpy.typing as npt
-from scipy import special, stats
+from scipy import special  # not scipy.stats: 1 s of import for one function
 
 
 def _batch_means_covariance(chains: npt.NDArray[np.float64], batch_size: int) -> np.ndarray:
@@ -107,5 +107,11 @@ def min_ess(p: int, alpha: float = 0.05, eps: float = 0.05) -> int:
     if not 0.0 < alpha < 1.0 or not eps > 0.0:
         raise ValueError(f"need 0 < alpha < 1 and eps > 0; got alpha={alpha}, eps={eps}")
     log_const = (2.0 / p) * (math.log(2.0) - math.log(p) - special.gammaln(p / 2.0))
-    value = math.pi * math.exp(log_const) * stats.chi2.ppf(1.0 - alpha, p) / eps**2
+    value = math.pi * math.exp(log_const) * _chi2_ppf(1.0 - alpha, p) / eps**2
     return math.ceil(value)
+
+
+def _chi2_ppf(q: float, df: float) -> float:
+    """The chi-square quantile function, as ``scipy.stats.chi2.ppf`` computes it (equal bit
+    for bit: it is ``2 * gammaincinv(df / 2, q)`` there too)."""
+    return float(2.0 * special.gammaincinv(df / 2.0, q))
