@@ -13,7 +13,7 @@ from chainyard.diagnostics.multivariate import _chi2_ppf
 
 def test_one_sigma_probabilities_are_the_normal_cdf() -> None:
     """The 15.9% and 84.1% points: scipy.stats.norm.cdf(-1), cdf(1)."""
-    assert mcse._ONE_SIGMA == (float(stats.norm.cdf(-1.0)), float(stats.norm.cdf(1.0)))
+    assert (float(stats.norm.cdf(-1.0)), float(stats.norm.cdf(1.0))) == mcse._ONE_SIGMA
 
 
 def test_beta_quantiles_equal_scipy_stats() -> None:
