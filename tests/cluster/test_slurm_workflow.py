@@ -18,6 +18,8 @@ from __future__ import annotations
 import math
 import re
 import shutil
+import subprocess
+import sys
 import time
 from collections.abc import Iterator
 from pathlib import Path
@@ -36,7 +38,7 @@ from tests.cluster.workflow_runs import (
     wait_for,
     zarr_stores,
 )
-from tests.conftest import assert_same_store
+from tests.conftest import assert_same_store, base_config, cli, write_run
 from tests.patience import PATIENCE
 from tests.workflow.conftest import gauss_run, make_workflow, planned_jobs, snakemake
 
@@ -232,3 +234,76 @@ def test_job_groups_on_slurm(slurm: SlurmCluster, work: Path) -> None:
     for replica in range(plan["chainyard_sample"]):
         store = chainyard.open_store(folder / f"results/a/draws/replica-{replica}.zarr")
         assert store.steps_done == 1000
+
+
+#: the model of the Dask-on-SLURM run: about 0.2 ms per walker (a run of a few seconds)
+DASK_MODEL = """
+import time
+import numpy as np
+
+def log_prob(theta, data):
+    t = time.perf_counter()
+    while time.perf_counter() - t < 2e-4:
+        pass
+    return -0.5 * float(np.dot(theta, theta))
+"""
+
+
+def documented_cluster_script() -> str:
+    """docs/dask.md's dask-jobqueue script, with this machine's values put in: our virtual
+    environment, 2 jobs (the node's CPUs) and a short wall time."""
+    text = (Path(__file__).parents[2] / "docs" / "dask.md").read_text()
+    section = text.split("## On SLURM with dask-jobqueue", 1)[1]
+    script = section.split("```python\n", 1)[1].split("```", 1)[0]
+    venv = Path(sys.prefix) / "bin" / "activate"
+    for old, new in (
+        ("/path/to/venv/bin/activate", str(venv)),
+        ("jobs=8", "jobs=2"),
+        ('walltime="04:00:00"', 'walltime="00:30:00"'),
+    ):
+        assert old in script, f"docs/dask.md's example no longer has {old!r}"
+        script = script.replace(old, new)
+    return script
+
+
+@pytest.mark.slow
+def test_dask_jobqueue_example_on_slurm(slurm: SlurmCluster, work: Path) -> None:
+    """docs/dask.md's example as a user runs it: a Dask cluster of SLURM jobs started with
+    dask-jobqueue, and ``sample --workers dask://ADDRESS`` against it. The walkers are
+    evaluated in SLURM jobs that ran on the node, and the draws are bitwise the serial ones."""
+    pytest.importorskip("dask_jobqueue")
+    from distributed import Client
+
+    (work / "dask_cluster.py").write_text(documented_cluster_script())
+    config = base_config(storage={"chunk_steps": 50, "commit_every_steps": 25})
+    config["sampler"] = {"walkers": 8, "steps": 100}
+    run = write_run(work / "run", config, model=DASK_MODEL)
+    before = set(slurm.jobs())
+    proc = subprocess.Popen(
+        [sys.executable, "dask_cluster.py"], cwd=work, env=slurm.env(), text=True,
+        stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+    )
+    try:
+        assert proc.stdout is not None
+        address = proc.stdout.readline().strip()
+        assert address.startswith("tcp://"), (address, proc.stderr and proc.stderr.read())
+        with Client(address, timeout=PATIENCE) as client:
+            client.wait_for_workers(2, timeout=PATIENCE)  # the two SLURM jobs started
+        serial = cli("sample", str(run), "--out", str(work / "serial.zarr"))
+        assert serial.returncode == 0, serial.stderr
+        pooled = cli("sample", str(run), "--out", str(work / "dask.zarr"),
+                     "--workers", f"dask://{address.removeprefix('tcp://')}")
+        assert pooled.returncode == 0, pooled.stderr
+        assert "on the Dask cluster at" in pooled.stderr + pooled.stdout
+        assert_same_store(work / "serial.zarr", work / "dask.zarr")
+        workers = {jid: job for jid, job in slurm.jobs().items() if jid not in before}
+        assert len(workers) == 2 and all(j["state"] == "RUNNING" for j in workers.values()), (
+            workers
+        )
+    finally:
+        if proc.poll() is None:
+            proc.communicate("\n", timeout=PATIENCE)  # "press Enter to stop the cluster"
+    assert proc.returncode == 0
+    wait_for("the worker jobs to end", lambda: not [
+        j for jid, j in slurm.jobs().items() if jid not in before and j["state"] == "RUNNING"
+    ], timeout=PATIENCE)
