@@ -110,7 +110,7 @@ def run(family: str, steps: int, seeds: range, path: Path) -> None:
 
 PARTS = {
     "es16": [("eight_schools", 16000, 20)],
-    "es64": [("eight_schools", 64000, 8)],
+    "es64": [("eight_schools", 64000, 20)],
     "healthy": [
         (f"healthy/{t}", steps_for(f"healthy/{t}", k), n)
         for k in (50, 100)

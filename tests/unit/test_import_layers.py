@@ -53,12 +53,7 @@ PENDING_UPWARD: frozenset[tuple[str, str]] = frozenset(
         ("chainyard.provenance.inspect", "chainyard.analysis.diagnose"),
     }
 )
-PENDING_CIRCLES: frozenset[tuple[str, ...]] = frozenset(
-    {
-        ("chainyard.store.integrity", "chainyard.store.reading"),
-        ("chainyard.provenance.pack", "chainyard.provenance.verify"),
-    }
-)
+PENDING_CIRCLES: frozenset[tuple[str, ...]] = frozenset()
 
 
 def _module_name(path: Path) -> str:

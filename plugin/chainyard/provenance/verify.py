@@ -27,7 +27,7 @@ from typing import Any
 from chainyard.errors import LimitExceededError, StoreError
 from chainyard.provenance.checks import Finding, check_consistency, check_counters, check_seal
 from chainyard.provenance.chunks import check_chain, check_chunks, check_input, check_start
-from chainyard.provenance.pack import check_pack
+from chainyard.provenance.pack_members import check_pack
 from chainyard.store import Store
 from chainyard.store.contents import scan_store
 from chainyard.store.packed import UnsafeMemberError

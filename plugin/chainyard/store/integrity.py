@@ -33,6 +33,9 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from numpy.typing import NDArray
 
+from chainyard.store.layout import INTEGRITY_KEY, chunk_key_from_metadata
+from chainyard.store.presence import check_present
+
 if TYPE_CHECKING:  # pragma: no cover
     from chainyard.errors import StoreError
     from chainyard.store.zarr_store import Store
@@ -53,7 +56,6 @@ __all__ = [
     "self_hash",
 ]
 
-INTEGRITY_KEY = "integrity"
 INTEGRITY_VERSION = 1
 
 
@@ -104,17 +106,6 @@ def array_metadata(store: Store) -> dict[str, Any]:
         raw = store.read_bytes(f"{node}/zarr.json")
         out[node] = None if raw is None else json.loads(raw)
     return out
-
-
-def chunk_key_from_metadata(node: str, meta: dict[str, Any], index: int) -> str:
-    """Key of chunk ``index`` along the first axis, from an array's zarr.json (no zarr call)."""
-    enc = meta.get("chunk_key_encoding") or {}
-    conf = enc.get("configuration") or {}
-    coords = [str(index)] + ["0"] * (len(meta["shape"]) - 1)
-    if enc.get("name") == "v2":
-        return f"{node}/" + conf.get("separator", ".").join(coords)
-    sep = conf.get("separator", "/")
-    return f"{node}/c{sep}" + sep.join(coords)
 
 
 def _file_sum(store: Store, key: str) -> str | None:
@@ -352,8 +343,6 @@ def check_resume_base(store: Store) -> None:
     _check_seal(store, record, block)
     _check_start(store, block)
     if store.steps_done > 0:
-        from chainyard.store.reading import check_present
-
         for name in store.array_names():
             # every committed chunk file exists (one stat each) ...
             check_present(store, f"draws/{name}", 0, store.steps_done)

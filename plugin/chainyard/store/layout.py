@@ -46,6 +46,8 @@ POSITION = "position"
 LOG_PROB = "log_prob"
 ACCEPTED = "accepted"
 BLOB = "blob"
+#: the commit record's block of seal and checksums (chainyard.store.integrity)
+INTEGRITY_KEY = "integrity"
 
 __all__ = [
     "ACCEPTED",
@@ -55,9 +57,11 @@ __all__ = [
     "DRAWS",
     "FORMAT_NAME",
     "FORMAT_VERSION",
+    "INTEGRITY_KEY",
     "LOG_PROB",
     "POSITION",
     "START",
+    "chunk_key_from_metadata",
     "codec_kwargs",
 ]
 
@@ -108,3 +112,14 @@ def codec_kwargs(codec: str, level: int | None, dtype: str) -> dict[str, Any]:
             ]
         }
     raise ValueError(f"unknown codec {codec!r}")
+
+
+def chunk_key_from_metadata(node: str, meta: dict[str, Any], index: int) -> str:
+    """Key of chunk ``index`` along the first axis, from an array's zarr.json (no zarr call)."""
+    enc = meta.get("chunk_key_encoding") or {}
+    conf = enc.get("configuration") or {}
+    coords = [str(index)] + ["0"] * (len(meta["shape"]) - 1)
+    if enc.get("name") == "v2":
+        return f"{node}/" + conf.get("separator", ".").join(coords)
+    sep = conf.get("separator", "/")
+    return f"{node}/c{sep}" + sep.join(coords)
