@@ -506,7 +506,7 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--output", "-o", default=None, help="write to this file instead")
     p.set_defaults(func=_cmd_schema)
 
-    from chainyard.analysis.commands import add_commands as add_result_commands
+    from chainyard.commands.results import add_commands as add_result_commands
     from chainyard.provenance.commands import add_commands
 
     add_result_commands(sub)  # export, results-table, plot

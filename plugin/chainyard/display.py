@@ -7,8 +7,9 @@ results table, ``inspect`` and the report all use them).
 from __future__ import annotations
 
 import math
+from typing import Any
 
-__all__ = ["beside_limit", "count", "readable"]
+__all__ = ["accept_reject_line", "beside_limit", "count", "readable"]
 
 
 def readable(value: float | None, digits: int = 4) -> str:
@@ -54,3 +55,24 @@ def beside_limit(value: float, limit: float, decimals: int = 2, most: int = 12) 
         if x == limit or (float(text) - limit) * (x - limit) > 0:
             return text
     return repr(x)
+
+
+def accept_reject_line(ar: dict[str, Any]) -> str:
+    """One line: acceptance rate, binomial SE, proposals per draw (and 1/M if known), in
+    :func:`readable` numbers (shared by ``diagnose`` and ``inspect``); a 1/M below 1e-6 is called
+    negligible, one far from the rate marks an unnormalised target."""
+    text = (
+        f"Accept-reject: acceptance rate {readable(ar['rate'])} +- {readable(ar['se'], 2)} "
+        f"(binomial SE; {count(ar['draws'])} draws from {count(ar['proposals'])} proposals, "
+        f"{readable(ar['proposals_per_draw'])} per draw)"
+    )
+    one_over_m = ar.get("one_over_m")
+    if one_over_m is not None:
+        text += f"; 1/M = {readable(one_over_m)}"
+        if one_over_m < 1e-6:
+            text += " (negligible: the envelope is far above the target's scale)"
+        elif not 0.1 < one_over_m / ar["rate"] < 10.0:
+            text += " (far from the rate: the target is not normalised)"
+        else:
+            text += " (equal to the rate for a normalised target)"
+    return text

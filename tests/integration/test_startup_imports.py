@@ -32,7 +32,6 @@ FORBIDDEN_CHAINYARD = ("chainyard.diagnostics", "chainyard.decisions", "chainyar
 #: the analysis package's lazy top level and its parser declarations are all that may load
 ALLOWED_ANALYSIS = {
     "chainyard.analysis",
-    "chainyard.analysis.commands",
     "chainyard.analysis.selection_options",  # option declarations only (no numpy)
 }
 

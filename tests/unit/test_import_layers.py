@@ -44,15 +44,7 @@ LAYERS: tuple[tuple[str, ...], ...] = (
 )
 
 # edges still waiting for their move (each is removed from here when its code moves)
-PENDING_UPWARD: frozenset[tuple[str, str]] = frozenset(
-    {
-        ("chainyard.analysis.commands", "chainyard.report.plot_outputs"),
-        ("chainyard.analysis.commands", "chainyard.report.plots"),
-        ("chainyard.analysis.commands", "chainyard.report.references"),
-        ("chainyard.analysis.commands", "chainyard.report.pairs"),
-        ("chainyard.provenance.inspect", "chainyard.analysis.diagnose"),
-    }
-)
+PENDING_UPWARD: frozenset[tuple[str, str]] = frozenset()
 PENDING_CIRCLES: frozenset[tuple[str, ...]] = frozenset()
 
 

@@ -20,7 +20,7 @@ if TYPE_CHECKING:  # pragma: no cover
     from chainyard.analysis.summary_table import summary_table, write_summary_csv
 
 # Imported on first use (PEP 562): the command line registers `export`, `results-table` and `plot`
-# from chainyard.analysis.commands without paying for scipy and the diagnostics.
+# from chainyard.commands.results without paying for scipy and the diagnostics.
 _LAZY = {
     "decide_burn_in": "chainyard.analysis.decide",
     "decide_thinning": "chainyard.analysis.decide",

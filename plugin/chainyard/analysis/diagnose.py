@@ -55,6 +55,7 @@ from chainyard.diagnostics._validation import MIN_DRAWS
 from chainyard.diagnostics.acceptance import accept_reject_rate, acceptance_band
 from chainyard.diagnostics.nested import nested_rhat_folded_inplace, nested_rhat_of_scores
 from chainyard.diagnostics.pooled import pooled_summary
+from chainyard.display import accept_reject_line
 from chainyard.errors import ChainyardError, StoreError
 from chainyard.store import Store
 
@@ -669,29 +670,6 @@ def format_table(result: dict[str, Any], title: str = "", selection: str | None 
     )
     lines.append("Diagnostics can show non-convergence; they cannot prove convergence.")
     return "\n".join(lines)
-
-
-def accept_reject_line(ar: dict[str, Any]) -> str:
-    """One line: acceptance rate, binomial SE, proposals per draw (and 1/M if known), in
-    :func:`chainyard.display.readable` numbers; a 1/M below 1e-6 is called
-    negligible, one far from the rate marks an unnormalised target."""
-    from chainyard.display import count, readable
-
-    text = (
-        f"Accept-reject: acceptance rate {readable(ar['rate'])} +- {readable(ar['se'], 2)} "
-        f"(binomial SE; {count(ar['draws'])} draws from {count(ar['proposals'])} proposals, "
-        f"{readable(ar['proposals_per_draw'])} per draw)"
-    )
-    one_over_m = ar.get("one_over_m")
-    if one_over_m is not None:
-        text += f"; 1/M = {readable(one_over_m)}"
-        if one_over_m < 1e-6:
-            text += " (negligible: the envelope is far above the target's scale)"
-        elif not 0.1 < one_over_m / ar["rate"] < 10.0:
-            text += " (far from the rate: the target is not normalised)"
-        else:
-            text += " (equal to the rate for a normalised target)"
-    return text
 
 
 def reference_lines(ref: dict[str, Any]) -> list[str]:

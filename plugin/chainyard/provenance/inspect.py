@@ -311,7 +311,7 @@ def _sampler_lines(facts: dict[str, Any]) -> list[str]:
         lines.append(f"  proposal   {prop.get('policy')}: {prop.get('reason')}")
     ar = facts.get("accept_reject")
     if ar:
-        from chainyard.analysis.diagnose import accept_reject_line
+        from chainyard.display import accept_reject_line
 
         lines.append(
             "  acceptance " + accept_reject_line(ar).removeprefix("Accept-reject: acceptance ")
