@@ -11,7 +11,7 @@ that reads them runs as a real child process (:func:`run_batch`, peak RSS by ``w
 * **decompression bombs** (a chunk replaced by a zstd frame expanding to 1 GiB, declaring its
   size or not; blosc, pcodec and gzip streams holding 64 MiB; the seal recomputed, so only
   the decoding bound stands between the bomb and memory), also from a pack: exit 4 (verify
-  7) and a peak RSS within 64 MiB of the same command on the intact store;
+  7) and a peak RSS within 48 MiB (RSS_SLACK_MIB) of the same command on the intact store;
 * **symbolic links and unknown files** inside a store: verify lists them (exit 7), pack
   refuses (exit 4) and writes nothing.
 """

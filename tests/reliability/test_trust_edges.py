@@ -511,7 +511,7 @@ def test_overlong_out_name_is_bad_input(tmp_path: Path, tally: Tally) -> None:
 
 
 def test_stdout_closed_is_one_line(tmp_path: Path, tally: Tally) -> None:
-    """``summarise --csv`` started with stdout closed: exit 2 and one line, not exit 70."""
+    """``results-table --csv`` started with stdout closed: exit 2 and one line, not exit 70."""
     cfg = write_run(tmp_path, TINY)
     assert cli("sample", str(cfg), "--out", str(tmp_path / "s.zarr")).returncode == 0
     res = subprocess.run(
@@ -519,7 +519,7 @@ def test_stdout_closed_is_one_line(tmp_path: Path, tally: Tally) -> None:
             sys.executable,
             "-m",
             "chainyard.cli",
-            "summarise",
+            "results-table",
             str(tmp_path / "s.zarr"),
             "--raw",
             "--csv",
@@ -544,7 +544,7 @@ def test_deeply_nested_commit_record_is_damage(tmp_path: Path, tally: Tally) -> 
     for args in (
         ("verify", str(store)),
         ("inspect", str(store)),
-        ("summarise", str(store), "--raw"),
+        ("results-table", str(store), "--raw"),
     ):
         res = cli(*args)
         tally.fault()
