@@ -165,9 +165,10 @@ def pairs_figure(
             ax.set_xlim(*limits[c])
             if r == c:
                 _diagonal_panel(ax, cols[c], pooled[c], limits[c], references.get(names[c]))
-                median, lo, hi = np.quantile(pooled[c], [0.5, 0.05, 0.95])
+                q = np.quantile(pooled[c], [0.5, 0.05, 0.95])
+                median, lo, hi = (_at_spread(float(v), float(q[2] - q[1])) for v in q)
                 ax.set_title(
-                    f"{names[c]}\nmedian {median:.4g}\n90%: {lo:.3g} to {hi:.3g}",
+                    f"{names[c]}\nmedian {median}\n90%: {lo} to {hi}",
                     fontsize=6.5,
                     color=INK,
                     pad=2,
@@ -335,6 +336,14 @@ def _lower_panel(
         )
 
 
+def _at_spread(value: float, spread: float) -> str:
+    """``value`` to the decimals that show three digits of ``spread`` (the 90% interval's
+    width): one decimal count for a panel's median and interval, no sign on zero."""
+    digits = 2 - int(np.floor(np.log10(spread))) if spread > 0 and np.isfinite(spread) else 3
+    text = f"{value:.{max(digits, 0)}f}" if max(digits, 0) <= 12 else f"{value:.3g}"
+    return text[1:] if text.startswith("-") and float(text) == 0 else text
+
+
 def _two(value: float) -> str:
     """Two decimals, without a sign on zero (``0.00``, not ``-0.00``)."""
     text = f"{value:.2f}"
@@ -367,7 +376,7 @@ def _upper_panel(
         )
         return
     ax.set_facecolor((*cmap(0.5 + 0.5 * r)[:3], 0.35))
-    text = f"r = {_two(r)}\n± {err:.2g} (MCSE)"
+    text = f"r = {_two(r)}\n± {err:#.2g} (MCSE)"  # two digits, trailing zero kept
     if len(xs) > 1:
         each = [correlation_with_mcse(a, b)[0] for a, b in zip(xs, ys, strict=True)]
         text += f"\nreplicas {_two(min(each))} to {_two(max(each))}"
