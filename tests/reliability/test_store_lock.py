@@ -73,6 +73,12 @@ def holder() -> Iterator[Callable[[str, Path], subprocess.Popen[str]]]:
         proc.wait(timeout=patient(30))
 
 
+def second_writer(made: Path, out: str, cwd: Path) -> subprocess.CompletedProcess[str]:
+    """``chainyard sample`` asked to extend the held store to 400 steps through ``out``."""
+    config = str(made / "real" / "run.yaml")
+    return cli("sample", config, "--out", out, "--steps", "400", "--progress", "off", cwd=cwd)
+
+
 # (holder's path, holder's cwd, writer's --out, writer's cwd), folders relative to the root
 ALIASES = {
     "same path": ("s.zarr", "real", "s.zarr", "real"),
@@ -93,17 +99,7 @@ def test_alias_is_locked(case: str, made: Path, holder: Callable, tally: Tally) 
     hold = str(made / "real" / "s.zarr") if hold == "ABS" else hold
     before = snapshot(made / "real" / "s.zarr")
     holder(hold, made / hold_cwd)
-    res = cli(
-        "sample",
-        str(made / "real" / "run.yaml"),
-        "--out",
-        out,
-        "--steps",
-        "400",
-        "--progress",
-        "off",
-        cwd=made / cwd,
-    )
+    res = second_writer(made, out, made / cwd)
     tally.input()
     assert res.returncode == 6, res.stderr
     lines = res.stderr.strip().splitlines()
@@ -205,17 +201,7 @@ def test_bind_mount_alias_is_locked(
     assert os.stat(bound).st_ino == os.stat(made / "real" / "s.zarr").st_ino  # one folder
     before = snapshot(made / "real" / "s.zarr")
     holder(hold, made)
-    res = cli(
-        "sample",
-        str(made / "real" / "run.yaml"),
-        "--out",
-        out,
-        "--steps",
-        "400",
-        "--progress",
-        "off",
-        cwd=made,
-    )
+    res = second_writer(made, out, made)
     tally.input()
     assert res.returncode == 6, res.stderr
     lines = res.stderr.strip().splitlines()
