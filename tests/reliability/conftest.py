@@ -8,8 +8,10 @@ and the counts are written to ``tests/reliability/.last_tally.json`` (not commit
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
+import subprocess
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -55,6 +57,19 @@ class Tally:
 
 
 TALLY = Tally()
+
+
+@contextlib.contextmanager
+def mounted(mount_args: list[str], target: Path, refused: str) -> Iterator[Path]:
+    """``mount MOUNT_ARGS TARGET`` for the duration of the block, unmounted afterwards
+    (lazily, pass or fail); skips the test with ``refused: <reason>`` where mounting fails."""
+    res = subprocess.run(["mount", *mount_args, str(target)], capture_output=True, text=True)
+    if res.returncode != 0:
+        pytest.skip(f"{refused}: {res.stderr.strip() or res.returncode}")
+    try:
+        yield target
+    finally:
+        subprocess.run(["umount", "-l", str(target)], capture_output=True, check=False)
 
 
 def snapshot(path: Path) -> dict[str, str]:

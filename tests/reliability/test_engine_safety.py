@@ -23,7 +23,7 @@ import pytest
 import chainyard
 from tests.conftest import assert_same_store, base_config, cli, write_run
 from tests.patience import PATIENCE, patient
-from tests.reliability.conftest import Tally, snapshot
+from tests.reliability.conftest import Tally, mounted, snapshot
 
 # 300 steps, chunks of 64, commits every 50: several chunks and commits in a short run
 SMALL = base_config(
@@ -383,17 +383,9 @@ def _tmpfs(folder: Path, size: str) -> Iterator[Path]:
     folder.mkdir(parents=True, exist_ok=True)
     if os.geteuid() != 0:
         pytest.skip("mounting a size-limited tmpfs needs root (CI runs as root)")
-    res = subprocess.run(
-        ["mount", "-t", "tmpfs", "-o", f"size={size}", "tmpfs", str(folder)],
-        capture_output=True,
-        text=True,
-    )
-    if res.returncode != 0:
-        pytest.skip(f"mount -t tmpfs refused here: {res.stderr.strip()}")
-    try:
+    args = ["-t", "tmpfs", "-o", f"size={size}", "tmpfs"]
+    with mounted(args, folder, "mount -t tmpfs refused here"):
         yield folder
-    finally:
-        subprocess.run(["umount", "-l", str(folder)], capture_output=True)
 
 
 def _remount_ro(folder: Path) -> None:

@@ -22,7 +22,7 @@ from chainyard.errors import StoreConflictError
 from chainyard.store import writer_lock
 from tests.conftest import base_config, cli, write_run
 from tests.patience import PATIENCE, patient
-from tests.reliability.conftest import Tally, snapshot
+from tests.reliability.conftest import Tally, mounted, snapshot
 
 pytestmark = pytest.mark.skipif(not sys.platform.startswith("linux"), reason="flock on Linux")
 
@@ -170,17 +170,8 @@ def bound(made: Path) -> Iterator[Path]:
     """``made/bound.zarr``: a bind mount of the store folder ``real/s.zarr`` (needs root)."""
     target = made / "bound.zarr"
     target.mkdir()
-    res = subprocess.run(
-        ["mount", "--bind", str(made / "real" / "s.zarr"), str(target)],
-        capture_output=True,
-        text=True,
-    )
-    if res.returncode != 0:
-        pytest.skip(f"cannot bind-mount here ({res.stderr.strip() or res.returncode})")
-    try:
+    with mounted(["--bind", str(made / "real" / "s.zarr")], target, "cannot bind-mount here"):
         yield target
-    finally:
-        subprocess.run(["umount", str(target)], check=False)
 
 
 # (holder's path, writer's --out), relative to the root: one folder reached by two mounts,
