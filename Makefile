@@ -19,7 +19,7 @@ demo: $(STAMP)  ## run the example workflow end to end
 
 test: $(STAMP)  ## lint, then the whole test suite (slow tests included)
 	$(BIN)/ruff check .
-	$(BIN)/python -m pytest
+	$(BIN)/python -m pytest -n 2 --dist loadgroup
 
 test-fast: $(STAMP)  ## the suite without slow tests
 	$(BIN)/python -m pytest -m "not slow"

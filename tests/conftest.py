@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import os
 import subprocess
 import sys
@@ -15,6 +16,7 @@ import yaml
 
 import chainyard
 from tests.patience import PATIENCE
+from tests.reliability.conftest import TALLY, TALLY_FILE
 
 GAUSS_MODEL = """
 import numpy as np
@@ -134,3 +136,31 @@ def run_dir(tmp_path: Path) -> Path:
     """A folder holding the minimal config and a standard-normal model."""
     write_run(tmp_path)
     return tmp_path
+
+
+# -- the reliability tally across parallel workers (pytest-xdist) --------------------------
+
+
+def pytest_sessionfinish(session: pytest.Session) -> None:
+    """On a parallel worker: hand this worker's reliability counts to the controller."""
+    workeroutput = getattr(session.config, "workeroutput", None)
+    if workeroutput is not None:
+        workeroutput["reliability_tally"] = TALLY.counts()
+
+
+@pytest.hookimpl(optionalhook=True)
+def pytest_testnodedown(node: Any, error: Any) -> None:
+    """On the controller: add a finished worker's reliability counts."""
+    counts = getattr(node, "workeroutput", {}).get("reliability_tally")
+    if counts:
+        TALLY.add(counts)
+
+
+def pytest_terminal_summary(terminalreporter: pytest.TerminalReporter) -> None:
+    """Print the reliability line (every worker's counts) and keep it for RESULTS.md."""
+    if getattr(terminalreporter.config, "workeroutput", None) is not None:
+        return  # a worker: the controller prints the sum
+    t = TALLY
+    if t.kills or t.faults or t.inputs or t.lost:
+        terminalreporter.write_line(t.line())
+        TALLY_FILE.write_text(json.dumps(t.counts()) + "\n")

@@ -3,14 +3,14 @@
 Every reliability test reports what it did through the ``tally`` fixture; at the end of the
 session one summary line is printed (kills survived, faults injected, inputs tried, data lost)
 and the counts are written to ``tests/reliability/.last_tally.json`` (not committed) so that
-``RESULTS.md`` can quote a real run.
+``RESULTS.md`` can quote a real run. With parallel workers (pytest-xdist) each worker counts
+its own tests and the controller adds them up (tests/conftest.py), so the line covers them all.
 """
 
 from __future__ import annotations
 
 import contextlib
 import hashlib
-import json
 import subprocess
 from collections.abc import Iterator
 from pathlib import Path
@@ -48,6 +48,18 @@ class Tally:
         if changed:
             self.lost += 1
         assert not changed, f"{what or path}: committed files changed or vanished: {changed[:5]}"
+
+    def counts(self) -> dict[str, int]:
+        """The four counts as a plain dict (what a parallel worker hands to the controller)."""
+        return {"kills": self.kills, "faults": self.faults, "inputs": self.inputs,
+                "lost": self.lost}
+
+    def add(self, counts: dict[str, int]) -> None:
+        """Add another process's ``counts`` (a parallel worker's) to these."""
+        self.kills += int(counts.get("kills", 0))
+        self.faults += int(counts.get("faults", 0))
+        self.inputs += int(counts.get("inputs", 0))
+        self.lost += int(counts.get("lost", 0))
 
     def line(self) -> str:
         return (
@@ -88,15 +100,3 @@ def snapshot(path: Path) -> dict[str, str]:
 def tally() -> Iterator[Tally]:
     """The session's reliability counters."""
     yield TALLY
-
-
-def pytest_terminal_summary(terminalreporter: pytest.TerminalReporter) -> None:
-    t = TALLY
-    if t.kills or t.faults or t.inputs or t.lost:
-        terminalreporter.write_line(t.line())
-        TALLY_FILE.write_text(
-            json.dumps(
-                {"kills": t.kills, "faults": t.faults, "inputs": t.inputs, "lost": t.lost}
-            )
-            + "\n"
-        )
