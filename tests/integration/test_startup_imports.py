@@ -129,7 +129,7 @@ def test_replica_field_matches_until_targets() -> None:
     """The command line's `{replica}` field is the one `--until-targets` expands."""
     import inspect
 
-    from chainyard import cli
     from chainyard.analysis.until import REPLICA_FIELD
+    from chainyard.commands import sample
 
-    assert f'REPLICA_FIELD = "{REPLICA_FIELD}"' in inspect.getsource(cli._cmd_sample)
+    assert f'REPLICA_FIELD = "{REPLICA_FIELD}"' in inspect.getsource(sample._cmd_sample)

@@ -411,9 +411,9 @@ def _inject(
 ) -> subprocess.CompletedProcess[str]:
     """Run the real `main` with `schema` replaced by ``body`` (a fault no input can cause)."""
     code = (
-        "import sys, chainyard.cli as c\n"
+        "import sys, chainyard.cli as c, chainyard.commands.configuration as s\n"
         f"def broken(args):\n    {body}\n"
-        "c._cmd_schema = broken\n"
+        "s._cmd_schema = broken\n"
         "sys.exit(c.main(sys.argv[1:]))\n"
     )
     return subprocess.run(

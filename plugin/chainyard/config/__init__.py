@@ -6,12 +6,27 @@ draws are stored, the seed, the diagnostic targets and the burn-in and thinning 
 Unknown keys are errors. Every optional field has a documented default; see
 ``chainyard schema`` for the full schema.
 
-Modules: :mod:`~chainyard.config.sections` (model, parameters, sampler, storage),
+Modules: :mod:`~chainyard.config.model` (model, parameters),
+:mod:`~chainyard.config.samplers` (the samplers and their moves),
+:mod:`~chainyard.config.sampler_kinds` (``sampler.kind``: the kinds, registering one),
+:mod:`~chainyard.config.storage` (stored draws, commits),
 :mod:`~chainyard.config.policies` (targets, burn-in, thinning, run until targets),
-:mod:`~chainyard.config.run` (the whole run, messages, loading, schema).
+:mod:`~chainyard.config.run` (the whole run, loading, schema),
+:mod:`~chainyard.config.messages` (one line per problem of an invalid config);
+:mod:`~chainyard.config.sections` gathers the sections of the first four.
 """
 
 from chainyard.config._base import JSON_SCHEMA_DIALECT
+from chainyard.config.messages import format_validation_error
+from chainyard.config.model import (
+    InitSpec,
+    ModelSpec,
+    NormalInit,
+    NormalSpec,
+    Parameter,
+    UniformInit,
+    UniformSpec,
+)
 from chainyard.config.policies import (
     BurnInSpec,
     CostAwareThinning,
@@ -32,38 +47,32 @@ from chainyard.config.policies import (
 from chainyard.config.run import (
     RunConfig,
     config_hash,
-    format_validation_error,
     json_schema,
     load_config,
     parse_config,
     steps_key,
 )
-from chainyard.config.sections import (
+from chainyard.config.sampler_kinds import (
     SAMPLER_KINDS,
-    AcceptRejectSpec,
     AnySamplerSpec,
     ChainSamplerSpec,
+    register_sampler_spec,
+)
+from chainyard.config.samplers import (
+    AcceptRejectSpec,
     DESnookerMove,
     DifferentialEvolutionMove,
     GaussianMove,
-    InitSpec,
     KernelSpec,
     MetropolisSpec,
-    ModelSpec,
     MoveSpec,
     NormalEnvelope,
-    NormalInit,
-    NormalSpec,
-    Parameter,
     SamplerSpec,
-    StorageSpec,
     StretchMove,
     UniformEnvelope,
-    UniformInit,
-    UniformSpec,
     WalkMove,
-    register_sampler_spec,
 )
+from chainyard.config.storage import StorageSpec
 
 __all__ = [
     "JSON_SCHEMA_DIALECT",
