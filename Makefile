@@ -22,7 +22,7 @@ test: $(STAMP)  ## lint, then the whole test suite (slow tests included)
 	$(BIN)/python -m pytest -n 2 --dist loadgroup
 
 test-fast: $(STAMP)  ## the suite without slow tests
-	$(BIN)/python -m pytest -m "not slow"
+	$(BIN)/python -m pytest -n 2 --dist loadgroup -m "not slow"
 
 lint: $(STAMP)
 	$(BIN)/ruff check .
