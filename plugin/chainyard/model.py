@@ -21,13 +21,8 @@ import numpy as np
 from chainyard.config import RunConfig
 from chainyard.datafiles import read_data_file
 from chainyard.errors import ConfigError
-from chainyard.evaluator import (
-    LoadedModel,
-    _is_real_ctrl_c,
-    _is_stop_signal,
-    describe_exception,
-    watch_sigint,
-)
+from chainyard.evaluator import LoadedModel, describe_exception, watch_sigint
+from chainyard.evaluator.interrupts import _is_real_ctrl_c, _is_stop_signal
 
 __all__ = [
     "LoadedModel",

@@ -32,7 +32,8 @@ from chainyard.engine.chains import (
 from chainyard.engine.protocol import StepBlock, StepRows
 from chainyard.engine.registry import SamplerKind, register
 from chainyard.errors import ConfigError, ModelError
-from chainyard.evaluator import _is_real_ctrl_c, _is_stop_signal, describe_exception
+from chainyard.evaluator import describe_exception
+from chainyard.evaluator.interrupts import _is_real_ctrl_c, _is_stop_signal
 from chainyard.model import LoadedModel, load_function
 
 __all__ = ["CHECK_STEPS", "KIND", "KernelDriver", "initial_kernel_state", "load_kernel"]

@@ -1,25 +1,10 @@
-"""The guarded evaluator: the user's log-probability function made safe to call on an ensemble.
-
-The sampler only ever sees well-formed output. Parameters outside their bounds get -inf
-without calling the model. Anything the model does instead of returning a value (raising any
-exception, ``sys.exit``, ``KeyboardInterrupt``, ``GeneratorExit``, running past
-``model.call_time_limit_seconds``), and any result that is not exactly what was asked for (a
-non-finite NaN/+inf, a wrong shape, a complex, object, string or ``None`` value) becomes a
-one-line :class:`~chainyard.errors.ModelError` naming the step (when the driver sets it), the
-walker and the parameter values. Nothing is reshaped or converted silently.
-
-Two exceptions pass through untouched: chainyard's own stop signal
-(:class:`chainyard.engine.run.Interrupted`, raised on a second SIGINT/SIGTERM) and a real
-Ctrl-C outside the run loop (told from a model's own ``raise KeyboardInterrupt`` by the SIGINT
-recorder :func:`watch_sigint` installs in place of Python's default handler).
+"""The guarded evaluator itself: :class:`LoadedModel`, its calls and the checks of their
+results (bounds, output types and shapes, NaN and +inf, the time limit armed per batch).
 """
 
 from __future__ import annotations
 
-import signal
-import sys
 import threading
-import time
 from dataclasses import dataclass
 from typing import Any
 
@@ -27,166 +12,15 @@ import numpy as np
 from numpy.typing import NDArray
 
 from chainyard.errors import ModelError
+from chainyard.evaluator.describe import _REAL_KINDS, _real_or_problem, _short
+from chainyard.evaluator.messages import ModelMessages
+from chainyard.evaluator.timelimit import _Alarm, _CallTimedOut
 
-__all__ = ["LoadedModel", "describe_exception", "watch_sigint"]
-
-#: dtype kinds a log-probability or blob may have (signed, unsigned integer, float)
-_REAL_KINDS = "fiu"
-
-
-class _CallTimedOut(BaseException):
-    """Raised by the SIGALRM handler inside a user call that ran past its limit.
-
-    A BaseException so that a model's ``except Exception`` does not swallow it.
-    """
-
-
-def _is_stop_signal(exc: BaseException) -> bool:
-    """True for chainyard's own stop signal (``engine.run.Interrupted``), which must pass."""
-    run = sys.modules.get("chainyard.engine.run")
-    return run is not None and isinstance(exc, run.Interrupted)
-
-
-#: the KeyboardInterrupt the SIGINT recorder raised last (a real Ctrl-C)
-_last_sigint: list[BaseException | None] = [None]
-
-
-def _record_sigint(signum: int, frame: Any) -> None:
-    """SIGINT handler that acts like Python's default one (raises KeyboardInterrupt) and
-    remembers the exception, so that a real Ctrl-C can be told from a KeyboardInterrupt that
-    user code raised itself."""
-    exc = KeyboardInterrupt()
-    _last_sigint[0] = exc
-    raise exc
-
-
-def watch_sigint() -> None:
-    """Replace Python's default SIGINT handler by the equivalent recorder (main thread only).
-
-    Ctrl-C behaves exactly as before (KeyboardInterrupt); chainyard can now tell it from a
-    ``raise KeyboardInterrupt`` in user code. Any other handler in force is left alone.
-    """
-    if threading.current_thread() is not threading.main_thread():
-        return
-    if signal.getsignal(signal.SIGINT) is signal.default_int_handler:
-        signal.signal(signal.SIGINT, _record_sigint)
-
-
-def _is_real_ctrl_c(exc: BaseException) -> bool:
-    """Whether a KeyboardInterrupt from user code comes from a real SIGINT (let it pass).
-
-    With the recorder installed, only the exception it raised is real. With Python's default
-    handler (recorder not installed, e.g. outside the main thread) it cannot be told, and is
-    taken as real. With any other handler (the run loop's, which sets a flag and never raises
-    KeyboardInterrupt), the model raised it.
-    """
-    if not isinstance(exc, KeyboardInterrupt):
-        return False
-    handler = signal.getsignal(signal.SIGINT)
-    if handler is _record_sigint:
-        return exc is _last_sigint[0]
-    return handler is signal.default_int_handler
-
-
-def describe_exception(exc: BaseException) -> tuple[str, str]:
-    """What user code raised, and a hint for the ones that are not ordinary errors.
-
-    Returns
-    -------
-    what : str
-        E.g. ``"ZeroDivisionError: tau is zero"`` or ``"SystemExit(0)"``.
-    hint : str
-        Empty for ordinary exceptions.
-    """
-    name = type(exc).__name__
-    if isinstance(exc, SystemExit):
-        return f"{name}({_short(exc.code)})", "a model must return a value, not exit"
-    if isinstance(exc, KeyboardInterrupt):
-        return name, (
-            "a model must not raise KeyboardInterrupt (chainyard stops on SIGINT/SIGTERM by itself)"
-        )
-    if isinstance(exc, GeneratorExit):
-        return name, "a model must return a value (is log_prob a generator?)"
-    text = " ".join(str(exc).split())  # one line, whatever the message holds
-    if len(text) > 300:
-        text = text[:297] + "..."
-    what = f"{name}: {text}" if text else name
-    if not isinstance(exc, Exception):
-        return what, "a model must return a value"
-    return what, ""
-
-
-def _short(value: Any) -> str:
-    text = repr(value)
-    return text if len(text) <= 40 else text[:37] + "..."
-
-
-def _real_or_problem(value: Any) -> float | str:
-    """``value`` as a float if it is one real number, else a description of what it is."""
-    if isinstance(value, float):
-        return value
-    if isinstance(value, bool | np.bool_):
-        return f"a bool ({value!r})"
-    if isinstance(value, int | np.integer | np.floating):
-        return float(value)
-    if isinstance(value, np.ndarray):
-        if value.ndim == 0 and value.dtype.kind in _REAL_KINDS:
-            return float(value)
-        return f"an array of shape {value.shape} and dtype {value.dtype}"
-    if isinstance(value, complex | np.complexfloating):
-        return f"a complex number {value!r}"
-    if value is None:
-        return "None"
-    return f"{type(value).__name__} {_short(value)}"
-
-
-class _Alarm:
-    """A per-call wall-time limit through ``setitimer(ITIMER_REAL)`` and SIGALRM.
-
-    Armed for one batch of calls (``with``): the previous SIGALRM handler and any running
-    real-time timer are restored afterwards (the timer with its remaining time). Only usable
-    in the main thread (Python runs signal handlers there).
-    """
-
-    def __init__(self, seconds: float) -> None:
-        self.seconds = seconds
-        self.fired = False
-        self._active = False
-
-    def _handler(self, signum: int, frame: Any) -> None:
-        if self._active:
-            self.fired = True
-            raise _CallTimedOut()
-
-    def __enter__(self) -> _Alarm:
-        self.fired = False
-        self._old_handler = signal.signal(signal.SIGALRM, self._handler)
-        self._old_timer = signal.setitimer(signal.ITIMER_REAL, 0)
-        self._t0 = time.monotonic()
-        return self
-
-    def arm(self) -> None:
-        self._active = True
-        signal.setitimer(signal.ITIMER_REAL, self.seconds)
-
-    def disarm(self) -> None:
-        signal.setitimer(signal.ITIMER_REAL, 0)
-        self._active = False
-
-    def __exit__(self, *exc: object) -> None:
-        self._active = False
-        signal.setitimer(signal.ITIMER_REAL, 0)
-        # None: the previous handler was not installed from Python (restore the default)
-        old = self._old_handler if self._old_handler is not None else signal.SIG_DFL
-        signal.signal(signal.SIGALRM, old)
-        delay, interval = self._old_timer
-        if delay > 0:
-            left = delay - (time.monotonic() - self._t0)
-            signal.setitimer(signal.ITIMER_REAL, max(left, 1e-6), interval)
+__all__ = ["LoadedModel"]
 
 
 @dataclass
-class LoadedModel:
+class LoadedModel(ModelMessages):
     """A user's model made safe to call on a whole ensemble.
 
     Attributes
@@ -251,48 +85,6 @@ class LoadedModel:
         self._alarm: _Alarm | None = None
         #: (offset, total) while a worker evaluates rows offset.. of a batch of ``total``
         self._frame: tuple[int, int] | None = None
-
-    # ------------------------------------------------------------------ messages
-    def _values(self, theta: NDArray[np.float64]) -> str:
-        return ", ".join(f"{n}={v:.6g}" for n, v in zip(self.param_names, theta, strict=True))
-
-    def _at(self, thetas: NDArray[np.float64], i: int) -> str:
-        n, row = thetas.shape[0], i
-        if self._frame is not None:  # a worker's slice: name the row of the whole batch
-            row, n = i + self._frame[0], self._frame[1]
-        who = f"walker {row}" if n == self.walkers or not self.walkers else f"proposal {row} of {n}"
-        step = f"step {self.step}, " if self.step is not None else ""
-        return f"at {step}{who} ({self._values(thetas[i])})"
-
-    def _fail(self, thetas: NDArray[np.float64], i: int, what: str, hint: str = "") -> ModelError:
-        """The error for row ``i`` of ``thetas``: ``what`` happened, ``hint`` what is allowed."""
-        tail = f": {hint}" if hint else ""
-        return ModelError(f"model.log_prob {what} {self._at(thetas, i)}{tail}")
-
-    def _fail_batch(self, thetas: NDArray[np.float64], what: str, hint: str = "") -> ModelError:
-        """The error for a vectorized call as a whole (no single walker to blame)."""
-        n = thetas.shape[0]
-        step = f" at step {self.step}" if self.step is not None else ""
-        tail = f": {hint}" if hint else ""
-        part = ""
-        if self._frame is not None:  # a worker's slice of a larger batch
-            part = f" of the slice a worker got (rows from {self._frame[0]} of {self._frame[1]})"
-        return ModelError(
-            f"model.log_prob (vectorized) {what}{step} for {n} walkers{part} "
-            f"(first: {self._values(thetas[0])}){tail}"
-        )
-
-    def _raised(self, exc: BaseException) -> tuple[str, str]:
-        """``(what, hint)`` for an exception from user code; re-raise the ones that pass."""
-        if _is_stop_signal(exc) or _is_real_ctrl_c(exc):
-            raise exc
-        if isinstance(exc, _CallTimedOut) or (self._alarm is not None and self._alarm.fired):
-            return (
-                f"ran longer than model.call_time_limit_seconds = {self.call_time_limit:g} s",
-                "stopped (make the model faster or raise the limit)",
-            )
-        what, hint = describe_exception(exc)
-        return f"raised {what}", hint
 
     # ------------------------------------------------------------------ calls
     def _user(self, arg: NDArray[np.float64]) -> Any:
@@ -455,17 +247,6 @@ class LoadedModel:
                 label = "" if j == 0 else f" for blob {self._blob_labels()[j - 1]}"
                 raise self._fail(thetas, i, f"returned {value}{label}", "expected a real number")
             row[j] = value
-
-    def _blob_labels(self) -> list[str]:
-        if len(self.blob_names) == self.n_blobs:
-            return [repr(b) for b in self.blob_names]
-        return [f"blob {k}" for k in range(self.n_blobs)]
-
-    def _raise_bad(self, thetas: NDArray[np.float64], lp: NDArray[np.float64]) -> None:
-        nan = np.flatnonzero(np.isnan(lp))
-        if nan.size:
-            raise self._fail(thetas, int(nan[0]), "returned NaN")
-        raise self._fail(thetas, int(np.flatnonzero(lp == np.inf)[0]), "returned +inf")
 
     def _loop_plain(self, thetas: NDArray[np.float64]) -> NDArray[np.float64]:
         """Fast path: one call per walker, no bounds, no blobs."""
