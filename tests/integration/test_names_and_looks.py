@@ -103,7 +103,7 @@ def test_region_thresholds_match_the_normal_disk() -> None:
     xy = rng.standard_normal((400_000, 2))
     edges = np.linspace(-4, 4, 81)
     h, _, _ = np.histogram2d(xy[:, 0], xy[:, 1], bins=(edges, edges))
-    from chainyard.report.pairs import _smooth
+    from chainyard.report.pairs_density import _smooth
 
     dens = _smooth(h)
     t90, t50 = region_thresholds(dens, (0.5, 0.9))

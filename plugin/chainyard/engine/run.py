@@ -16,6 +16,10 @@ without writing or locking (it may sit on a read-only file system). While it wor
 ``sample`` keeps a marker beside the store (:mod:`chainyard.engine.marker`) so that the next
 run can say that this one ended abnormally. Refused writes end in one
 :class:`StorageFaultError` line naming the path, the system error and the last commit.
+
+A new store's attributes and start state are made in :mod:`chainyard.engine.create`; the
+checks of an existing store (already complete? same settings? resume or extend?) are in
+:mod:`chainyard.engine.existing`.
 """
 
 from __future__ import annotations
@@ -26,15 +30,10 @@ from collections.abc import Iterator
 from pathlib import Path
 from typing import Any, TextIO
 
-import numpy as np
-
-from chainyard.config import RunConfig, config_hash, steps_key
-from chainyard.engine.drivers import (
-    driver_kind,
-    engine_blob_names,
-    initial_random_state,
-    store_blob_names,
-)
+from chainyard.config import RunConfig
+from chainyard.engine.create import _create
+from chainyard.engine.drivers import driver_kind
+from chainyard.engine.existing import _check_identity, _complete_read_only, _stored_steps
 from chainyard.engine.guards import (
     committed_steps,
     path_state,
@@ -43,57 +42,23 @@ from chainyard.engine.guards import (
     storage_fault,
     with_last_commit,
 )
-from chainyard.engine.identity import describe_differences, run_identity
-from chainyard.engine.initial import initial_state
+from chainyard.engine.identity import run_identity
 from chainyard.engine.loop import advance
 from chainyard.engine.marker import previous_run_line, read_marker, remove_marker, write_marker
 from chainyard.engine.pool import worker_pool
 from chainyard.engine.registry import sampler_kind
 from chainyard.engine.stopping import Interrupted, StopFlag, stop_on_signals
-from chainyard.errors import (
-    ChainyardError,
-    ConfigError,
-    StorageFaultError,
-    StoreConflictError,
-    StoreError,
-    StoreLockedError,
-)
-from chainyard.facts import git_state, host_record, software_versions, utc_now
+from chainyard.errors import ChainyardError, ConfigError, StorageFaultError, StoreError
 from chainyard.model import LoadedModel, load_model
 from chainyard.progress import Progress
 from chainyard.store import Store, StoreLock, writer_lock
 from chainyard.store.files import discard_folder, remove_discarded
 from chainyard.store.integrity import check_resume_base
-from chainyard.store.layout import BLOB, COMMIT_FILE, LOG_PROB, POSITION
+from chainyard.store.layout import COMMIT_FILE
 from chainyard.store.lock import real_store_path
-from chainyard.streams import spawn_key
 from chainyard.testhooks import instant
 
 __all__ = ["Interrupted", "sample"]
-
-
-def _store_attrs(config: RunConfig, replica: int, identity: dict[str, Any]) -> dict[str, Any]:
-    norm = config.normalised()
-    return {
-        "param_names": list(config.param_names),
-        "blob_names": list(store_blob_names(config)),
-        "walkers": config.sampler.walkers,
-        "sampler_kind": config.sampler.kind,
-        "replica": replica,
-        "seed": config.seed,
-        "spawn_key": list(spawn_key(replica, 1)),
-        "config": norm,
-        "config_hash": config_hash(norm),
-        "config_dir": str(config.base_dir),
-        "config_source": config.source,
-        "identity": identity,
-        "provenance": {
-            "created_utc": utc_now(),
-            "software": software_versions(),
-            "host": host_record(),
-            "git": git_state(config.base_dir),
-        },
-    }
 
 
 def sample(
@@ -221,42 +186,6 @@ def sample(
     return Store.open(path)
 
 
-def _complete_read_only(
-    config: RunConfig,
-    path: Path,
-    identity: dict[str, Any],
-    say: Any,
-) -> bool:
-    """True (after saying so) if the store is already complete, found without writing.
-
-    A complete store needs no lock, so this works on a read-only file system. A store that is
-    not readable here is left to the locked path, which reports the problem.
-    """
-    if path_state(path) != "committed":
-        return False
-    try:
-        store = Store.open(path)
-    except StoreError:
-        return False
-    if store.attrs.get("derived") is not None:
-        return False
-    _check_identity(store, identity, path)
-    if store.steps_done < config.sampler.steps:
-        return False
-    if read_marker(path) is not None:
-        # a run died after its last commit: say so once (under the lock) and clear it
-        with contextlib.suppress(StoreLockedError, StorageFaultError), writer_lock(path):
-            marker = read_marker(path)
-            if marker is not None:
-                say(previous_run_line(marker, store.steps_done, complete=True))
-                remove_marker(path)
-    say(
-        f"already complete ({store.steps_done:,} steps committed, "
-        f"{config.sampler.steps:,} requested); nothing to do"
-    )
-    return True
-
-
 @contextlib.contextmanager
 def _ignore_file_size_signal() -> Iterator[None]:
     """Ignore SIGXFSZ so that a write past ``ulimit -f`` fails with EFBIG (reported as a
@@ -373,52 +302,3 @@ def _discard_quietly(real: Path) -> None:
     with contextlib.suppress(OSError):
         if real.exists():
             discard_folder(real)
-
-
-def _stored_steps(store: Store) -> int:
-    sampler = store.attrs["config"]["sampler"]
-    return int(sampler[steps_key(sampler)])
-
-
-def _check_identity(store: Store, identity: dict[str, Any], path: Path) -> None:
-    diffs = describe_differences(store.attrs.get("identity") or {}, identity)
-    if diffs:
-        raise StoreConflictError(
-            f"{path}: store was made with different settings: {'; '.join(diffs)}. "
-            "Use --restart (restart=True) to discard it and start over"
-        )
-
-
-def _create(
-    config: RunConfig, model: LoadedModel, replica: int, identity: dict[str, Any], path: Path
-) -> Store:
-    pos, lp, blobs, _ = initial_state(config, model, replica)
-    start = {POSITION: pos, LOG_PROB: lp}
-    for k, b in enumerate(config.sampler.blobs):
-        start[f"{BLOB}/{b}"] = blobs[:, k]
-    for b in engine_blob_names(config):
-        start[f"{BLOB}/{b}"] = np.zeros(config.sampler.walkers)  # nothing drawn yet
-    st = config.storage
-    record = {
-        "format_version": 1,
-        "steps_done": 0,
-        "random_state": initial_random_state(config, replica),
-        "checksums": {},
-        "segments": [],
-        "updated_utc": utc_now(),
-    }
-    path.parent.mkdir(parents=True, exist_ok=True)
-    return Store.create(
-        path,
-        attrs=_store_attrs(config, replica, identity),
-        walkers=config.sampler.walkers,
-        n_params=len(config.parameters),
-        blob_names=store_blob_names(config),
-        capacity=config.sampler.steps,
-        chunk_steps=st.chunk_steps,
-        codec=st.codec,
-        level=st.level,
-        start=start,
-        commit=record,
-        fsync=st.fsync,
-    )

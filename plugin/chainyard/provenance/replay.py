@@ -12,252 +12,34 @@ difference names the step, array and walker.
 * ``segment=K``: segment K of the history only, starting from the stored row before it and
   the RNG state recorded when the segment began; this checks that a resume or extension was
   exact.
+
+Where the model and data come from is :mod:`chainyard.provenance.replay_sources`; the
+consent to run code that came with a store, :mod:`chainyard.provenance.replay_consent`;
+the result and the row comparison, :mod:`chainyard.provenance.replay_compare`.
 """
 
 from __future__ import annotations
 
-import json
 import tempfile
 from contextlib import ExitStack
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
-from numpy.typing import NDArray
 
-from chainyard.errors import ConfigError, UnsafeInputError, VerificationError
+from chainyard.errors import ConfigError, VerificationError
+from chainyard.provenance.replay_compare import ReplayResult, _difference, _row_map, _StoredRows
+from chainyard.provenance.replay_consent import (
+    RUN_PACK_CODE,
+    pack_code,
+    require_code_consent,
+    require_pack_consent,
+)
+from chainyard.provenance.replay_sources import _materialise_pack_sources, replay_base
 from chainyard.store import Store
-from chainyard.store.files import iter_stored, read_stored, stored_size
 from chainyard.store.integrity import INTEGRITY_KEY
 
 __all__ = ["RUN_PACK_CODE", "ReplayResult", "pack_code", "replay", "require_pack_consent"]
-
-PACK_MANIFEST = "pack/manifest.json"
-
-
-@dataclass
-class ReplayResult:
-    """Outcome of a replay.
-
-    Attributes
-    ----------
-    subject : str
-        The store replayed.
-    from_step, to_step : int
-        Source steps ``[from_step, to_step)`` that were rerun.
-    compared : int
-        Stored rows compared (fewer than the steps for a thinned store).
-    first_difference : dict or None
-        ``{"step", "array", "walker", "stored", "replayed"}`` of the first differing value.
-    sources : str
-        Where the model and data were read from.
-    """
-
-    subject: str
-    from_step: int
-    to_step: int
-    compared: int
-    first_difference: dict[str, Any] | None
-    sources: str
-
-    @property
-    def ok(self) -> bool:
-        """True when every compared row is bitwise identical."""
-        return self.first_difference is None
-
-    def line(self) -> str:
-        """One line summarising the result."""
-        span = f"steps {self.from_step}-{self.to_step - 1}"
-        if self.ok:
-            return (
-                f"{self.subject}: replayed {span} from {self.sources}: {self.compared:,} stored "
-                "row(s) bitwise identical"
-            )
-        d = self.first_difference or {}
-        return (
-            f"{self.subject}: replay of {span} differs first at step {d['step']} in "
-            f"{d['array']} (walker {d['walker']}: stored {d['stored']!r}, replayed "
-            f"{d['replayed']!r})"
-        )
-
-    def to_dict(self) -> dict[str, Any]:
-        """JSON form."""
-        return {
-            "subject": self.subject,
-            "from_step": self.from_step,
-            "to_step": self.to_step,
-            "compared": self.compared,
-            "ok": self.ok,
-            "first_difference": self.first_difference,
-            "sources": self.sources,
-        }
-
-
-#: the command-line option that allows replaying a pack (running its code)
-RUN_PACK_CODE = "--run-pack-code"
-
-
-def _pack_manifest(store: Store) -> dict[str, Any] | None:
-    """The pack manifest a packed or unpacked store holds (None for a plain store)."""
-    raw = read_stored(store, PACK_MANIFEST, "metadata_bytes")
-    if raw is None:
-        return None
-    try:
-        manifest = json.loads(raw)
-    except ValueError:
-        manifest = None
-    if not isinstance(manifest, dict):
-        raise UnsafeInputError(f"{store.path}: {PACK_MANIFEST} is not a JSON object")
-    return manifest
-
-
-def pack_code(store: Store) -> str | None:
-    """What replaying ``store`` would import and run if it is a pack (packed or unpacked);
-    None for a store that is not a pack (its config's model files are the user's own)."""
-    manifest = _pack_manifest(store)
-    if manifest is None:
-        return None
-    model = (store.attrs.get("config") or {}).get("model") or {}
-    code = [f"model {model.get('log_prob')}"]
-    if model.get("data_loader"):
-        code.append(f"data loader {model.get('data_loader')}")
-    files = [
-        str(s.get("member"))
-        for s in manifest.get("sources") or []
-        if isinstance(s, dict) and str(s.get("member", "")).endswith(".py")
-    ]
-    return ", ".join(code) + (f" (bundled {', '.join(files)})" if files else "")
-
-
-def require_pack_consent(store: Store, allowed: bool) -> None:
-    """Refuse to replay a pack unless running its code was allowed explicitly.
-
-    Raises
-    ------
-    ConfigError
-        (exit 2) naming what would run and the option that allows it.
-    """
-    if allowed:
-        return
-    what = pack_code(store)
-    if what is not None:
-        raise ConfigError(
-            f"{store.path}: replaying this pack would import and run code that came with it: "
-            f"{what}; add {RUN_PACK_CODE} if you trust where the pack came from"
-        )
-
-
-def _code_references(data: Any) -> list[tuple[str, str]]:
-    """(field, reference) of every function a stored config names (model, loader, kernel)."""
-    if not isinstance(data, dict):
-        return []
-    model = data.get("model") if isinstance(data.get("model"), dict) else {}
-    sampler = data.get("sampler") if isinstance(data.get("sampler"), dict) else {}
-    refs = [
-        ("model.log_prob", model.get("log_prob")),
-        ("model.data_loader", model.get("data_loader")),
-        ("sampler.kernel", sampler.get("kernel")),
-    ]
-    return [(f, r) for f, r in refs if isinstance(r, str) and r]
-
-
-def _is_file_reference(ref: str) -> bool:
-    module = ref.rpartition(":")[0]
-    return module.endswith(".py") or "/" in module or "\\" in module
-
-
-def replay_base(store: Store, sources: str | Path | None) -> Path | None:
-    """The folder a plain store's recorded model paths resolve against (None for a pack).
-
-    Raises
-    ------
-    ConfigError
-        (exit 2) if the recorded ``config_dir`` is not an absolute path and no ``sources``
-        folder was given: recorded paths are never resolved against the current folder.
-    """
-    if sources is not None:
-        return Path(sources).resolve()
-    if _pack_manifest(store) is not None:
-        return None
-    recorded = store.attrs.get("config_dir")
-    if not isinstance(recorded, str) or not Path(recorded).is_absolute():
-        raise ConfigError(
-            f"{store.path}: the recorded config_dir {recorded!r} is not an absolute path; "
-            "recorded paths are never resolved against the current folder: give --sources DIR "
-            "(the folder holding the model and data)"
-        )
-    return Path(recorded)
-
-
-def stored_code(store: Store, base: Path | None) -> list[str]:
-    """The functions a replay would import from files inside the store's own folder."""
-    if base is None:
-        return []
-    inside = Path(store.path).resolve()
-    found = []
-    for field, ref in _code_references(store.attrs.get("config")):
-        if not _is_file_reference(ref):
-            continue
-        module = Path(ref.rpartition(":")[0])
-        path = (module if module.is_absolute() else base / module).resolve()
-        if path.is_relative_to(inside):
-            found.append(f"{field} {ref}")
-    return found
-
-
-def require_code_consent(store: Store, allowed: bool, sources: str | Path | None = None) -> None:
-    """Refuse to replay code that came with a store or pack unless explicitly allowed.
-
-    A pack's code, and model files that resolve inside the store's own folder, came with the
-    store (from whoever made it), not from the user's sources.
-
-    Raises
-    ------
-    ConfigError
-        (exit 2) naming what would run and the option that allows it; also if the recorded
-        ``config_dir`` is relative and no ``sources`` was given (see :func:`replay_base`).
-    """
-    require_pack_consent(store, allowed)
-    base = replay_base(store, sources)
-    if allowed:
-        return
-    code = stored_code(store, base)
-    if code:
-        raise ConfigError(
-            f"{store.path}: replaying this store would import and run code stored inside it: "
-            f"{', '.join(code)}; add {RUN_PACK_CODE} if you trust where the store came from"
-        )
-
-
-def _materialise_pack_sources(store: Store, into: Path) -> Path | None:
-    """Write a pack's model/data files at their recorded relative paths below ``into``
-    (copied in blocks; paths that would leave ``into`` are skipped)."""
-    manifest = _pack_manifest(store)
-    if manifest is None:
-        return None
-    sources = [
-        s
-        for s in manifest.get("sources") or []
-        if isinstance(s, dict) and isinstance(s.get("path"), str) and s["path"]
-    ]
-    ups = [Path(s["path"]).parts.count("..") for s in sources]
-    depth = min(max(ups, default=0), 16)
-    base = into.joinpath(*(["d"] * depth)) if depth else into
-    base.mkdir(parents=True, exist_ok=True)
-    root = into.resolve()
-    for s in sources:
-        member = str(s.get("member"))
-        if Path(s["path"]).is_absolute() or stored_size(store, member) is None:
-            continue
-        dest = (base / s["path"]).resolve()
-        if not dest.is_relative_to(root):
-            continue
-        dest.parent.mkdir(parents=True, exist_ok=True)
-        with open(dest, "wb") as f:
-            for block in iter_stored(store, member):
-                f.write(block)
-    return base
 
 
 def _config(store: Store, base: Path, steps: int) -> Any:
@@ -284,54 +66,6 @@ def _check_inputs(store: Store, config: Any, base: Path) -> None:
             f"{store.path}: cannot replay: model or data no longer match the recorded ones "
             f"(looked in {base}): {'; '.join(diffs)}"
         )
-
-
-class _StoredRows:
-    """Stored rows one at a time, decoding each chunk once."""
-
-    def __init__(self, store: Store) -> None:
-        self.store = store
-        self.cache: dict[str, tuple[int, NDArray[Any]]] = {}
-
-    def row(self, name: str, j: int) -> NDArray[Any]:
-        size = self.store.chunk_steps
-        c = j // size
-        hit = self.cache.get(name)
-        if hit is None or hit[0] != c:
-            lo = c * size
-            hit = (c, self.store.read_rows(name, lo, min(lo + size, self.store.steps_done)))
-            self.cache[name] = hit
-        return hit[1][j - c * size]
-
-
-def _row_map(store: Store) -> NDArray[np.int64]:
-    """Source step of every stored row (identity for a sampled store)."""
-    steps = np.arange(store.steps_done, dtype=np.int64)
-    block = store.attrs.get("derived")
-    while block:
-        steps = int(block["discard"]) + steps * int(block["factor"])
-        block = block.get("parent")
-    return steps
-
-
-def _difference(
-    name: str, step: int, stored: NDArray[Any], replayed: NDArray[Any]
-) -> dict[str, Any] | None:
-    a = np.ascontiguousarray(stored)
-    b = np.ascontiguousarray(np.asarray(replayed, dtype=a.dtype).reshape(a.shape))
-    if a.tobytes() == b.tobytes():
-        return None
-    per_walker = a.view(np.uint8).reshape(a.shape[0], -1) != b.view(np.uint8).reshape(
-        b.shape[0], -1
-    )
-    w = int(np.argmax(per_walker.any(axis=1)))
-    return {
-        "step": step,
-        "array": name,
-        "walker": w,
-        "stored": a[w].tolist(),
-        "replayed": b[w].tolist(),
-    }
 
 
 def _start(store: Store, config: Any, model: Any, a: int, segment: int | None) -> tuple[Any, ...]:
