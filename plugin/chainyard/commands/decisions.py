@@ -119,7 +119,7 @@ def _cmd_diagnose(args: argparse.Namespace) -> int:
     result = diagnose(views, config.targets)
     result["selection"] = selection.description
     if args.reference:
-        from chainyard.analysis.diagnose import compare_with_reference
+        from chainyard.analysis.diagnose_reference import compare_with_reference
 
         reference = open_replicas(args.reference)
         result["reference"] = compare_with_reference(

@@ -40,20 +40,34 @@ short runs (:func:`long_run_tau`): ``steps / tau_hat >= 50`` is met at about 40-
 long-run tau (the model: 40; measured on the study's healthy targets, the estimate at 50
 steps per long-run tau is 0.87-0.91 of it, so 50 estimated means about 44-46). The gate is
 kept on the estimate, as emcee's tolerance is; the steps still needed use the model.
+
+This module judges the run (:func:`assess`: the verdict's lines, its summary and the advice);
+the records live in :mod:`chainyard.decisions.verdict_records`, each parameter's checks in
+:mod:`chainyard.decisions.target_checks` and the steps still needed in
+:mod:`chainyard.decisions.more_steps` (their public names re-exported here).
 """
 
 from __future__ import annotations
 
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
 from typing import Any
 
-from ..diagnostics._jsonable import to_builtin
-from ..diagnostics.multivariate import min_ess
+from .more_steps import STEPS_MARGIN, long_run_tau, steps_needed
+from .target_checks import _check_mess, _check_param, _fmt_key
+from .verdict_records import QUESTIONS, ParamCheck, Targets, Verdict
 
-#: The three questions, in the order they are reported.
-QUESTIONS = ("mixing", "tau", "precision")
+__all__ = [
+    "QUESTIONS",
+    "STEPS_MARGIN",
+    "WHAT_EACH_CHECK_COMPARES",
+    "ParamCheck",
+    "Targets",
+    "Verdict",
+    "assess",
+    "long_run_tau",
+    "steps_needed",
+]
 
 #: What each check compares (one line each, printed under the table and in the records).
 WHAT_EACH_CHECK_COMPARES = {
@@ -73,277 +87,6 @@ WHAT_EACH_CHECK_COMPARES = {
     "mess": "precision: multivariate ESS of the replicas' walker-mean traces vs "
     "min_ess (Vats, Flegal and Jones 2019)",
 }
-
-
-@dataclass(frozen=True)
-class Targets:
-    """Thresholds a run must meet. ``None`` disables a check (module docstring: sources)."""
-
-    max_nested_rhat: float | None = 1.01
-    max_rhat: float | None = None
-    min_ess_bulk: float | None = 400.0
-    min_ess_tail: float | None = 400.0
-    min_steps_per_tau: float | None = 50.0
-    max_tau_growth: float | None = 1.3
-    max_tail_rhat: float | None = 1.1
-    mess_eps: float | None = None
-    mess_alpha: float = 0.05
-
-
-@dataclass(frozen=True)
-class ParamCheck:
-    """Outcome for one parameter: ``failures`` lists each failing number.
-
-    ``checks`` maps each question (:data:`QUESTIONS`) to whether it passed;
-    ``steps_needed`` is the estimated total steps (after burn-in) meeting the precision and
-    tau targets, ``None`` when they are met or no estimate is possible.
-    """
-
-    name: str
-    ok: bool
-    failures: tuple[str, ...]
-    values: dict[str, float] = field(hash=False)
-    checks: dict[str, bool] = field(hash=False, default_factory=dict)
-    steps_needed: int | None = None
-
-
-@dataclass(frozen=True)
-class Verdict:
-    """Overall verdict: ``ok`` only if every parameter and the mESS check pass."""
-
-    ok: bool
-    params: dict[str, ParamCheck] = field(hash=False)
-    multivariate: dict[str, Any] | None = field(hash=False)
-    lines: tuple[str, ...]
-    checks: dict[str, bool] = field(hash=False, default_factory=dict)
-    steps: int | None = None
-    more_steps: int | None = None
-    stuck_walkers: dict[int, list[int]] = field(hash=False, default_factory=dict)
-    minority_walkers: dict[int, list[int]] = field(hash=False, default_factory=dict)
-    slow_chains: dict[int, list[dict[str, Any]]] = field(hash=False, default_factory=dict)
-    replicas: int | None = None
-
-    def to_dict(self) -> dict[str, Any]:
-        """Return a JSON-serialisable dict."""
-        return {
-            "ok": self.ok,
-            "checks": dict(self.checks),
-            "steps": self.steps,
-            "more_steps": self.more_steps,
-            "stuck_walkers": {str(r): list(ws) for r, ws in self.stuck_walkers.items()},
-            "minority_walkers": {str(r): list(ws) for r, ws in self.minority_walkers.items()},
-            "slow_chains": {str(r): to_builtin(cs) for r, cs in self.slow_chains.items()},
-            "replicas": self.replicas,
-            "params": {
-                name: {
-                    "ok": c.ok,
-                    "checks": dict(c.checks),
-                    "failures": list(c.failures),
-                    "values": to_builtin(c.values),
-                    "steps_needed": c.steps_needed,
-                }
-                for name, c in self.params.items()
-            },
-            "multivariate": to_builtin(self.multivariate),
-            "lines": list(self.lines),
-        }
-
-
-def _fmt(value: float) -> str:
-    if not math.isfinite(value):
-        return str(value)
-    if abs(value) >= 100:
-        return f"{value:,.0f}"
-    return f"{value:.3g}" if abs(value) >= 1.1 else f"{value:.4f}"
-
-
-def _fmt_key(key: str, value: float, limit: float | None = None) -> str:
-    """R-hats with 4 decimals, the tau growth ratio with 2, other numbers by :func:`_fmt`;
-    given the ``limit``, R-hat and tau growth get the digits that show its side of it."""
-    if limit is not None and math.isfinite(value) and key.startswith(("rhat", "tau_growth")):
-        from chainyard.display import beside_limit
-
-        return beside_limit(value, limit, 4 if key.startswith("rhat") else 2)
-    if math.isfinite(value) and key.startswith("rhat"):
-        return f"{value:.4f}"
-    if math.isfinite(value) and key == "tau_growth":
-        return f"{value:.2f}"
-    return _fmt(value)
-
-
-def _steps_per_tau(diag: Mapping[str, float]) -> float | None:
-    if "steps_per_tau" in diag and diag["steps_per_tau"] is not None:
-        return float(diag["steps_per_tau"])
-    if "tau" in diag and "draws" in diag:
-        return float(diag["draws"]) / float(diag["tau"])
-    return None
-
-
-def _get(diag: Mapping[str, Any], key: str) -> float | None:
-    value = diag.get(key)
-    return None if value is None else float(value)
-
-
-def _checks(diag: Mapping[str, Any], targets: Targets) -> list[tuple[str, str, Any, Any, bool]]:
-    """(question, key, value, limit, is_max) for every check of one parameter."""
-    return [
-        ("mixing", "rhat_nested", _get(diag, "rhat_nested"), targets.max_nested_rhat, True),
-        ("mixing", "rhat", _get(diag, "rhat"), targets.max_rhat, True),
-        ("mixing", "rhat_tail", _get(diag, "rhat_tail"), targets.max_tail_rhat, True),
-        ("tau", "steps_per_tau", _steps_per_tau(diag), targets.min_steps_per_tau, False),
-        ("tau", "tau_growth", _get(diag, "tau_growth"), targets.max_tau_growth, True),
-        ("precision", "ess_bulk", _get(diag, "ess_bulk"), targets.min_ess_bulk, False),
-        ("precision", "ess_tail", _get(diag, "ess_tail"), targets.min_ess_tail, False),
-    ]
-
-
-#: Safety factor on the estimated steps still needed (stated in the advice): the long-run tau
-#: is extrapolated from one noisy estimate, and a longer run's burn-in cut may grow.
-STEPS_MARGIN = 1.25
-
-#: The Sokal window constant of the verdict's tau (:func:`chainyard.diagnostics.integrated_time`).
-WINDOW_C = 5.0
-
-#: The growth ratio the model must predict at the suggested length, as a share of the
-#: limit's distance from 1 (2/3: with limit 1.3 the model's ratio is 1.2, so that the
-#: estimator's noise, sd about 0.03-0.04 at 50 steps per tau, rarely crosses the limit).
-GROWTH_HEADROOM = 2.0 / 3.0
-
-#: Largest correction of the tau estimate (reached at 20 estimated steps per tau); shorter
-#: runs get at least twice their length instead.
-MAX_TAU_CORRECTION = 2.0
-
-
-def long_run_tau(tau: float, steps: int) -> float | None:
-    """The long-run tau ``T`` from the windowed estimate on ``steps`` steps.
-
-    Each walker's autocovariances are taken about its own sample mean, which biases every lag
-    low by about ``tau sigma^2 / L``; summed over the ``2 M + 1`` lags of the Sokal window
-    ``M = c tau`` this makes the estimate about ``T (1 - 2 c tau / L)`` (the order of the bias
-    as in Sokal 1997, from memory; the constant ``2 c = 10`` checked by this project's study:
-    on the correlated Gaussian, the estimate is 0.66, 0.75 and 0.87 of the long-run tau at 20,
-    31 and 50 steps per tau, where the model gives 0.66, 0.75 and 0.85). So
-    ``T = tau / (1 - 2 c tau / L)``.
-
-    Returns
-    -------
-    float or None
-        ``T`` (steps); ``None`` when the run is too short for the correction (fewer than
-        ``2 c MAX_TAU_CORRECTION / (MAX_TAU_CORRECTION - 1)`` estimated steps per tau).
-    """
-    if not (math.isfinite(tau) and tau > 0 and steps > 0):
-        return None
-    shrink = 1.0 - 2.0 * WINDOW_C * tau / steps
-    if shrink < 1.0 / MAX_TAU_CORRECTION:
-        return None
-    return tau / shrink
-
-
-def steps_needed(
-    diag: Mapping[str, Any], targets: Targets, steps: int, failed: set[str]
-) -> int | None:
-    """Estimated total steps (after burn-in) that would meet the failed precision/tau targets.
-
-    With the long-run tau ``T`` (:func:`long_run_tau`), the estimate at ``L'`` steps is
-    ``tau(L') = T / (1 + 2 c T / L')``; so
-
-    * the 50-tau rule (``L' / tau(L') >= k``) needs ``L' >= (k - 2 c) T`` (with the defaults
-      40 long-run taus: the effective gate, see the module docstring);
-    * the growth check needs the model's ``tau(L') / tau(L'/2) = (1 + 4 c T / L') / (1 + 2 c
-      T / L')`` at most ``g = 1 + GROWTH_HEADROOM (max_tau_growth - 1)``, i.e. ``L' >= 2 c (2
-      - g) T / (g - 1)``;
-    * ESS grows in proportion to the steps (a stationary chain).
-
-    The largest of these times :data:`STEPS_MARGIN` is returned (at least ``steps + 1``). A
-    run too short for the tau correction gets at least twice its length. Measured pass rates
-    after following it once: ``tests/benchmarks/RESULTS.md``.
-
-    Parameters
-    ----------
-    diag : mapping
-        ``ess_bulk``, ``ess_tail``, ``tau`` (steps) as available.
-    targets : Targets
-    steps : int
-        Steps per walker after burn-in the diagnostics were computed on.
-    failed : set of str
-        Keys of the failed checks.
-
-    Returns
-    -------
-    int or None
-        ``None`` if no failed check is a precision or tau check or none can be estimated.
-    """
-    tau = _get(diag, "tau")
-    big_t = long_run_tau(tau, steps) if tau is not None else None
-    two_c = 2.0 * WINDOW_C
-    need: list[float] = []
-    k = targets.min_steps_per_tau
-    tau_failed = {"steps_per_tau", "tau_growth"} & failed
-    if tau_failed and big_t is None:
-        need.append(2.0 * steps)
-    if "steps_per_tau" in failed and k and big_t is not None:
-        need.append(max(k - two_c, 1.0) * big_t)
-    limit = targets.max_tau_growth
-    if "tau_growth" in failed and big_t is not None and limit is not None and limit > 1.0:
-        g = 1.0 + GROWTH_HEADROOM * (limit - 1.0)
-        need.append(two_c * max(2.0 - g, 0.0) * big_t / (g - 1.0))
-    for key, target in (("ess_bulk", targets.min_ess_bulk), ("ess_tail", targets.min_ess_tail)):
-        value = _get(diag, key)
-        if key in failed and target is not None and value is not None and value > 0:
-            need.append(steps * target / value)
-    need = [n * STEPS_MARGIN for n in need if math.isfinite(n)]
-    if not need:
-        return None
-    return max(math.ceil(max(need)), steps + 1)
-
-
-def _check_param(
-    name: str, diag: Mapping[str, Any], targets: Targets, steps: int | None
-) -> ParamCheck:
-    failures: list[str] = []
-    failed: set[str] = set()
-    values: dict[str, float] = {}
-    checks = dict.fromkeys(QUESTIONS, True)
-    for question, key, value, limit, is_max in _checks(diag, targets):
-        if limit is None:
-            continue
-        if value is None:
-            failures.append(f"{key} missing")
-        else:
-            values[key] = value
-            if math.isnan(value):
-                failures.append(f"{key} is nan")
-            elif is_max and not value <= limit:
-                failures.append(f"{key} {_fmt_key(key, value, limit)} > {limit:g}")
-            elif not is_max and not value >= limit:
-                failures.append(f"{key} {_fmt_key(key, value, limit)} < {limit:g}")
-            else:
-                continue
-        failed.add(key)
-        checks[question] = False
-    needed = None
-    if steps is not None and not (checks["precision"] and checks["tau"]):
-        needed = steps_needed(diag, targets, steps, failed)
-    return ParamCheck(name, not failures, tuple(failures), values, checks, needed)
-
-
-def _check_mess(
-    multivariate_ess: float | None, n_params: int, targets: Targets
-) -> dict[str, Any] | None:
-    if targets.mess_eps is None:
-        return None
-    required = min_ess(n_params, alpha=targets.mess_alpha, eps=targets.mess_eps)
-    value = None if multivariate_ess is None else float(multivariate_ess)
-    ok = value is not None and math.isfinite(value) and value >= required
-    if value is None:
-        line = "multivariate ESS missing"
-    else:
-        cmp = ">=" if ok else "<"
-        line = (
-            f"multivariate ESS {_fmt(value)} {cmp} {required:,} required for "
-            f"eps={targets.mess_eps:g} at {1 - targets.mess_alpha:.0%} with p={n_params}"
-        )
-    return {"ok": ok, "value": value, "required": required, "p": n_params, "line": line}
 
 
 def _advice(checks: dict[str, bool], more_steps: int | None, steps: int | None) -> list[str]:
