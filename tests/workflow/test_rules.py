@@ -304,10 +304,12 @@ def test_retry_resumes_within_one_invocation(tmp_path: Path) -> None:
     res = snakemake(folder, "--cores", "1")
     assert res.returncode == 0, res.stdout + res.stderr
     log = (folder / "results" / "logs" / "gauss" / "sample-replica-0.log").read_text()
-    # two log-prob calls per step (one per half-ensemble): the kill lands near step 750;
-    # commits every 100 steps leave at least one complete commit well before it
+    # two log-prob calls per step (one per half-ensemble): the kill lands just before step
+    # 750. A commit comes at least every 100 steps, and also when commit_every_seconds has
+    # passed (at any step: on a slow machine more often), so the last commit before the kill
+    # is within 100 steps of it, never after it
     m = re.search(r"resuming replica 0 at step ([0-9,]+) of 3,000", log)
-    assert m and 400 <= int(m.group(1).replace(",", "")) <= 700, log
+    assert m and 600 <= int(m.group(1).replace(",", "")) < 750, log
     reference = make_workflow(tmp_path / "ref", {"gauss": gauss_run(steps=3000, replicas=1)})
     assert snakemake(reference, "--cores", "1").returncode == 0
     rel = Path("results/gauss/draws/replica-0.zarr")
