@@ -138,28 +138,6 @@ def run_dir(tmp_path: Path) -> Path:
     return tmp_path
 
 
-# -- parallel workers (pytest-xdist, ``--dist loadgroup``) ---------------------------------
-
-
-@pytest.hookimpl(tryfirst=True)
-def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> None:
-    """Keep a module's tests on one worker when they share a module- or session-scoped
-    fixture of ours (a sampled store built once): split across two workers, each would build
-    it. Runs before xdist reads the groups; an explicit ``xdist_group`` is left as it is."""
-    for item in items:
-        if any(True for _ in item.iter_markers("xdist_group")):
-            continue
-        info = getattr(item, "_fixtureinfo", None)
-        defs = getattr(info, "name2fixturedefs", {}) if info is not None else {}
-        shared = any(
-            d.scope in ("module", "package", "session") and d.baseid
-            for fixturedefs in defs.values()
-            for d in fixturedefs
-        )
-        if shared:
-            item.add_marker(pytest.mark.xdist_group(item.nodeid.split("::", 1)[0]))
-
-
 # -- the reliability tally across parallel workers (pytest-xdist) --------------------------
 
 

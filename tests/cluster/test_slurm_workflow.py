@@ -42,9 +42,6 @@ from tests.conftest import assert_same_store, base_config, cli, write_run
 from tests.patience import PATIENCE
 from tests.workflow.conftest import gauss_run, make_workflow, planned_jobs, snakemake
 
-#: one loopback cluster per machine: with parallel workers every test here runs on one of them
-pytestmark = pytest.mark.xdist_group("slurm")
-
 STEPS = 2000
 REPLICAS = 2
 #: 2 ms per log-prob call, two calls per step: about 8 s of sampling per replica

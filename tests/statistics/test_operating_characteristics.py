@@ -32,8 +32,7 @@ from scipy.stats import binom
 from tests.statistics.runs import steps_for
 from tests.statistics.study import Cell, run_cell
 
-#: the cells are computed once per process (``cell`` below): one worker runs them all
-pytestmark = [pytest.mark.slow, pytest.mark.xdist_group("operating-characteristics")]
+pytestmark = pytest.mark.slow
 
 #: (family, steps per tau, seeds): healthy cells of the CI version
 HEALTHY = [
