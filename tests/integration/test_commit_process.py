@@ -96,13 +96,33 @@ def _committed(store: Path) -> int:
 
 def _start_with_helper(tmp_path: Path, name: str, min_steps: int):
     """Start a helper-process run; return (config, store, sampler process, helper pid) once
-    the helper writes chunks and ``min_steps`` are committed."""
+    the helper writes chunks and ``min_steps`` are committed.
+
+    The sampler is returned *stopped* (SIGSTOP), so that it cannot finish between this check
+    and what the test does next (on a fast or a loaded machine it otherwise could, and its
+    helper would be gone); the caller sends SIGCONT after its own signal.
+    """
     cfg = write_run(tmp_path, _config("process"), SLOW_MODEL)
     out = tmp_path / name
     proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off")
-    _wait_for(lambda: _helper_writing(proc.pid) and _committed(out) >= min_steps)
-    (helper,) = _helpers(proc.pid)
-    return cfg, out, proc, helper
+    found: list[int] = []
+
+    def ready() -> bool:
+        if proc.poll() is not None:
+            err = proc.stderr.read() if proc.stderr else ""
+            raise AssertionError(f"the run ended before its helper took over: {err}")
+        if not (_helper_writing(proc.pid) and _committed(out) >= min_steps):
+            return False
+        proc.send_signal(signal.SIGSTOP)
+        helpers = _helpers(proc.pid)
+        if len(helpers) == 1 and proc.poll() is None:
+            found.append(helpers[0])
+            return True
+        proc.send_signal(signal.SIGCONT)
+        return False
+
+    _wait_for(ready)
+    return cfg, out, proc, found[0]
 
 
 @pytest.fixture(scope="module")
@@ -124,6 +144,7 @@ def test_same_store_as_the_thread(tmp_path: Path, thread_reference: Path) -> Non
     _, out, proc, helper = _start_with_helper(tmp_path, "p.zarr", 300)
     os.kill(helper, signal.SIGTERM)
     os.kill(helper, signal.SIGINT)
+    proc.send_signal(signal.SIGCONT)
     _, err = proc.communicate(timeout=PATIENCE)
     assert proc.returncode == 0, err
     assert_same_store(out, thread_reference)
@@ -155,6 +176,7 @@ def test_killed_helper_stops_the_run_cleanly(tmp_path: Path, thread_reference: P
     """A helper that dies mid-run: one-line store error, exit 4, committed prefix intact."""
     cfg, out, proc, helper = _start_with_helper(tmp_path, "h.zarr", 300)
     os.kill(helper, signal.SIGKILL)
+    proc.send_signal(signal.SIGCONT)
     _, err = proc.communicate(timeout=PATIENCE)
     assert proc.returncode == 4, err
     last = err.strip().splitlines()[-1]
