@@ -60,7 +60,14 @@ MARK_START = "<!-- bench_verdict.py: start -->"
 MARK_END = "<!-- bench_verdict.py: end -->"
 
 #: (family, steps, label, seeds at scale 1)
-HEALTHY_SEEDS = {"gauss4_corr": 40, "banana": 12, "gamma3": 20, "student_t5_mh": 24}
+HEALTHY_SEEDS = {
+    "gauss4_corr": 40,
+    "banana": 12,
+    "gamma3": 20,
+    "student_t5_mh": 24,
+    "gauss2_gibbs": 20,
+    "gauss4_exact": 20,
+}
 HEALTHY_LENGTHS = (50, 100, 200)
 #: extra lengths per healthy target (steps per tau): the heavy-tailed MH case of issue 18
 EXTRA_LENGTHS = {"student_t5_mh": (380,)}
@@ -153,7 +160,8 @@ def markdown(cells: list[Cell], started: str, seconds: float, scale: float, rows
         "",
         f"Measured {started} with `python tests/benchmarks/bench_verdict.py"
         f"{'' if scale == 1 else f' --scale {scale:g}'}`, wall time {seconds / 60:.1f} min. "
-        "Runs: 4 replicas x 32 walkers, simulated by `tests/statistics/runs.py` (each run "
+        "Runs: 4 replicas x 32 walkers (ensemble) or x 8 chains (other kinds), simulated "
+        "by `tests/statistics/runs.py` (each run "
         "seeded with `default_rng([family code, steps, seed])`, seeds 0..n-1); judged with the "
         "default burn-in policy and `diagnose` with the default targets, as `diagnose "
         "--strict` decides (all parameters together). Intervals: 95% Wilson score (Wilson "
@@ -169,20 +177,23 @@ def markdown(cells: list[Cell], started: str, seconds: float, scale: float, rows
         "",
         "### Results",
         "",
-        "| family | length | mean steps kept | runs | FAIL | rate [95% CI] | goal | met | "
-        "biased | biased but ok | checks fired (runs) | acceptance warnings | 90% MCSE coverage |",
-        "|---|---|---|---|---|---|---|---|---|---|---|---|---|",
+        "| family | sampler kind | length | mean steps kept | runs | FAIL | rate [95% CI] | goal "
+        "| met | biased | biased but ok | checks fired (runs) | acceptance warnings | 90% MCSE "
+        "coverage |",
+        "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|",
     ]
     margins = [
         "",
         "### Margins: the gating statistics over runs (per run: the extreme over parameters)",
         "",
-        "Limits: nested R-hat <= 1.01, tau growth <= 1.3, steps per tau >= 50, ESS >= 400 "
-        "(defaults). Classic R-hat (walker-mean traces, reported, not gating) for comparison.",
+        "Limits: nested R-hat <= 1.01, tail R-hat <= 1.1, tail move ratio >= 0.35, tau growth "
+        "<= 1.3, steps per tau >= 50, ESS >= 400 (defaults). Classic R-hat (walker-mean "
+        "traces, reported, not gating) for comparison.",
         "",
-        "| family | length | nested R-hat median / max | tau growth median / 95% / max | "
-        "steps per tau median / min | bulk ESS median / min | classic R-hat median / max |",
-        "|---|---|---|---|---|---|---|",
+        "| family | length | nested R-hat median / max | tail R-hat median / max | tail move "
+        "ratio median / min | tau growth median / 95% / max | steps per tau median / min | "
+        "bulk ESS median / min | classic R-hat median / max |",
+        "|---|---|---|---|---|---|---|---|---|",
     ]
     for c in cells:
         lo, hi = wilson(c.failed, c.n)
@@ -191,13 +202,16 @@ def markdown(cells: list[Cell], started: str, seconds: float, scale: float, rows
         checks = ", ".join(f"{k} {v}" for k, v in c.checks().most_common()) or "-"
         cover = f"{cov}/{tot} = {cov / tot:.1%}" if tot and c.family.startswith("healthy") else "-"
         out.append(
-            f"| {c.family} | {c.label} ({c.steps:,} steps) | {mean_steps_kept(c):,.0f} | {c.n} "
+            f"| {c.family} | {FAMILIES[c.family].kind} | {c.label} ({c.steps:,} steps) | "
+            f"{mean_steps_kept(c):,.0f} | {c.n} "
             f"| {c.failed} | {c.failed / max(c.n, 1):.0%} [{lo:.0%}, {hi:.0%}] | {g} | "
             f"{'yes' if met else '**no**'} | {c.biased} | {len(c.biased_ok)} | {checks} | "
             f"{c.warned()} | {cover} |"
         )
         margins.append(
             f"| {c.family} | {c.label} | {quantiles(c, 'rhat_nested', (0.5, 1.0))} | "
+            f"{quantiles(c, 'rhat_tail', (0.5, 1.0))} | "
+            f"{quantiles(c, 'tail_move_ratio', (0.5, 0.0))} | "
             f"{quantiles(c, 'tau_growth', (0.5, 0.95, 1.0))} | "
             f"{quantiles(c, 'steps_per_tau', (0.5, 0.0))} | {quantiles(c, 'ess_bulk', (0.5, 0.0))} "
             f"| {quantiles(c, 'rhat', (0.5, 1.0))} |"

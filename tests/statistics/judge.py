@@ -44,7 +44,9 @@ class ArrayReplica:
         replica: int,
         names: tuple[str, ...],
         start: int = 0,
+        kind: str = "ensemble",
     ) -> None:
+        self.attrs = {"sampler_kind": kind}  # read by burn-in (accept-reject: none) and diagnose
         self._draws = draws[start:]
         self._lp = log_prob[start:]
         self._acc = accepted[start:]
@@ -105,6 +107,7 @@ STATS = (
     ("tau_growth", max),
     ("tau_growth_raw", max),
     ("rhat_tail", max),
+    ("tail_move_ratio", min),
     ("steps_per_tau", min),
     ("ess_bulk", min),
     ("ess_tail", min),
@@ -151,7 +154,8 @@ def judge(
     ``kind`` the sampler kind (the basis of R-hat and ESS, and the low-acceptance rules)."""
     names = target.names
     full = [
-        ArrayReplica(draws[k], log_prob[k], accepted[k], k, names) for k in range(draws.shape[0])
+        ArrayReplica(draws[k], log_prob[k], accepted[k], k, names, kind=kind)
+        for k in range(draws.shape[0])
     ]
     try:
         cut = decide_burn_in(full, DefaultBurnIn(policy="default")).steps_discarded  # type: ignore[arg-type]

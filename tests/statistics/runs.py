@@ -14,8 +14,25 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .samplers import Runs, adaptive_random_walk, random_walk, stretch
-from .targets import BANANA, BIMODAL, CORR_GAUSS, EIGHT_SCHOOLS, GAMMA, STUDENT_T, Target
+from .samplers import (
+    Runs,
+    adaptive_random_walk,
+    exact_draws,
+    gibbs_pair,
+    random_walk,
+    stretch,
+)
+from .targets import (
+    BANANA,
+    BIMODAL,
+    CORR_GAUSS,
+    EIGHT_SCHOOLS,
+    GAMMA,
+    GAUSS_PAIR,
+    GIBBS_RHO,
+    STUDENT_T,
+    Target,
+)
 
 REPLICAS = 4
 WALKERS = 32
@@ -33,7 +50,22 @@ T_MH_TAU = 22.8
 #: under the stretch move with 32 walkers, measured once by ``bench_verdict.py --measure-tau``
 #: (16 ensembles x 20,000 steps, emcee.autocorr.integrated_time per ensemble, averaged;
 #: 2026-12-02): gauss4_corr 48.7 (sd over ensembles 2.0), banana 188 (13), gamma3 52.1 (1.0)
-TAU = {"gauss4_corr": 48.7, "banana": 188.0, "gamma3": 52.1, "student_t5_mh": T_MH_TAU}
+#: the Gibbs sampler of the 2-D Gaussian (kind "kernel", 8 chains per replica): analytic
+#: tau (1 + rho^2) / (1 - rho^2) sweeps (see tests/statistics/samplers.py), 19.5 at 0.95
+GIBBS_CHAINS = 8
+GIBBS_TAU = (1 + GIBBS_RHO**2) / (1 - GIBBS_RHO**2)
+#: accept-reject runs (kind "accept_reject", 8 chains per replica) store exact independent
+#: draws: tau 1, so "k steps per tau" is k draws per chain
+AR_CHAINS = 8
+
+TAU = {
+    "gauss4_corr": 48.7,
+    "banana": 188.0,
+    "gamma3": 52.1,
+    "student_t5_mh": T_MH_TAU,
+    "gauss2_gibbs": GIBBS_TAU,
+    "gauss4_exact": 1.0,
+}
 
 FAMILY_CODE = {
     "healthy/gauss4_corr": 1,
@@ -45,6 +77,8 @@ FAMILY_CODE = {
     "small_step": 14,
     "far_start": 15,
     "healthy/student_t5_mh": 4,
+    "healthy/gauss2_gibbs": 5,
+    "healthy/gauss4_exact": 6,
 }
 
 HEALTHY_TARGETS = {"gauss4_corr": CORR_GAUSS, "banana": BANANA, "gamma3": GAMMA}
@@ -85,6 +119,26 @@ FAMILIES = {
         ("metropolis_hastings",),
         "metropolis_hastings",
         T_MH_CHAINS,
+    ),
+    "healthy/gauss2_gibbs": Family(
+        "healthy/gauss2_gibbs",
+        GAUSS_PAIR,
+        True,
+        f"systematic-scan Gibbs (a user kernel), {GIBBS_CHAINS} chains per replica, started "
+        f"at the target ({GAUSS_PAIR.source})",
+        ("kernel",),
+        "kernel",
+        GIBBS_CHAINS,
+    ),
+    "healthy/gauss4_exact": Family(
+        "healthy/gauss4_exact",
+        CORR_GAUSS,
+        True,
+        f"independent exact draws, as accept-reject stores them, {AR_CHAINS} chains per "
+        f"replica ({CORR_GAUSS.source})",
+        ("accept_reject",),
+        "accept_reject",
+        AR_CHAINS,
     ),
     "eight_schools": Family(
         "eight_schools",
@@ -143,6 +197,11 @@ def simulate(family: str, steps: int, seeds: Sequence[int]) -> Runs:
     if family == "healthy/student_t5_mh":
         start = np.stack([tg.exact(g, shape) for g in gens])  # type: ignore[misc]
         return adaptive_random_walk(tg.log_prob, start, steps, gens, np.ones(tg.dim), T_MH_ADAPT)
+    if family == "healthy/gauss2_gibbs":
+        start = np.stack([tg.exact(g, shape) for g in gens])  # type: ignore[misc]
+        return gibbs_pair(start, steps, gens, GIBBS_RHO)
+    if family == "healthy/gauss4_exact":
+        return exact_draws(tg.exact, tg.log_prob, (REPLICAS, steps, fam.walkers), gens)  # type: ignore[arg-type]
     if fam.healthy:
         start = np.stack([tg.exact(g, shape) for g in gens])  # type: ignore[misc]
         return stretch(tg.log_prob, start, steps, gens)

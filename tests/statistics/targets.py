@@ -240,5 +240,31 @@ def _eight_schools() -> Target:
 
 EIGHT_SCHOOLS = _eight_schools()
 
+# ------------------------------------------------------------- bivariate Gaussian (Gibbs)
+
+GIBBS_RHO = 0.95
+
+
+def _pair_log_prob(x: FloatArray) -> FloatArray:
+    a, b = x[..., 0], x[..., 1]
+    return -0.5 * (a * a - 2 * GIBBS_RHO * a * b + b * b) / (1 - GIBBS_RHO**2)
+
+
+def _pair_exact(rng: np.random.Generator, shape: tuple[int, ...]) -> FloatArray:
+    z = rng.standard_normal((*shape, 2))
+    z[..., 1] = GIBBS_RHO * z[..., 0] + np.sqrt(1 - GIBBS_RHO**2) * z[..., 1]
+    return z
+
+
+GAUSS_PAIR = Target(
+    name="gauss2_rho95",
+    names=("u", "v"),
+    log_prob=_pair_log_prob,
+    mean=np.zeros(2),
+    sd=np.ones(2),
+    source="analytic: 2-D Gaussian, mean 0, sd 1, correlation 0.95",
+    exact=_pair_exact,
+)
+
 #: targets of the healthy runs (stationary start)
 HEALTHY = (CORR_GAUSS, BANANA, GAMMA)

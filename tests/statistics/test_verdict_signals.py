@@ -6,7 +6,8 @@ results in ``tests/benchmarks/RESULTS.md``).
   per-chain adapted proposals; 380 steps per tau): healthy runs, judged ok (the study: at
   most 1 false alarm in 24);
 * centred eight schools (a funnel) is failed by the tail R-hat on its own, independently of
-  tau growth (the study: 11 of 11 runs at 16,000 steps; not the one run at 64,000);
+  tau growth (the study: 11 of 11 runs at 16,000 steps; not the one run at 64,000), and by
+  the tail move ratio on its own;
 * "steps still needed", followed once from 20 steps per tau, makes healthy runs pass.
 
 Seeds are fixed; each assertion is the study's finding on a few of its own seeds.
@@ -36,6 +37,17 @@ def test_funnel_fails_on_the_tail_rhat_alone() -> None:
     (run,) = cell.runs
     assert not run.ok
     assert "rhat_tail" in run.checks, run.lines
+
+
+def test_funnel_fails_on_the_tail_move_ratio_alone() -> None:
+    """Centred eight schools: moves out of log-tau's lowest 5% are rare (the funnel's neck),
+    a third signal independent of tau growth and of the tail R-hat, which, unlike them,
+    does not fade as the run grows (the study: every run at 16,000 and 64,000 steps)."""
+    cell = run_cell("eight_schools", 4000, range(1))
+    (run,) = cell.runs
+    assert not run.ok
+    assert "tail_move_ratio" in run.checks, run.lines
+    assert run.stats["tail_move_ratio"] is not None and run.stats["tail_move_ratio"] < 0.35
 
 
 def test_following_steps_needed_once_passes() -> None:

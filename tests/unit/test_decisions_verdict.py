@@ -283,3 +283,18 @@ def test_one_replica_says_what_was_not_checked() -> None:
     assert "Run 4 replicas" in format_table(result)
     four = diagnose_arrays(rng.standard_normal((4, 2000, 16, 2)))["verdict"]["lines"]
     assert not any("replica only" in line or "Run 4 replicas" in line for line in four)
+
+
+def test_accept_reject_draws_are_not_held_to_the_tau_checks() -> None:
+    """Exact independent draws (accept-reject): 30 per chain pass; the same draws judged as an
+    ensemble fail the 50-steps-per-tau rule (tau of independent draws is 1: analytic)."""
+    from chainyard.analysis.diagnose import diagnose_arrays
+
+    draws = np.random.default_rng(3).standard_normal((4, 30, 8, 2))
+    exact = diagnose_arrays(draws, kind="accept_reject")
+    assert exact["verdict"]["ok"], exact["verdict"]["lines"]
+    assert exact["params"]["x0"]["ess_bulk"] == 4 * 30 * 8  # independent draws: ESS is N
+    as_ensemble = diagnose_arrays(draws)
+    assert not as_ensemble["verdict"]["ok"]
+    failures = [f for p in as_ensemble["verdict"]["params"].values() for f in p["failures"]]
+    assert any(f.startswith("steps_per_tau") for f in failures), failures

@@ -36,6 +36,7 @@ result and :mod:`chainyard.analysis.diagnose_reference` compares it with a refer
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Sequence
 from typing import Any
 
@@ -179,6 +180,14 @@ def diagnose_arrays(
 MIN_STEPS = MIN_DRAWS
 
 
+def _kind_targets(targets: Any, kind: str) -> Any:
+    """The targets a kind's runs are judged by: accept-reject draws are exact and independent
+    (tau is 1 by construction, nothing is estimated), so the two tau checks do not apply."""
+    if kind == "accept_reject":
+        return dataclasses.replace(targets, min_steps_per_tau=None, max_tau_growth=None)
+    return targets
+
+
 def diagnose(
     stores: Sequence[Store],
     targets: TargetsSpec | None = None,
@@ -261,9 +270,14 @@ def diagnose(
     low = classify_low_acceptance(stores, steps, acceptance, kind, targets.min_ess_bulk)
     keys = ("rhat_nested", "rhat", "rhat_tail", "ess_bulk", "ess_tail", "steps_per_tau")
     keys += ("tau_growth", "tau")
+    per_param = {
+        n: {k: (np.nan if params[n][k] is None else params[n][k]) for k in keys} for n in names
+    }
+    for n in names:  # absent where not defined (see target_checks.ONLY_WHEN_COMPUTED)
+        per_param[n]["tail_move_ratio"] = params[n].get("tail_move_ratio")
     verdict = assess(
-        {n: {k: (np.nan if params[n][k] is None else params[n][k]) for k in keys} for n in names},
-        targets.to_targets(),
+        per_param,
+        _kind_targets(targets.to_targets(), kind),
         multivariate_ess=multivariate["ess"],
         n_params=len(names),
         steps=steps,

@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
-from chainyard.analysis.signals import score_growth, tail_rhat
+from chainyard.analysis.signals import score_growth, tail_move_ratio, tail_rhat
 from chainyard.diagnostics import (
     integrated_time,
     integrated_time_report,
@@ -166,13 +166,14 @@ def _param_diagnostics(
     pooled = pooled_summary(x, work, overwrite=True)  # x holds normal scores afterwards
     groups = _nested_groups(stores)
     nested = None
-    tails = None
+    tails = moves = None
     # on the normal scores in x (its middle column set to 0): robust to heavy tails
     growth = score_growth(x, stores) if np.isfinite(pooled["ess_bulk"]) else growth_raw
     if groups is not None and np.isfinite(pooled["ess_bulk"]):
         bulk = nested_rhat_of_scores(x, groups)  # x: normal scores of the split chains
         read_column(stores, j, steps, x, walker_means)
         tails = tail_rhat(x, stores, pooled["q05"], pooled["q95"])
+        moves = tail_move_ratio(x, stores, pooled["q05"], pooled["q95"])
         folded = nested_rhat_folded_inplace(x, work, groups)
         nested = _finite(max(bulk, folded))
     out = {
@@ -199,6 +200,7 @@ def _param_diagnostics(
         "tau_growth": growth,
         "tau_growth_raw": growth_raw,
         "rhat_tail": tails,
+        "tail_move_ratio": moves,
         "tau_reliable": all(r.reliable for r in reports),
         "tau_messages": [r.message for r in reports if r.message],
     }
@@ -215,6 +217,7 @@ def _param_diagnostics(
             steps_per_tau=float(steps),
             tau_growth=1.0,
             tau_growth_raw=1.0,
+            tail_move_ratio=None,
             tau_reliable=True,
             tau_messages=[],
             mcse_mean=_finite(sd / np.sqrt(n)) if sd is not None else None,

@@ -47,6 +47,14 @@ class TargetsSpec(_Strict):
         description="Largest split R-hat of the replicas' tail-share traces (5% and 95% "
         "tails): do the replicas visit the tails equally?",
     )
+    min_tail_move_ratio: float | None = Field(
+        default=0.35,
+        gt=0,
+        lt=1,
+        description="Smallest share of moves out of a parameter's lowest or highest 5% over "
+        "the share of moves overall: below it the sampler can hardly move in that region "
+        "(a funnel's neck).",
+    )
     relative_precision: float | None = Field(
         default=None,
         gt=0,
@@ -66,6 +74,7 @@ class TargetsSpec(_Strict):
             min_steps_per_tau=self.min_steps_per_tau,
             max_tau_growth=self.max_tau_growth,
             max_tail_rhat=self.max_tail_rhat,
+            min_tail_move_ratio=self.min_tail_move_ratio,
             mess_eps=self.relative_precision,
         )
 

@@ -15,6 +15,10 @@ from ..diagnostics.multivariate import min_ess
 from .more_steps import _get, steps_needed
 from .verdict_records import QUESTIONS, ParamCheck, Targets
 
+#: checks skipped when their statistic is absent: not defined for every run (accept-reject
+#: draws; nothing ever moved, which other checks catch) nor in records written before it
+ONLY_WHEN_COMPUTED = frozenset({"tail_move_ratio"})
+
 
 def _fmt(value: float) -> str:
     if not math.isfinite(value):
@@ -52,6 +56,13 @@ def _checks(diag: Mapping[str, Any], targets: Targets) -> list[tuple[str, str, A
         ("mixing", "rhat_nested", _get(diag, "rhat_nested"), targets.max_nested_rhat, True),
         ("mixing", "rhat", _get(diag, "rhat"), targets.max_rhat, True),
         ("mixing", "rhat_tail", _get(diag, "rhat_tail"), targets.max_tail_rhat, True),
+        (
+            "mixing",
+            "tail_move_ratio",
+            _get(diag, "tail_move_ratio"),
+            targets.min_tail_move_ratio,
+            False,
+        ),
         ("tau", "steps_per_tau", _steps_per_tau(diag), targets.min_steps_per_tau, False),
         ("tau", "tau_growth", _get(diag, "tau_growth"), targets.max_tau_growth, True),
         ("precision", "ess_bulk", _get(diag, "ess_bulk"), targets.min_ess_bulk, False),
@@ -67,7 +78,7 @@ def _check_param(
     values: dict[str, float] = {}
     checks = dict.fromkeys(QUESTIONS, True)
     for question, key, value, limit, is_max in _checks(diag, targets):
-        if limit is None:
+        if limit is None or (value is None and key in ONLY_WHEN_COMPUTED):
             continue
         if value is None:
             failures.append(f"{key} missing")

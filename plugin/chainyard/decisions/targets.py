@@ -80,6 +80,9 @@ WHAT_EACH_CHECK_COMPARES = {
     "Foreman-Mackey et al. 2013)",
     "rhat_tail": "mixing: split R-hat of each replica's share of draws in the 5% and 95% "
     "tails over time (do all replicas, and both halves of each, visit the tails equally?)",
+    "tail_move_ratio": "mixing: how often a parameter moves from its lowest or highest 5% "
+    "over how often it moves overall (far below 1: the sampler can hardly move there, as in "
+    "a funnel's neck)",
     "tau_growth": "tau: tau of the whole run / tau of its first half on rank-normalised draws "
     "(pooled over replicas); above the limit tau is still growing",
     "ess_bulk": "precision: bulk ESS, every walker of every replica as a chain",
@@ -102,8 +105,9 @@ def _advice(checks: dict[str, bool], more_steps: int | None, steps: int | None) 
     if not checks["mixing"]:
         lines.append(
             "mixing: the replicas disagree (different starts not forgotten, modes held in "
-            "different shares, stuck walkers, or walkers in a minority region); more steps "
-            "may not help: look at the traces."
+            "different shares, stuck walkers, or walkers in a minority region) or the sampler "
+            "hardly moves in a parameter's tail (a funnel's neck: try a non-centred "
+            "parameterisation); more steps may not help: look at the traces."
         )
     return lines
 

@@ -31,6 +31,7 @@ class Targets:
     min_steps_per_tau: float | None = 50.0
     max_tau_growth: float | None = 1.3
     max_tail_rhat: float | None = 1.1
+    min_tail_move_ratio: float | None = 0.35
     mess_eps: float | None = None
     mess_alpha: float = 0.05
 
