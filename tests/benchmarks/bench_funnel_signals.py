@@ -2,6 +2,8 @@
 
     nice -n 10 .venv/bin/python tests/benchmarks/bench_funnel_signals.py --part es16
     (parts: es16, es64, healthy, all; results as JSON lines in tests/benchmarks/.work/)
+    --rejudge DIR judges every run saved in DIR with the current verdict (JSON lines in
+    .work/funnel-verdict.jsonl); --table prints the markdown table of those lines.
     --save DIR also writes each run's arrays (draws, log_prob, accepted as .npy, float64 and
     bool, no pickle) to DIR/FAMILY-STEPS-SEED/, so that new statistics can be computed on the
     same runs later without simulating them again (64,000 steps: 655 MB per run)
@@ -116,6 +118,69 @@ def run(family: str, steps: int, seeds: range, path: Path, save: Path | None = N
         del runs, draws
 
 
+def rejudge(saved: Path, path: Path) -> None:
+    """Judge every run saved by ``--save`` with the current verdict; one JSON line per run
+    (runs already in ``path`` are skipped)."""
+    done = set()
+    if path.exists():
+        done = {(r["steps"], r["seed"]) for r in map(json.loads, path.read_text().splitlines())}
+    fam = FAMILIES["eight_schools"]
+    folders = sorted(
+        saved.glob("eight_schools-*-*"), key=lambda f: tuple(map(int, f.name.split("-")[1:]))
+    )
+    for folder in folders:
+        steps, seed = (int(v) for v in folder.name.split("-")[1:])
+        if (steps, seed) in done or not (folder / "accepted.npy").exists():
+            continue
+        t0 = time.perf_counter()
+        arrays = [np.load(folder / f"{n}.npy") for n in ("draws", "log_prob", "accepted")]
+        j = judge(fam.target, *arrays)
+        row = {
+            "steps": steps,
+            "seed": seed,
+            "ok": j.ok,
+            "checks": sorted(j.checks),
+            "biased": j.biased,
+            "bias": j.bias_detail,
+            **j.stats,
+            "seconds": time.perf_counter() - t0,
+        }
+        with path.open("a") as fh:
+            fh.write(json.dumps(row) + "\n")
+        print(json.dumps(row), flush=True)
+
+
+def table(path: Path) -> None:
+    """Markdown: per length, FAIL rate, biased runs and which check caught them."""
+    from tests.statistics.study import wilson
+
+    rows = [json.loads(line) for line in path.read_text().splitlines()]
+    print(
+        "| steps | seeds | runs FAIL [95% Wilson] | biased runs (> 4 MCSE off) | biased "
+        "caught | by tail move ratio | by tail R-hat | by tau growth | tail move ratio fired "
+        "(all runs) | tail move ratio min / median / max | fired alone |"
+    )
+    print("|---|---|---|---|---|---|---|---|---|---|---|")
+    for steps in sorted({r["steps"] for r in rows}):
+        rs = sorted((r for r in rows if r["steps"] == steps), key=lambda r: r["seed"])
+        n, fail = len(rs), sum(not r["ok"] for r in rs)
+        lo, hi = wilson(fail, n)
+        biased = [r for r in rs if r["biased"]]
+        by = {
+            k: sum(k in r["checks"] for r in biased)
+            for k in ("tail_move_ratio", "rhat_tail", "tau_growth")
+        }
+        ratios = [r["tail_move_ratio"] for r in rs]
+        alone = sum(r["checks"] == ["tail_move_ratio"] for r in rs)
+        print(
+            f"| {steps:,} | {rs[0]['seed']}-{rs[-1]['seed']} | {fail}/{n} = {fail / n:.0%} "
+            f"[{lo:.0%}, {hi:.0%}] | {len(biased)} | {sum(not r['ok'] for r in biased)} | "
+            f"{by['tail_move_ratio']} | {by['rhat_tail']} | {by['tau_growth']} | "
+            f"{sum('tail_move_ratio' in r['checks'] for r in rs)}/{n} | "
+            f"{min(ratios):.3f} / {float(np.median(ratios)):.3f} / {max(ratios):.3f} | {alone} |"
+        )
+
+
 PARTS = {
     "es16": [("eight_schools", 16000, 20)],
     "es64": [("eight_schools", 64000, 20)],
@@ -134,7 +199,17 @@ def main() -> None:
     ap.add_argument("--first-seed", type=int, default=0)
     ap.add_argument("--last-seed", type=int, default=None, help="exclusive; default: the part's")
     ap.add_argument("--save", type=Path, default=None, help="also save each run's arrays here")
+    ap.add_argument("--rejudge", type=Path, default=None, help="judge the runs saved here")
+    ap.add_argument("--table", action="store_true", help="print the re-judged runs' table")
     args = ap.parse_args()
+    if args.rejudge or args.table:
+        path = HERE / ".work" / "funnel-verdict.jsonl"
+        if args.rejudge:
+            path.parent.mkdir(exist_ok=True)
+            rejudge(args.rejudge, path)
+        if args.table:
+            table(path)
+        return
     parts = list(PARTS) if args.part == "all" else [args.part]
     out = HERE / ".work"
     out.mkdir(exist_ok=True)

@@ -250,10 +250,14 @@ def gibbs_pair(
             x[..., 0] = rho * x[..., 1] + s * z[i, ..., 0]
             x[..., 1] = rho * x[..., 0] + s * z[i, ..., 1]
             draws[:, t0 + i] = x
-    out.log_prob[:] = -0.5 * (
-        (out.draws[..., 0] ** 2 - 2 * rho * out.draws[..., 0] * out.draws[..., 1])
-        + out.draws[..., 1] ** 2
-    ) / (1 - rho * rho)
+    out.log_prob[:] = (
+        -0.5
+        * (
+            (out.draws[..., 0] ** 2 - 2 * rho * out.draws[..., 0] * out.draws[..., 1])
+            + out.draws[..., 1] ** 2
+        )
+        / (1 - rho * rho)
+    )
     return out
 
 

@@ -97,9 +97,7 @@ def score_growth(scores: FloatArray, stores: Sequence[Any]) -> float | None:
     return float(whole / first)
 
 
-def tail_move_ratio(
-    x: FloatArray, stores: Sequence[Any], q05: float, q95: float
-) -> float | None:
+def tail_move_ratio(x: FloatArray, stores: Sequence[Any], q05: float, q95: float) -> float | None:
     """Share of moves out of each 5% tail over the share of moves overall; the smaller.
 
     A *move* is a change of this parameter's value between consecutive kept draws of one
