@@ -19,6 +19,7 @@ PACKAGE = Path(__file__).resolve().parents[2] / "plugin" / "chainyard"
 LAYERS: tuple[tuple[str, ...], ...] = (
     (
         "chainyard.errors",
+        "chainyard.argtypes",  # argparse types shared by the command parsers
         "chainyard.limits",
         "chainyard.testhooks",
         "chainyard.facts",

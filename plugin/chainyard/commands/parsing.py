@@ -7,7 +7,6 @@ Usage mistakes end in one line, ``chainyard: error: MSG (see PROG --help)``, and
 from __future__ import annotations
 
 import argparse
-import math
 import sys
 from collections.abc import Callable, Sequence
 from typing import Any, NoReturn
@@ -68,17 +67,6 @@ def _workers(text: str) -> int | str:
 
 
 _workers.__name__ = "N, auto or dask://HOST:PORT"
-
-
-def _positive_seconds(text: str) -> float:
-    """An argparse type: a finite number of seconds > 0."""
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"must be a number of seconds, got {text!r}") from None
-    if not math.isfinite(value) or value <= 0:
-        raise argparse.ArgumentTypeError(f"must be a finite number of seconds > 0, got {text}")
-    return value
 
 
 class _VersionAction(argparse.Action):

@@ -11,7 +11,8 @@ import sys
 from pathlib import Path
 from typing import Any
 
-from chainyard.commands.parsing import _int_at_least, _positive_seconds, _workers
+from chainyard.argtypes import positive_seconds
+from chainyard.commands.parsing import _int_at_least, _workers
 from chainyard.errors import ConfigError, TargetsNotMetError
 
 __all__ = ["add_command"]
@@ -125,7 +126,7 @@ def add_command(sub: Any) -> None:
     )
     p.add_argument(
         "--progress-interval",
-        type=_positive_seconds,
+        type=positive_seconds,
         default=10.0,
         metavar="SECONDS",
         help="seconds between progress log lines (default 10)",

@@ -3,22 +3,12 @@
 from __future__ import annotations
 
 import argparse
-import math
 from pathlib import Path
 from typing import Any
 
+from chainyard.argtypes import positive_seconds
+
 __all__ = ["add_command"]
-
-
-def _seconds(text: str) -> float:
-    """An argparse type: a finite number of seconds > 0."""
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"must be a number of seconds, got {text!r}") from None
-    if not math.isfinite(value) or value <= 0:
-        raise argparse.ArgumentTypeError(f"must be a finite number of seconds > 0, got {text}")
-    return value
 
 
 def add_command(sub: Any) -> None:
@@ -44,7 +34,7 @@ def add_command(sub: Any) -> None:
         nargs="?",
         const=5.0,
         default=None,
-        type=_seconds,
+        type=positive_seconds,
         metavar="SECONDS",
         help="refresh in place every SECONDS (default 5) until interrupted",
     )
@@ -57,7 +47,7 @@ def add_command(sub: Any) -> None:
     )
     p.add_argument(
         "--stale-after",
-        type=_seconds,
+        type=positive_seconds,
         default=None,
         metavar="SECONDS",
         help="a writer on another host that has not committed for this long counts as gone "
