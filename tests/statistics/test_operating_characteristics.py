@@ -42,6 +42,8 @@ HEALTHY = [
     ("healthy/banana", 100, 8),
     ("healthy/gamma3", 100, 16),
     ("healthy/student_t5_mh", 380, 8),  # issue 18, item 11: heavy tails, MH, 4 x 8 chains
+    ("healthy/gauss2_gibbs", 100, 12),  # a user kernel (Gibbs), 4 x 8 chains, analytic tau
+    ("healthy/gauss4_exact", 50, 12),  # accept-reject: exact independent draws, 4 x 8 chains
 ]
 #: issue 11: at most 5% at >= 100 steps per tau, at most 20% at 50
 GOAL = {50: 0.20, 100: 0.05, 200: 0.05, 380: 0.05}
