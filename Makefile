@@ -19,10 +19,10 @@ demo: $(STAMP)  ## run the example workflow end to end
 
 test: $(STAMP)  ## lint, then the whole test suite (slow tests included)
 	$(BIN)/ruff check .
-	$(BIN)/python -m pytest -n 2 --dist loadfile --no-loadscope-reorder
+	$(BIN)/python -m pytest -n 3 --dist loadfile --no-loadscope-reorder
 
 test-fast: $(STAMP)  ## the suite without slow tests
-	$(BIN)/python -m pytest -n 2 --dist loadfile --no-loadscope-reorder -m "not slow"
+	$(BIN)/python -m pytest -n 3 --dist loadfile --no-loadscope-reorder -m "not slow"
 
 lint: $(STAMP)
 	$(BIN)/ruff check .
