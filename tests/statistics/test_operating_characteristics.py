@@ -17,9 +17,10 @@ level those seeds allow:
   range of a true 90% rate (one parameter per run, so the trials are independent).
 
 Seeds are fixed, so every outcome is reproducible (``bench_verdict.py`` prints seeds).
-Cost (the tests/statistics folder, measured 2026-12-04 on a quiet 2-core machine): 225 s of
-CPU time, 130 s of wall time on two workers; the seeds per cell were halved or so that day
-to keep the suite within its time (the full study is ``bench_verdict.py``).
+Cost (the tests/statistics folder, measured 2026-12-04 on a quiet 2-core machine, with the
+seeds of that day): 188 s of CPU time (225 s before its last cut). The seeds
+per cell were cut to about 40% that day to keep the suite within its time; the full study is
+``bench_verdict.py`` (results in RESULTS.md).
 """
 
 from __future__ import annotations
@@ -36,12 +37,12 @@ pytestmark = pytest.mark.slow
 
 #: (family, steps per tau, seeds): healthy cells of the CI version
 HEALTHY = [
-    ("healthy/gauss4_corr", 50, 20),
-    ("healthy/gauss4_corr", 100, 20),
+    ("healthy/gauss4_corr", 50, 12),
+    ("healthy/gauss4_corr", 100, 16),
     ("healthy/gauss4_corr", 200, 6),
     ("healthy/banana", 100, 4),
-    ("healthy/gamma3", 100, 12),
-    ("healthy/student_t5_mh", 380, 8),  # issue 18, item 11: heavy tails, MH, 4 x 8 chains
+    ("healthy/gamma3", 100, 8),
+    ("healthy/student_t5_mh", 380, 6),  # issue 18, item 11: heavy tails, MH, 4 x 8 chains
     ("healthy/gauss2_gibbs", 100, 12),  # a user kernel (Gibbs), 4 x 8 chains, analytic tau
     ("healthy/gauss4_exact", 50, 12),  # accept-reject: exact independent draws, 4 x 8 chains
 ]
