@@ -44,7 +44,7 @@ from chainyard.analysis.decide import decide_burn_in  # noqa: E402
 from chainyard.config import DefaultBurnIn  # noqa: E402
 from chainyard.diagnostics import integrated_time, rhat  # noqa: E402
 from chainyard.diagnostics.nested import nested_rhat_of_scores  # noqa: E402
-from tests.statistics.judge import ArrayReplica, judge  # noqa: E402
+from tests.statistics.judge import ArrayReplica, Judgement, judge  # noqa: E402
 from tests.statistics.runs import FAMILIES, simulate, steps_for  # noqa: E402
 
 
@@ -83,6 +83,18 @@ def signals(kept: np.ndarray) -> dict[str, float]:
     return out
 
 
+def _outcome(j: Judgement) -> dict[str, object]:
+    """The verdict's outcome of one judged run, as JSON fields."""
+    return {"ok": j.ok, "checks": sorted(j.checks), "biased": j.biased, "bias": j.bias_detail}
+
+
+def _append(path: Path, row: dict[str, object]) -> None:
+    """Append ``row`` to the JSON-lines file ``path`` and print it."""
+    with path.open("a") as fh:
+        fh.write(json.dumps(row) + "\n")
+    print(json.dumps(row), flush=True)
+
+
 def run(family: str, steps: int, seeds: range, path: Path, save: Path | None = None) -> None:
     """Simulate, judge and measure every seed; append one JSON line per run to ``path``."""
     fam = FAMILIES[family]
@@ -100,21 +112,9 @@ def run(family: str, steps: int, seeds: range, path: Path, save: Path | None = N
         full = [ArrayReplica(draws[k], lp[k], acc[k], k, tg.names) for k in range(len(draws))]
         cut = decide_burn_in(full, DefaultBurnIn(policy="default")).steps_discarded  # type: ignore[arg-type]
         sig = signals(draws[:, cut:])
-        row = {
-            "family": family,
-            "steps": steps,
-            "seed": s,
-            "ok": j.ok,
-            "checks": sorted(j.checks),
-            "biased": j.biased,
-            "bias": j.bias_detail,
-            **{k: j.stats.get(k) for k in ("tau_growth", "steps_per_tau", "rhat_nested")},
-            **sig,
-            "seconds": time.perf_counter() - t0,
-        }
-        with path.open("a") as fh:
-            fh.write(json.dumps(row) + "\n")
-        print(json.dumps(row), flush=True)
+        stats = {k: j.stats.get(k) for k in ("tau_growth", "steps_per_tau", "rhat_nested")}
+        row = {"family": family, "steps": steps, "seed": s, **_outcome(j), **stats, **sig}
+        _append(path, {**row, "seconds": time.perf_counter() - t0})
         del runs, draws
 
 
@@ -135,19 +135,8 @@ def rejudge(saved: Path, path: Path) -> None:
         t0 = time.perf_counter()
         arrays = [np.load(folder / f"{n}.npy") for n in ("draws", "log_prob", "accepted")]
         j = judge(fam.target, *arrays)
-        row = {
-            "steps": steps,
-            "seed": seed,
-            "ok": j.ok,
-            "checks": sorted(j.checks),
-            "biased": j.biased,
-            "bias": j.bias_detail,
-            **j.stats,
-            "seconds": time.perf_counter() - t0,
-        }
-        with path.open("a") as fh:
-            fh.write(json.dumps(row) + "\n")
-        print(json.dumps(row), flush=True)
+        row = {"steps": steps, "seed": seed, **_outcome(j), **j.stats}
+        _append(path, {**row, "seconds": time.perf_counter() - t0})
 
 
 def table(path: Path) -> None:
