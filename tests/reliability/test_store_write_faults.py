@@ -142,6 +142,53 @@ def test_disk_full_at_creation_removes_the_new_store(made: Path, small_fs: Path)
     assert not (small_fs / "new.zarr").exists()
 
 
+def test_creation_fault_waits_for_the_writes_still_running(
+    made: Path, small_fs: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A creation that fails while another of zarr's concurrent writes is still running: the
+    store is removed only after that write ends, so it cannot come back as a stray folder.
+
+    zarr writes an array's metadata and its parent group's metadata at once; on a loaded
+    machine the group's write can start after the array's write failed and the store was
+    removed, and it recreates the folder. The fault here is real (a full tmpfs with one page
+    free for the root group's metadata); only the timing is forced, by delaying the group's
+    write by 0.5 s in zarr's file writer.
+    """
+    import time
+
+    import zarr.storage._local as local
+
+    put = local._put
+
+    def slow_group_put(path: Path, *args: object, **kwargs: object) -> int:
+        if path.name == "zarr.json" and path.parent.name == "draws":
+            time.sleep(0.5)
+        return put(path, *args, **kwargs)  # type: ignore[arg-type]
+
+    monkeypatch.setattr(local, "_put", slow_group_put)
+    old = Store.open(made)
+    fill(small_fs)
+    filler = small_fs / "filler"
+    os.truncate(filler, filler.stat().st_size - 4096)  # one page for the root's metadata
+    with pytest.raises(StorageFaultError, match=r"\[ENOSPC\]\); nothing was committed"):
+        Store.create(
+            small_fs / "new.zarr",
+            attrs={"walkers": 8},
+            walkers=8,
+            n_params=2,
+            blob_names=(),
+            capacity=300,
+            chunk_steps=100,
+            codec="pcodec",
+            level=None,
+            start=old.start_state(),
+            commit=old.commit_record,
+            fsync=True,
+        )
+    time.sleep(1.0)  # longer than the delayed write
+    assert sorted(p.name for p in small_fs.iterdir()) == ["filler"]
+
+
 def test_read_only_mount(made: Path, small_fs: Path, tally: Tally) -> None:
     """EROFS: the chunk write fails with one line naming the chunk folder; nothing changes."""
     store_path = small_fs / "s.zarr"

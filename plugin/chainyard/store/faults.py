@@ -11,6 +11,7 @@ OSError is not a storage fault and propagates unchanged.
 
 from __future__ import annotations
 
+import asyncio
 import errno
 import os
 from collections.abc import Iterator
@@ -19,7 +20,7 @@ from pathlib import Path
 
 from chainyard.errors import StorageFaultError
 
-__all__ = ["FAULT_ERRNOS", "as_storage_fault", "storage_faults"]
+__all__ = ["FAULT_ERRNOS", "as_storage_fault", "settle_zarr_writes", "storage_faults"]
 
 #: system errors that mean "the file system refused", by number
 FAULT_ERRNOS = frozenset(
@@ -77,6 +78,33 @@ def as_storage_fault(
     )
 
 
+def settle_zarr_writes(limit: float = 120.0) -> None:
+    """Wait until no write that zarr started is still running (at most ``limit`` seconds).
+
+    zarr writes several files of one call concurrently on its own event loop
+    (``asyncio.gather``). When one of them fails, the call raises at once while the others
+    are still running in threads; a write finishing later recreates its parent folders. So a
+    caller must wait for them before removing what was written, or a removed store can come
+    back as a folder of stray metadata. Waits for nothing when zarr has no loop running.
+    """
+    from zarr.core import sync as zarr_sync  # the loop zarr's synchronous API runs on
+
+    loop = getattr(zarr_sync, "loop", [None])[0]
+    if loop is None or loop.is_closed() or not loop.is_running():
+        return
+
+    async def _drain() -> None:
+        me = asyncio.current_task()
+        while others := [t for t in asyncio.all_tasks() if t is not me]:
+            await asyncio.wait(others)
+
+    future = asyncio.run_coroutine_threadsafe(_drain(), loop)
+    try:
+        future.result(timeout=limit)
+    except Exception:  # a write that never ends is the caller's fault line, not a new one
+        future.cancel()
+
+
 @contextmanager
 def storage_faults(
     path: Path | str, *, committed: int | None, partials: tuple[Path, ...] = ()
@@ -87,6 +115,7 @@ def storage_faults(
     except StorageFaultError:
         raise
     except Exception as exc:
+        settle_zarr_writes()
         for tmp in partials:
             with suppress(OSError):
                 os.unlink(tmp)

@@ -36,7 +36,7 @@ from chainyard.errors import StoreError
 from chainyard.facts import git_state, host_record, software_versions, utc_now
 from chainyard.store.chunks import ChunkEncoder
 from chainyard.store.committing import Committer
-from chainyard.store.faults import as_storage_fault
+from chainyard.store.faults import as_storage_fault, settle_zarr_writes
 from chainyard.store.files import atomic_write_json, discard_folder
 from chainyard.store.integrity import chunk_checksum
 from chainyard.store.layout import (
@@ -246,6 +246,7 @@ class Store(StoreReader, Committer, RowWriter):
             if fault is None:
                 raise
             if not existed:  # a creation cut short holds nothing of value
+                settle_zarr_writes()  # else a write still running recreates its folder
                 with contextlib.suppress(OSError):
                     discard_folder(path)
             raise fault from None
