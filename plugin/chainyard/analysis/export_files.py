@@ -37,6 +37,7 @@ from chainyard.analysis.outputs import _enclosing_store, _swap_in, store_kind
 from chainyard.analysis.selection import Selection
 from chainyard.errors import ConfigError, StoreError
 from chainyard.store import Store
+from chainyard.store.faults import settle_zarr_writes
 
 __all__ = ["FORMATS", "check_export_path", "export_run", "write_csv", "write_netcdf", "write_zarr"]
 
@@ -253,6 +254,8 @@ def export_run(
         else:
             os.replace(tmp, target)
     except BaseException:
+        if ext == ".zarr":
+            settle_zarr_writes()  # a write still running would recreate the removed folder
         _remove(tmp)
         raise
     return f"{out}: {what} ({FORMATS[ext]}; {selection.description})"
