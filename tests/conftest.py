@@ -100,14 +100,18 @@ def cli(
     )
 
 
-def popen_cli(*args: str, cwd: Path | None = None) -> subprocess.Popen[str]:
-    """Start ``chainyard ARGS`` in the background (stdout/stderr captured)."""
+def popen_cli(
+    *args: str, cwd: Path | None = None, env: dict[str, str] | None = None
+) -> subprocess.Popen[str]:
+    """Start ``chainyard ARGS`` in the background (stdout/stderr captured; ``env`` is added
+    to this process's environment)."""
     return subprocess.Popen(
         [sys.executable, "-m", "chainyard.cli", *args],
         cwd=cwd,
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         text=True,
+        env={**os.environ, **(env or {})},
     )
 
 
