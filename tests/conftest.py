@@ -25,17 +25,41 @@ def log_prob(theta, data):
     return -0.5 * float(np.dot(theta, theta))
 """
 
-#: about 1 ms per step for 16 walkers: a few-second run, so kills land mid-run
+#: about 1 ms per step for 16 walkers: a few-second run, so kills land mid-run. Started with
+#: :func:`held_env`, it is slowed down further after its first calls while a file exists, so
+#: that the run cannot end before a test has seen what it waits for, however loaded the
+#: machine (the values, and so the draws, never change)
 SLOW_MODEL = """
+import os
 import time
 import numpy as np
 
+HOLD = os.environ.get("HOLD_FILE", "")
+AFTER = int(os.environ.get("HOLD_AFTER_CALLS", "0"))
+PAUSE = float(os.environ.get("HOLD_PAUSE_SECONDS", "0"))
+CALLS = [0]
+
 def log_prob(theta, data):
+    CALLS[0] += 1
     t = time.perf_counter()
     while time.perf_counter() - t < 6e-5:
         pass
+    if HOLD and CALLS[0] > AFTER and os.path.exists(HOLD):
+        time.sleep(PAUSE)
     return -0.5 * float(np.dot(theta, theta))
 """
+
+
+def held_env(hold: Path, after_calls: int, pause: float) -> dict[str, str]:
+    """Environment for a SLOW_MODEL run that, after ``after_calls`` calls and while the file
+    ``hold`` exists, sleeps ``pause`` seconds per call (``hold`` is created here)."""
+    hold.touch()
+    return {
+        "HOLD_FILE": str(hold),
+        "HOLD_AFTER_CALLS": str(after_calls),
+        "HOLD_PAUSE_SECONDS": str(pause),
+    }
+
 
 #: the minimal config from the core-engine issue, verbatim
 MINIMAL_CONFIG = """\

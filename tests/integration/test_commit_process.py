@@ -16,9 +16,11 @@ import pytest
 import chainyard
 from chainyard.engine.writer import process_writer_available
 from tests.conftest import (
+    SLOW_MODEL,
     assert_same_store,
     base_config,
     cli,
+    held_env,
     popen_cli,
     tree_snapshot,
     write_run,
@@ -28,29 +30,6 @@ from tests.patience import PATIENCE, patient
 pytestmark = pytest.mark.skipif(
     not process_writer_available(), reason="the commit helper process needs Linux"
 )
-
-#: SLOW_MODEL, slowed down after its first 16,000 calls (about 1,000 steps) while the file
-#: named by $HOLD_FILE exists: a run started with it cannot end before the test has seen its
-#: helper take over, however long the helper takes to start on a loaded machine (the values,
-#: and so the draws, are the same)
-HELD_MODEL = """
-import os
-import time
-import numpy as np
-
-HOLD = os.environ.get("HOLD_FILE", "")
-CALLS = [0]
-
-def log_prob(theta, data):
-    CALLS[0] += 1
-    t = time.perf_counter()
-    while time.perf_counter() - t < 6e-5:
-        pass
-    if HOLD and CALLS[0] > 16_000 and os.path.exists(HOLD):
-        time.sleep(0.005)
-    return -0.5 * float(np.dot(theta, theta))
-"""
-
 
 def _config(writer: str, steps: int = 2400) -> dict:
     return base_config(
@@ -118,18 +97,17 @@ def _start_with_helper(tmp_path: Path, name: str, min_steps: int):
     """Start a helper-process run; return (config, store, sampler process, helper pid) once
     the helper writes chunks and ``min_steps`` are committed.
 
-    Until then the model is held slow (``HELD_MODEL``), so the run cannot end before its
-    helper, however slow to start, has taken over. The sampler is returned *stopped*
+    Until then the model is held slow (:func:`~tests.conftest.held_env`), so the run cannot
+    end before its helper, however slow to start, has taken over. The sampler is returned *stopped*
     (SIGSTOP), so that it cannot finish between this check and what the test does next; the
     hold is lifted, and the caller sends SIGCONT after its own signal.
     """
-    cfg = write_run(tmp_path, _config("process"), HELD_MODEL)
+    cfg = write_run(tmp_path, _config("process"), SLOW_MODEL)
     out = tmp_path / name
     hold = tmp_path / "hold"
-    hold.touch()
-    proc = popen_cli(
-        "sample", str(cfg), "--out", str(out), "--progress", "off", env={"HOLD_FILE": str(hold)}
-    )
+    # after about 1,000 of its 2,400 steps the run crawls (5 ms per call) until released
+    env = held_env(hold, after_calls=16_000, pause=0.005)
+    proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off", env=env)
     found: list[int] = []
 
     def ready() -> bool:
@@ -155,7 +133,7 @@ def _start_with_helper(tmp_path: Path, name: str, min_steps: int):
 def thread_reference(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """An uninterrupted run committing on the thread."""
     folder = tmp_path_factory.mktemp("thread")
-    cfg = write_run(folder, _config("thread"), HELD_MODEL)
+    cfg = write_run(folder, _config("thread"), SLOW_MODEL)
     res = cli("sample", str(cfg), "--out", str(folder / "ref.zarr"), "--progress", "off")
     assert res.returncode == 0, res.stderr
     return folder / "ref.zarr"

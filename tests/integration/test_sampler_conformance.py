@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 
 import chainyard
-from tests.conftest import SLOW_MODEL, assert_same_store, cli, popen_cli, write_run
+from tests.conftest import SLOW_MODEL, assert_same_store, cli, held_env, popen_cli, write_run
 from tests.patience import PATIENCE
 
 STEPS = 1200
@@ -57,6 +57,14 @@ SAMPLERS: dict[str, dict[str, Any]] = {
     },
 }
 KINDS = list(SAMPLERS)
+#: model calls in about the first 400 steps of each kind (counted: 9,664 / 4,833 / 4,808 /
+#: 23,579 calls in a whole 1,200-step run)
+HOLD_AFTER_CALLS = {
+    "ensemble": 3200,
+    "metropolis_hastings": 1600,
+    "kernel": 1600,
+    "accept_reject": 7800,
+}
 
 
 def _config(kind: str, steps: int = STEPS) -> dict[str, Any]:
@@ -110,7 +118,10 @@ def test_sigkill_then_resume_is_exact(
     """SIGKILL of a real ``chainyard sample`` after some commits, then a rerun: identical."""
     cfg = _write(tmp_path, kind)
     out = tmp_path / "killed.zarr"
-    proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off")
+    # after about 400 of its 1,200 steps the run crawls, 50 ms per model call, so it cannot
+    # end before this test, however starved, has seen 100 steps committed
+    env = held_env(tmp_path / "hold", after_calls=HOLD_AFTER_CALLS[kind], pause=0.05)
+    proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off", env=env)
     start = time.monotonic()
     while time.monotonic() - start < PATIENCE and proc.poll() is None:
         try:
@@ -120,7 +131,7 @@ def test_sigkill_then_resume_is_exact(
             pass
         time.sleep(0.005)
     time.sleep(0.05)
-    assert proc.poll() is None, "the run ended before it could be killed; slow it down"
+    assert proc.poll() is None, "the run ended before it could be killed"
     proc.send_signal(signal.SIGKILL)
     proc.wait(timeout=PATIENCE)
     mid = chainyard.open_store(out).steps_done
