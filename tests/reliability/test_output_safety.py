@@ -229,16 +229,26 @@ def _wait_for(cond, seconds: float = PATIENCE) -> None:  # type: ignore[no-untyp
         time.sleep(0.005)
 
 
+def _stopped(pid: int) -> bool:
+    """True while process ``pid`` is stopped by a signal (state T in /proc)."""
+    try:
+        return Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0] == "T"
+    except OSError:
+        return False
+
+
 def test_second_derive_of_the_same_output_exits_6(
     source: Path, references: dict[str, Path], tmp_path: Path, tally: Tally
 ) -> None:
-    """While one derive writes (held stopped mid-write), a second gets exit 6 in one line."""
+    """While one derive writes (it stops itself, written but not yet published, holding the
+    lock), a second gets exit 6 in one line."""
     out = tmp_path / "d.zarr"
-    first = popen_cli(*DERIVE0, str(source), "--out", str(out))
+    env = {"CHAINYARD_TEST_STOP_AT": "derive-before-publish"}
+    first = popen_cli(*DERIVE0, str(source), "--out", str(out), env=env)
     try:
-        _wait_for(lambda: leftovers(out) != [] or first.poll() is not None)
-        os.kill(first.pid, signal.SIGSTOP)
-        assert first.poll() is None, "the first derive finished before it could be stopped"
+        _wait_for(lambda: _stopped(first.pid) or first.poll() is not None)
+        assert first.poll() is None, first.communicate()[1]
+        assert leftovers(out) != []
         second = cli(*DERIVE0, str(source), "--out", str(out))
         line = one_error_line(second, 6)
         assert "another process is writing" in line and str(out) in line
