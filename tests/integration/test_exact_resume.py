@@ -14,7 +14,15 @@ import numpy as np
 import pytest
 
 import chainyard
-from tests.conftest import SLOW_MODEL, assert_same_store, base_config, cli, popen_cli, write_run
+from tests.conftest import (
+    SLOW_MODEL,
+    assert_same_store,
+    base_config,
+    cli,
+    held_env,
+    popen_cli,
+    write_run,
+)
 from tests.patience import PATIENCE
 
 # 2,400 steps with chunks of 64 steps and commits every 50 steps: commits cut chunks in the
@@ -77,8 +85,11 @@ def test_sigkill_then_resume_is_exact(
     cfg = write_run(tmp_path, _with_writer(writer), SLOW_MODEL)
     out = tmp_path / "killed.zarr"
     kills = 0
+    # each process crawls after 800 steps of its own (16 calls a step): the first is killed
+    # at step 100 or later, so the second, waited for at step 900, cannot end before its kill
+    hold = held_env(tmp_path / "hold", after_calls=12_800, pause=0.05)
     for attempt in range(2):
-        proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off")
+        proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off", env=hold)
         start = time.monotonic()
         # wait until the run is under way (past imports and the first commits), then a
         # random extra delay so the kill lands at an arbitrary point of the commit cycle
@@ -102,8 +113,10 @@ def test_sigterm_commits_and_resumes(writer: str, tmp_path: Path, reference: Pat
     """SIGTERM (a wall-time limit) commits the finished steps, exits 143, resumes exactly."""
     cfg = write_run(tmp_path, _with_writer(writer), SLOW_MODEL)
     out = tmp_path / "term.zarr"
-    proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off")
+    hold = held_env(tmp_path / "hold", after_calls=6400, pause=0.05)  # crawls after 400 steps
+    proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off", env=hold)
     _wait_for_commits(time.monotonic(), out, 300)
+    assert proc.poll() is None
     proc.send_signal(signal.SIGTERM)
     _, err = proc.communicate(timeout=PATIENCE)
     assert proc.returncode == 143, err

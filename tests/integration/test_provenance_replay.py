@@ -16,7 +16,7 @@ from chainyard.errors import VerificationError
 from chainyard.provenance.record import provenance_record
 from chainyard.provenance.replay import replay
 from chainyard.store import Store, chunk_checksum
-from tests.conftest import base_config, cli, popen_cli, write_run
+from tests.conftest import base_config, cli, held_env, popen_cli, write_run
 from tests.patience import PATIENCE
 
 BLOB_MODEL = """
@@ -26,12 +26,23 @@ def log_prob(theta, data):
     return -0.5 * float(np.dot(theta, theta)), float(theta[0] ** 2)
 """
 
+#: vectorised, 2 ms a call (two calls a step); started with :func:`~tests.conftest.held_env`,
+#: it sleeps longer after its first calls while the hold file exists
 SLOW_MODEL = """
+import os
 import time
 import numpy as np
 
+HOLD = os.environ.get("HOLD_FILE", "")
+AFTER = int(os.environ.get("HOLD_AFTER_CALLS", "0"))
+PAUSE = float(os.environ.get("HOLD_PAUSE_SECONDS", "0"))
+CALLS = [0]
+
 def log_prob(theta, data):
+    CALLS[0] += 1
     time.sleep(0.002)
+    if HOLD and CALLS[0] > AFTER and os.path.exists(HOLD):
+        time.sleep(PAUSE)
     return -0.5 * np.sum(theta ** 2, axis=1)
 """
 
@@ -130,7 +141,10 @@ def test_replay_thinned_store(extended: Path, tmp_path: Path) -> None:
 def test_resume_after_sigterm_replays_exactly(tmp_path: Path) -> None:
     """A run stopped by SIGTERM and resumed records the resume; replaying it matches bitwise."""
     cfg = _run(tmp_path, 300, slow=True)
-    first = popen_cli("sample", str(cfg), "--out", "s.zarr", "--progress", "off", cwd=tmp_path)
+    hold = held_env(tmp_path / "hold", after_calls=200, pause=0.2)  # crawls after 100 steps
+    first = popen_cli(
+        "sample", str(cfg), "--out", "s.zarr", "--progress", "off", cwd=tmp_path, env=hold
+    )
     deadline = time.monotonic() + PATIENCE
     commit = tmp_path / "s.zarr" / "commit.json"
     while not commit.exists() or json.loads(commit.read_text())["steps_done"] < 50:

@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 
 import chainyard
-from tests.conftest import assert_same_store, base_config, cli, popen_cli, write_run
+from tests.conftest import assert_same_store, base_config, cli, held_env, popen_cli, write_run
 from tests.integration.test_exact_resume import _wait_for_commits
 from tests.patience import PATIENCE, patient
 from tests.reliability.conftest import snapshot
@@ -69,14 +69,25 @@ def log_prob(theta, data):
 """
 
 #: about 0.2 ms per call: long enough for a kill to land mid-run
+#: 0.2 ms of work per call; started with :func:`~tests.conftest.held_env`, it crawls after its
+#: first calls (counted in each worker) while the hold file exists
 BUSY_MODEL = """
+import os
 import time
+
+HOLD = os.environ.get("HOLD_FILE", "")
+AFTER = int(os.environ.get("HOLD_AFTER_CALLS", "0"))
+PAUSE = float(os.environ.get("HOLD_PAUSE_SECONDS", "0"))
+CALLS = [0]
 
 
 def log_prob(theta, data):
+    CALLS[0] += 1
     t = time.perf_counter()
     while time.perf_counter() - t < 2e-4:
         pass
+    if HOLD and CALLS[0] > AFTER and os.path.exists(HOLD):
+        time.sleep(PAUSE)
     return -0.5 * float(theta @ theta)
 """
 
@@ -250,11 +261,16 @@ def test_killed_worker_and_killed_run(tmp_path: Path) -> None:
     _sample(cfg, tmp_path / "ref.zarr")
     out = tmp_path / "k.zarr"
 
+    # each worker makes about 8 calls per step: every run below crawls after about 150 steps
+    # of its own, so it cannot end before the kill, however loaded the machine
+    hold = held_env(tmp_path / "hold", after_calls=1200, pause=0.05)
+
     # 1. a worker is killed
     proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off",
-                     "--workers", "2")  # fmt: skip
+                     "--workers", "2", env=hold)  # fmt: skip
     workers = _workers_of(proc.pid, 2)
     _wait_steps(out, 60)
+    assert proc.poll() is None
     os.kill(workers[1], signal.SIGKILL)
     _, err = proc.communicate(timeout=PATIENCE)
     assert proc.returncode == 3, err
@@ -268,9 +284,10 @@ def test_killed_worker_and_killed_run(tmp_path: Path) -> None:
 
     # 2. the run itself is killed: its workers end too
     proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off",
-                     "--workers", "2")  # fmt: skip
+                     "--workers", "2", env=hold)  # fmt: skip
     workers = _workers_of(proc.pid, 2)
     _wait_steps(out, done + 40)
+    assert proc.poll() is None
     proc.send_signal(signal.SIGKILL)
     proc.wait(timeout=patient(30))
     # part of what is tested: the workers end with the run, not whenever they like; the
@@ -290,10 +307,12 @@ def test_sigterm_stops_the_pool_cleanly(tmp_path: Path) -> None:
     """SIGTERM: the finished steps are committed, exit 143, no worker left; resume exact."""
     cfg = write_run(tmp_path, KILL_CONFIG, BUSY_MODEL)
     out = tmp_path / "t.zarr"
+    hold = held_env(tmp_path / "hold", after_calls=1200, pause=0.05)  # crawls after ~150 steps
     proc = popen_cli("sample", str(cfg), "--out", str(out), "--progress", "off",
-                     "--workers", "2")  # fmt: skip
+                     "--workers", "2", env=hold)  # fmt: skip
     workers = _workers_of(proc.pid, 2)
     _wait_steps(out, 60)
+    assert proc.poll() is None
     proc.send_signal(signal.SIGTERM)
     _, err = proc.communicate(timeout=PATIENCE)
     assert proc.returncode == 143, err

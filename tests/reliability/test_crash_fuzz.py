@@ -337,7 +337,9 @@ def test_discarding_a_never_committed_store_killed_half_way(
     left beside the store."""
     _require("store-discarding")
     folder = tmp_path / "run"
-    write_run(folder, run_config(STEPS, "thread"), FAILING_MODEL, name="run.yaml")
+    cfg = run_config(STEPS, "thread")
+    cfg["storage"]["commit_every_seconds"] = 3600  # no commit before the failure, however slow
+    write_run(folder, cfg, FAILING_MODEL, name="run.yaml")
     out = folder / "s.zarr"
     res = run(
         "sample",

@@ -123,7 +123,14 @@ def runs(tmp_path_factory: pytest.TempPathFactory) -> Path:
     for codec in ("none", "zstd", "blosc_zstd", "pcodec"):
         cfg = base_config(
             sampler={"walkers": 8, "steps": 300},
-            storage={"chunk_steps": 100, "commit_every_steps": 100, "codec": codec, "fsync": False},
+            # on the thread, commits stay at steps 100, 200, 300 (the kill below needs three)
+            storage={
+                "chunk_steps": 100,
+                "commit_every_steps": 100,
+                "codec": codec,
+                "fsync": False,
+                "commit_writer": "thread",
+            },
         )
         config = write_run(root, cfg, name=f"{codec}.yaml")
         res = cli("sample", str(config), "--out", f"{codec}.zarr", "--progress", "off", cwd=root)

@@ -9,6 +9,7 @@ table in chainyard.errors; "one line" is the project's rule for user-facing erro
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 import resource
 import signal
@@ -185,6 +186,14 @@ def test_kill_before_first_commit_then_rerun(
     tally.killed()
 
 
+def _committed_steps(store: Path) -> int | None:
+    """The steps committed in ``store`` (None before its first commit record)."""
+    try:
+        return int(json.loads((store / "commit.json").read_text())["steps_done"])
+    except (OSError, ValueError, KeyError):
+        return None
+
+
 # ---------------------------------------------------------- item 4: SIGTERM, model hangs
 @pytest.mark.slow
 def test_sigterm_while_model_hangs(tmp_path: Path, reference: Path, tally: Tally) -> None:
@@ -192,7 +201,9 @@ def test_sigterm_while_model_hangs(tmp_path: Path, reference: Path, tally: Tally
     commit is intact, and a rerun with the hang switched off finishes bitwise equal."""
     from chainyard.engine.stopping import STOP_GRACE_SECONDS
 
-    write_run(tmp_path, SMALL, HANG_MODEL)
+    # commits on the thread at steps 50 and 100 only; the model hangs at step 125
+    storage = {**SMALL["storage"], "commit_writer": "thread", "commit_every_seconds": 3600}
+    write_run(tmp_path, {**SMALL, "storage": storage}, HANG_MODEL)
     (tmp_path / "hang.flag").touch()
     proc = subprocess.Popen(
         [
@@ -216,7 +227,10 @@ def test_sigterm_while_model_hangs(tmp_path: Path, reference: Path, tally: Tally
         while not (tmp_path / "hanging.flag").exists():
             assert proc.poll() is None and time.monotonic() < deadline, "model never hung"
             time.sleep(0.02)
-        time.sleep(1.0)  # a commit handed to the writer just before the hang completes
+        # the commit of step 100 is done (its record is replaced last) before the snapshot
+        while _committed_steps(tmp_path / "s.zarr") != 100:
+            assert proc.poll() is None and time.monotonic() < deadline, "no commit at step 100"
+            time.sleep(0.02)
         before = snapshot(tmp_path / "s.zarr")
         sent = time.monotonic()
         proc.send_signal(signal.SIGTERM)
