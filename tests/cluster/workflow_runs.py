@@ -29,10 +29,13 @@ _spec = importlib.util.spec_from_file_location("cooling", Path(__file__).with_na
 _cooling = importlib.util.module_from_spec(_spec)
 _spec.loader.exec_module(_cooling)
 PAUSE_SECONDS = {pause!r}
+HOLD = Path(__file__).with_name("hold")  # while it exists, crawl after 300 steps
+CALLS = [0]
 
 
 def log_prob(theta, data):
-    time.sleep(PAUSE_SECONDS)
+    CALLS[0] += 1
+    time.sleep(0.05 if CALLS[0] > 600 and HOLD.exists() else PAUSE_SECONDS)
     return _cooling.log_prob(theta, data)
 '''
 

@@ -249,15 +249,24 @@ def test_example_runs_here(ex: Example, sandbox: Path) -> None:
 
 def script(ex: Example) -> str:
     """A shell block as one bash script: stop at the first failure, wait after each
-    background line for the port it names to open, stop the background jobs at the end."""
+    background line for the port it names to open (or, for Dask workers, for them to join
+    their scheduler, which on a loaded machine can take longer than a run waits), stop the
+    background jobs at the end."""
     lines = ["set -e", "trap 'kill $(jobs -p) 2>/dev/null; wait' EXIT"]
     for command in commands(ex.text):
         lines.append(command)
         port = re.search(r"(?:--port|-p)\s+(\d+)", command)
+        worker = re.match(r"dask worker (tcp://\S+) --nworkers (\d+)", command)
         if command.endswith("&") and port:
             lines.append(
                 f"for i in $(seq 600); do (echo > /dev/tcp/127.0.0.1/{port.group(1)}) "
                 "2>/dev/null && break; sleep 0.5; done"
+            )
+        elif command.endswith("&") and worker:
+            address, count = worker.groups()
+            lines.append(
+                f"python -c \"from distributed import Client; Client('{address}', "
+                f"timeout={PATIENCE:.0f}).wait_for_workers({count}, timeout={PATIENCE:.0f})\""
             )
     return "\n".join(lines) + "\n"
 

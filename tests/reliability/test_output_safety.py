@@ -340,8 +340,9 @@ def test_random_kills_leave_old_or_new_store(
     started = time.monotonic()
     assert cli(*DERIVE0, str(source), "--out", str(out)).returncode == 0
     span = time.monotonic() - started
-    kills = 0
-    for _ in range(6):
+    kills = tries = 0
+    while kills < 3 and tries < 20:  # a derive that beat its kill (a change of load) is retried
+        tries += 1
         now = "trimmed" if chainyard.open_store(out).attrs["derived"]["discard"] else "full"
         swap = ["--burn-in-record", record] if now == "full" else ["--discard", "0"]
         proc = popen_cli("derive", str(source), "--out", str(out), *swap)
@@ -352,7 +353,7 @@ def test_random_kills_leave_old_or_new_store(
         proc.communicate(timeout=PATIENCE)
         after = "trimmed" if chainyard.open_store(out).attrs["derived"]["discard"] else "full"
         same_derived(out, references[after])  # the old or the new store, complete
-    assert kills >= 3, f"only {kills} of 6 derives were still running when killed"
+    assert kills >= 3, f"only {kills} of {tries} derives were still running when killed"
     res = cli("derive", str(source), "--out", str(out), "--burn-in-record", record)
     assert res.returncode == 0, res.stderr
     same_derived(out, references["trimmed"])

@@ -326,9 +326,12 @@ from pathlib import Path
 import numpy as np
 
 Path(__file__).with_name("pid").write_text(str(os.getpid()))
+HOLD = Path(__file__).with_name("hold")  # while it exists, crawl after 400 steps
+CALLS = [0]
 
 def log_prob(theta, data):
-    time.sleep(0.002)
+    CALLS[0] += 1
+    time.sleep(0.05 if CALLS[0] > 800 and HOLD.exists() else 0.002)
     return -0.5 * np.sum(theta * theta, axis=1)
 """
 
@@ -377,10 +380,13 @@ def _slow_workflow(folder: Path, **settings: object) -> Path:
 def test_sigkill_job_then_rerun_resumes(tmp_path: Path, flags: tuple[str, ...]) -> None:
     """SIGKILL of a sampling job, then snakemake again (plain / --rerun-incomplete): exact."""
     folder = _slow_workflow(tmp_path / "wf", sample_retries=0)
+    hold = folder / "models" / "hold"
+    hold.touch()  # the job cannot end before it is killed, however loaded the machine
     proc = popen_snakemake(folder, "--cores", "1")
     resumable = folder / "results" / "gauss" / ".resumable" / "replica-0.zarr"
     _wait_for_steps(resumable, 300)
     os.kill(int((folder / "models" / "pid").read_text()), signal.SIGKILL)
+    hold.unlink()
     proc.wait(timeout=PATIENCE)
     assert proc.returncode != 0
     done = chainyard.open_store(resumable).steps_done
