@@ -120,25 +120,30 @@ def test_disk_full_at_every_write_site(made: Path, small_fs: Path, tally: Tally)
     assert Store.open(store_path).steps_done == 300
 
 
+def create_like(old: Store, path: Path, attrs: dict[str, object]) -> Store:
+    """A new store at ``path`` shaped like ``old`` (8 walkers, 2 parameters) with ``attrs``."""
+    return Store.create(
+        path,
+        attrs=attrs,
+        walkers=8,
+        n_params=2,
+        blob_names=(),
+        capacity=300,
+        chunk_steps=100,
+        codec="pcodec",
+        level=None,
+        start=old.start_state(),
+        commit=old.commit_record,
+        fsync=True,
+    )
+
+
 def test_disk_full_at_creation_removes_the_new_store(made: Path, small_fs: Path) -> None:
     """ENOSPC while a store is created: one line, and the half-made store is removed."""
     old = Store.open(made)
     fill(small_fs)
     with pytest.raises(StorageFaultError, match=r"\[ENOSPC\]\); nothing was committed"):
-        Store.create(
-            small_fs / "new.zarr",
-            attrs=old.attrs,
-            walkers=8,
-            n_params=2,
-            blob_names=(),
-            capacity=300,
-            chunk_steps=100,
-            codec="pcodec",
-            level=None,
-            start=old.start_state(),
-            commit=old.commit_record,
-            fsync=True,
-        )
+        create_like(old, small_fs / "new.zarr", old.attrs)
     assert not (small_fs / "new.zarr").exists()
 
 
@@ -171,20 +176,7 @@ def test_creation_fault_waits_for_the_writes_still_running(
     filler = small_fs / "filler"
     os.truncate(filler, filler.stat().st_size - 4096)  # one page for the root's metadata
     with pytest.raises(StorageFaultError, match=r"\[ENOSPC\]\); nothing was committed"):
-        Store.create(
-            small_fs / "new.zarr",
-            attrs={"walkers": 8},
-            walkers=8,
-            n_params=2,
-            blob_names=(),
-            capacity=300,
-            chunk_steps=100,
-            codec="pcodec",
-            level=None,
-            start=old.start_state(),
-            commit=old.commit_record,
-            fsync=True,
-        )
+        create_like(old, small_fs / "new.zarr", {"walkers": 8})
     time.sleep(1.0)  # longer than the delayed write
     assert sorted(p.name for p in small_fs.iterdir()) == ["filler"]
 
