@@ -25,34 +25,45 @@ def log_prob(theta, data):
     return -0.5 * float(np.dot(theta, theta))
 """
 
-#: about 1 ms per step for 16 walkers: a few-second run, so kills land mid-run. Started with
-#: :func:`held_env`, it is slowed down further after its first calls while a file exists, so
-#: that the run cannot end before a test has seen what it waits for, however loaded the
-#: machine (the values, and so the draws, never change)
-SLOW_MODEL = """
-import os
+#: model code for a held run (:func:`held_env`): ``hold()``, called once per model call, sleeps
+#: ``HOLD_PAUSE_SECONDS`` after the first ``HOLD_AFTER_CALLS`` calls while the file
+#: ``HOLD_FILE`` exists, so that a run cannot end before a test has seen what it waits for,
+#: however loaded the machine; the model's values, and so the draws, never change
+HOLD_CODE = """
+import os as _os
+import time as _time
+
+_HOLD = _os.environ.get("HOLD_FILE", "")
+_AFTER = int(_os.environ.get("HOLD_AFTER_CALLS", "0"))
+_PAUSE = float(_os.environ.get("HOLD_PAUSE_SECONDS", "0"))
+_CALLS = [0]
+
+
+def hold():
+    _CALLS[0] += 1
+    if _HOLD and _CALLS[0] > _AFTER and _os.path.exists(_HOLD):
+        _time.sleep(_PAUSE)
+"""
+
+#: about 1 ms per step for 16 walkers: a few-second run, so kills land mid-run (it can be
+#: held: see HOLD_CODE)
+SLOW_MODEL = HOLD_CODE + """
 import time
 import numpy as np
 
-HOLD = os.environ.get("HOLD_FILE", "")
-AFTER = int(os.environ.get("HOLD_AFTER_CALLS", "0"))
-PAUSE = float(os.environ.get("HOLD_PAUSE_SECONDS", "0"))
-CALLS = [0]
-
 def log_prob(theta, data):
-    CALLS[0] += 1
     t = time.perf_counter()
     while time.perf_counter() - t < 6e-5:
         pass
-    if HOLD and CALLS[0] > AFTER and os.path.exists(HOLD):
-        time.sleep(PAUSE)
+    hold()
     return -0.5 * float(np.dot(theta, theta))
 """
 
 
 def held_env(hold: Path, after_calls: int, pause: float) -> dict[str, str]:
-    """Environment for a SLOW_MODEL run that, after ``after_calls`` calls and while the file
-    ``hold`` exists, sleeps ``pause`` seconds per call (``hold`` is created here)."""
+    """Environment for a run of a model with HOLD_CODE that, after ``after_calls`` calls and
+    while the file ``hold`` exists, sleeps ``pause`` seconds per call (``hold`` is created
+    here)."""
     hold.touch()
     return {
         "HOLD_FILE": str(hold),

@@ -16,7 +16,7 @@ from chainyard.errors import VerificationError
 from chainyard.provenance.record import provenance_record
 from chainyard.provenance.replay import replay
 from chainyard.store import Store, chunk_checksum
-from tests.conftest import base_config, cli, held_env, popen_cli, write_run
+from tests.conftest import HOLD_CODE, base_config, cli, held_env, popen_cli, write_run
 from tests.patience import PATIENCE
 
 BLOB_MODEL = """
@@ -26,23 +26,14 @@ def log_prob(theta, data):
     return -0.5 * float(np.dot(theta, theta)), float(theta[0] ** 2)
 """
 
-#: vectorised, 2 ms a call (two calls a step); started with :func:`~tests.conftest.held_env`,
-#: it sleeps longer after its first calls while the hold file exists
-SLOW_MODEL = """
-import os
+#: vectorised, 2 ms a call (two calls a step); it can be held (HOLD_CODE)
+SLOW_MODEL = HOLD_CODE + """
 import time
 import numpy as np
 
-HOLD = os.environ.get("HOLD_FILE", "")
-AFTER = int(os.environ.get("HOLD_AFTER_CALLS", "0"))
-PAUSE = float(os.environ.get("HOLD_PAUSE_SECONDS", "0"))
-CALLS = [0]
-
 def log_prob(theta, data):
-    CALLS[0] += 1
     time.sleep(0.002)
-    if HOLD and CALLS[0] > AFTER and os.path.exists(HOLD):
-        time.sleep(PAUSE)
+    hold()
     return -0.5 * np.sum(theta ** 2, axis=1)
 """
 

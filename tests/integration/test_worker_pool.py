@@ -18,7 +18,15 @@ import numpy as np
 import pytest
 
 import chainyard
-from tests.conftest import assert_same_store, base_config, cli, held_env, popen_cli, write_run
+from tests.conftest import (
+    HOLD_CODE,
+    assert_same_store,
+    base_config,
+    cli,
+    held_env,
+    popen_cli,
+    write_run,
+)
 from tests.integration.test_exact_resume import _wait_for_commits
 from tests.patience import PATIENCE, patient
 from tests.reliability.conftest import snapshot
@@ -68,26 +76,17 @@ def log_prob(theta, data):
     return -0.5 * float(theta @ theta), threads, blas, float(os.getpid())
 """
 
-#: about 0.2 ms per call: long enough for a kill to land mid-run
-#: 0.2 ms of work per call; started with :func:`~tests.conftest.held_env`, it crawls after its
-#: first calls (counted in each worker) while the hold file exists
-BUSY_MODEL = """
-import os
+#: about 0.2 ms per call: long enough for a kill to land mid-run; it can be held (HOLD_CODE;
+#: calls are counted in each worker)
+BUSY_MODEL = HOLD_CODE + """
 import time
-
-HOLD = os.environ.get("HOLD_FILE", "")
-AFTER = int(os.environ.get("HOLD_AFTER_CALLS", "0"))
-PAUSE = float(os.environ.get("HOLD_PAUSE_SECONDS", "0"))
-CALLS = [0]
 
 
 def log_prob(theta, data):
-    CALLS[0] += 1
     t = time.perf_counter()
     while time.perf_counter() - t < 2e-4:
         pass
-    if HOLD and CALLS[0] > AFTER and os.path.exists(HOLD):
-        time.sleep(PAUSE)
+    hold()
     return -0.5 * float(theta @ theta)
 """
 
