@@ -9,7 +9,6 @@ table in chainyard.errors; "one line" is the project's rule for user-facing erro
 from __future__ import annotations
 
 import contextlib
-import json
 import os
 import resource
 import signal
@@ -186,19 +185,12 @@ def test_kill_before_first_commit_then_rerun(
     tally.killed()
 
 
-def _committed_steps(store: Path) -> int | None:
-    """The steps committed in ``store`` (None before its first commit record)."""
-    try:
-        return int(json.loads((store / "commit.json").read_text())["steps_done"])
-    except (OSError, ValueError, KeyError):
-        return None
-
-
 # ---------------------------------------------------------- item 4: SIGTERM, model hangs
 @pytest.mark.slow
 def test_sigterm_while_model_hangs(tmp_path: Path, reference: Path, tally: Tally) -> None:
     """A model that hangs: SIGTERM stops the run within the grace period (exit 143), the last
     commit is intact, and a rerun with the hang switched off finishes bitwise equal."""
+    from chainyard.engine.guards import committed_steps
     from chainyard.engine.stopping import STOP_GRACE_SECONDS
 
     # commits on the thread at steps 50 and 100 only; the model hangs at step 125
@@ -228,7 +220,7 @@ def test_sigterm_while_model_hangs(tmp_path: Path, reference: Path, tally: Tally
             assert proc.poll() is None and time.monotonic() < deadline, "model never hung"
             time.sleep(0.02)
         # the commit of step 100 is done (its record is replaced last) before the snapshot
-        while _committed_steps(tmp_path / "s.zarr") != 100:
+        while committed_steps(tmp_path / "s.zarr") != 100:
             assert proc.poll() is None and time.monotonic() < deadline, "no commit at step 100"
             time.sleep(0.02)
         before = snapshot(tmp_path / "s.zarr")
